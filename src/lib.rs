@@ -1,0 +1,18 @@
+//! pollard: passive cable maps and strict binary compartment reduction of reconstructed neurons.
+//!
+//! Data flows one way: SWC text ([`swc`]) → tree ([`morphology`], petgraph) → flat arrays
+//! ([`morphology::Flat`]) → cable maps ([`cable`]) → reduced tree ([`reduce`]) → files
+//! ([`export`]) and views (`app`, behind the `gui` feature). See DEVELOPERS.md for the map.
+
+pub mod cable;
+pub mod export;
+pub mod morphology;
+pub mod swc;
+pub mod synth;
+
+
+pub use morphology::{Flat, Morphology};
+pub use swc::{SwcError, Warning};
+
+#[cfg(feature = "gui")]
+pub mod app;

@@ -1,0 +1,405 @@
+//! SWC reader, validator and writer.
+//!
+//! The format: one point per line, seven columns `id type x y z radius parent`, parent -1 for a
+//! root (Cannon, Turner, Pyapali & Wheal 1998, J. Neurosci. Methods 84:49–54). `#` starts a
+//! comment. This module reads the text into [`SwcPoint`]s and checks every line; tree-level checks
+//! (missing parents, cycles) live in [`crate::morphology`], which builds the tree.
+//!
+//! Every error names the file, the line and the fault ([`SwcError`]); nothing here panics on input.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+/// One SWC line.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SwcPoint {
+    /// The point's id (column 1).
+    pub id: i64,
+    /// The type code (column 2): 1 soma, 2 axon, 3 basal dendrite, 4 apical dendrite,
+    /// 5 fork point, 6 end point (both neurite points), others custom.
+    pub kind: i32,
+    /// Position in µm (columns 3–5).
+    pub pos: [f64; 3],
+    /// Radius in µm (column 6); `None` where the file says `NA`.
+    pub radius: Option<f64>,
+    /// The parent's id (column 7), -1 for a root.
+    pub parent: i64,
+    /// 1-based line number in the source file.
+    pub line: usize,
+}
+
+/// A warning about a file that was still accepted. `code` is a short stable name
+/// (for tests and for filtering), `message` a sentence for people.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Warning {
+    pub code: &'static str,
+    pub line: Option<usize>,
+    pub message: String,
+}
+
+impl Warning {
+    pub fn new(code: &'static str, line: Option<usize>, message: impl Into<String>) -> Self {
+        Warning {
+            code,
+            line,
+            message: message.into(),
+        }
+    }
+}
+
+impl std::fmt::Display for Warning {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self.line {
+            Some(l) => write!(f, "line {l}: {} [{}]", self.message, self.code),
+            None => write!(f, "{} [{}]", self.message, self.code),
+        }
+    }
+}
+
+/// What is wrong with a file that cannot be read.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum Fault {
+    #[error("cannot read the file: {0}")]
+    Io(String),
+    #[error("the file is not UTF-8 text (a bad byte at byte offset {0})")]
+    NotUtf8(usize),
+    #[error("the file holds no points")]
+    Empty,
+    #[error("expected 7 columns (id type x y z radius parent), found {0}")]
+    TooFewColumns(usize),
+    #[error("column {column} ({name}) is not a number: {text:?}")]
+    NotANumber {
+        column: usize,
+        name: &'static str,
+        text: String,
+    },
+    #[error("column {column} ({name}) is not finite: {text:?}")]
+    NotFinite {
+        column: usize,
+        name: &'static str,
+        text: String,
+    },
+    #[error("column {column} ({name}) must be a whole number, found {text:?}")]
+    NotAnInteger {
+        column: usize,
+        name: &'static str,
+        text: String,
+    },
+    #[error("{name} {text} is out of range ({rule})")]
+    OutOfRange {
+        name: &'static str,
+        text: String,
+        rule: &'static str,
+    },
+    #[error("the radius is negative: {0}")]
+    NegativeRadius(f64),
+    #[error("id {id} is used twice (first on line {first_line})")]
+    DuplicateId { id: i64, first_line: usize },
+    #[error("point {id} names parent {parent}, which is not in the file")]
+    MissingParent { id: i64, parent: i64 },
+    #[error("point {0} is its own parent")]
+    OwnParent(i64),
+    #[error("the parent links form a cycle through point {0}")]
+    Cycle(i64),
+}
+
+/// An SWC file that cannot be used: the file, the 1-based line (when one line is at fault) and
+/// what is wrong.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{file}{}: {fault}", line.map(|l| format!(":{l}")).unwrap_or_default())]
+pub struct SwcError {
+    pub file: String,
+    pub line: Option<usize>,
+    pub fault: Fault,
+}
+
+/// The points and warnings of a file that passed the line-level checks.
+#[derive(Debug, Clone, Default)]
+pub struct SwcFile {
+    /// Where it came from (a path, or a name such as `<demo>`), used in messages.
+    pub source: String,
+    pub points: Vec<SwcPoint>,
+    /// Comment lines (without the leading `#`), in order.
+    pub header: Vec<String>,
+    pub warnings: Vec<Warning>,
+}
+
+const NAMES: [&str; 7] = ["id", "type", "x", "y", "z", "radius", "parent"];
+
+/// Reads and checks an SWC file from disk.
+pub fn read_path(path: &Path) -> Result<SwcFile, SwcError> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|e| SwcError {
+        file: file.clone(),
+        line: None,
+        fault: Fault::Io(e.to_string()),
+    })?;
+    parse_bytes(&bytes, &file)
+}
+
+/// Checks that `bytes` are UTF-8 and parses them; `source` names the file in messages.
+pub fn parse_bytes(bytes: &[u8], source: &str) -> Result<SwcFile, SwcError> {
+    match std::str::from_utf8(bytes) {
+        Ok(text) => parse_str(text, source),
+        Err(e) => {
+            let at = e.valid_up_to();
+            let line = bytes[..at].iter().filter(|&&b| b == b'\n').count() + 1;
+            Err(SwcError {
+                file: source.to_string(),
+                line: Some(line),
+                fault: Fault::NotUtf8(at),
+            })
+        }
+    }
+}
+
+/// Parses SWC text; `source` names the file in messages.
+pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
+    let mut out = SwcFile {
+        source: source.to_string(),
+        ..Default::default()
+    };
+    let mut extra_columns: Option<(usize, usize)> = None; // (first line, count of lines)
+    let mut float_ids: Option<usize> = None;
+    let err = |line: usize, fault: Fault| SwcError {
+        file: source.to_string(),
+        line: Some(line),
+        fault,
+    };
+    for (i, raw) in text.split('\n').enumerate() {
+        let lineno = i + 1;
+        let raw = raw.strip_suffix('\r').unwrap_or(raw);
+        let content = match raw.find('#') {
+            Some(at) => {
+                out.header.push(raw[at + 1..].trim_end().to_string());
+                &raw[..at]
+            }
+            None => raw,
+        };
+        let mut cols = content.split_ascii_whitespace();
+        let mut fields: [&str; 7] = [""; 7];
+        let mut n = 0;
+        for f in cols.by_ref().take(7) {
+            fields[n] = f;
+            n += 1;
+        }
+        if n == 0 {
+            continue;
+        }
+        if n < 7 {
+            return Err(err(lineno, Fault::TooFewColumns(n)));
+        }
+        if cols.next().is_some() {
+            extra_columns = Some(match extra_columns {
+                Some((first, count)) => (first, count + 1),
+                None => (lineno, 1),
+            });
+        }
+        let id = parse_int(fields[0], 0, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
+        if id < 0 {
+            return Err(err(
+                lineno,
+                Fault::OutOfRange {
+                    name: "id",
+                    text: fields[0].to_string(),
+                    rule: "ids are 0 or more",
+                },
+            ));
+        }
+        let kind = parse_int(fields[1], 1, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
+        let kind = i32::try_from(kind).map_err(|_| {
+            err(
+                lineno,
+                Fault::OutOfRange {
+                    name: "type",
+                    text: fields[1].to_string(),
+                    rule: "a type code fits in 32 bits",
+                },
+            )
+        })?;
+        let mut pos = [0.0; 3];
+        for (c, p) in pos.iter_mut().enumerate() {
+            *p = parse_float(fields[2 + c], 2 + c).map_err(|f| err(lineno, f))?;
+        }
+        let radius = if fields[5] == "NA" {
+            None
+        } else {
+            let r = parse_float(fields[5], 5).map_err(|f| err(lineno, f))?;
+            if r < 0.0 {
+                return Err(err(lineno, Fault::NegativeRadius(r)));
+            }
+            Some(r)
+        };
+        let parent = parse_int(fields[6], 6, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
+        if parent < -1 {
+            return Err(err(
+                lineno,
+                Fault::OutOfRange {
+                    name: "parent",
+                    text: fields[6].to_string(),
+                    rule: "a parent is -1 (a root) or an id",
+                },
+            ));
+        }
+        if parent == id {
+            return Err(err(lineno, Fault::OwnParent(id)));
+        }
+        out.points.push(SwcPoint {
+            id,
+            kind,
+            pos,
+            radius,
+            parent,
+            line: lineno,
+        });
+    }
+    if out.points.is_empty() {
+        return Err(SwcError {
+            file: source.to_string(),
+            line: None,
+            fault: Fault::Empty,
+        });
+    }
+    if let Some((first, count)) = extra_columns {
+        out.warnings.push(Warning::new(
+            "extra-columns",
+            Some(first),
+            format!("{count} line(s) have more than 7 columns; the extra columns are ignored"),
+        ));
+    }
+    if let Some(first) = float_ids {
+        out.warnings.push(Warning::new(
+            "decimal-integers",
+            Some(first),
+            "ids, types or parents written with a decimal point (such as 3.0) were read as whole numbers",
+        ));
+    }
+    let na = out.points.iter().filter(|p| p.radius.is_none()).count();
+    if na > 0 {
+        let first = out.points.iter().find(|p| p.radius.is_none()).map(|p| p.line);
+        out.warnings.push(Warning::new(
+            "radius-unknown",
+            first,
+            format!("{na} point(s) have radius NA (unknown); cable work needs a default diameter"),
+        ));
+    }
+    Ok(out)
+}
+
+fn parse_float(text: &str, column: usize) -> Result<f64, Fault> {
+    let v: f64 = text.parse().map_err(|_| Fault::NotANumber {
+        column: column + 1,
+        name: NAMES[column],
+        text: text.to_string(),
+    })?;
+    if !v.is_finite() {
+        return Err(Fault::NotFinite {
+            column: column + 1,
+            name: NAMES[column],
+            text: text.to_string(),
+        });
+    }
+    Ok(v)
+}
+
+/// Whole numbers; `3.0` is accepted (noted in `float_seen`), `3.5` is not.
+fn parse_int(
+    text: &str,
+    column: usize,
+    float_seen: &mut Option<usize>,
+    line: usize,
+) -> Result<i64, Fault> {
+    if let Ok(v) = text.parse::<i64>() {
+        return Ok(v);
+    }
+    let v = parse_float(text, column)?;
+    if v.fract() != 0.0 {
+        return Err(Fault::NotAnInteger {
+            column: column + 1,
+            name: NAMES[column],
+            text: text.to_string(),
+        });
+    }
+    if v.abs() >= 9.2e18 {
+        return Err(Fault::OutOfRange {
+            name: NAMES[column],
+            text: text.to_string(),
+            rule: "whole numbers must fit in 64 bits",
+        });
+    }
+    float_seen.get_or_insert(line);
+    Ok(v as i64)
+}
+
+/// Writes points as SWC text. Floats use the shortest form that reads back to the same value,
+/// so read → write → read gives the same tree.
+pub fn write_string(points: &[SwcPoint], header: &[String]) -> String {
+    let mut s = String::with_capacity(points.len() * 48 + 64);
+    for h in header {
+        let _ = writeln!(s, "#{h}");
+    }
+    for p in points {
+        let r = match p.radius {
+            Some(r) => format!("{r}"),
+            None => "NA".to_string(),
+        };
+        let _ = writeln!(
+            s,
+            "{} {} {} {} {} {} {}",
+            p.id, p.kind, p.pos[0], p.pos[1], p.pos[2], r, p.parent
+        );
+    }
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn line_of(text: &str) -> Option<usize> {
+        parse_str(text, "t.swc").unwrap_err().line
+    }
+
+    #[test]
+    fn accepts_comments_tabs_crlf_and_scientific_notation() {
+        let text = "# header\r\n\r\n1\t1 0 0 0 5 -1\r\n  2 3 1e1 0. .5 1.5e-1   1  \r\n";
+        let f = parse_str(text, "t.swc").unwrap();
+        assert_eq!(f.points.len(), 2);
+        assert_eq!(f.points[1].pos, [10.0, 0.0, 0.5]);
+        assert_eq!(f.points[1].radius, Some(0.15));
+        assert_eq!(f.points[1].line, 4);
+        assert_eq!(f.header, vec![" header".to_string()]);
+    }
+
+    #[test]
+    fn rejections_name_the_line() {
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2 3 0 0\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2 3 x 0 0 1 1\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n\n2 3 0 0 0 -1 1\n"), Some(3));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2 3 0 0 nan 1 1\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2.5 3 0 0 0 1 1\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2 3 0 0 0 1 2\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 -1\n2 3 0 0 0 1 -7\n"), Some(2));
+        assert_eq!(line_of("1 1 0 0 0 1 inf\n"), Some(1));
+        assert!(matches!(
+            parse_str("# only a comment\n", "t.swc").unwrap_err().fault,
+            Fault::Empty
+        ));
+    }
+
+    #[test]
+    fn na_radius_is_kept_as_unknown_with_a_warning() {
+        let f = parse_str("1 1 0 0 0 NA -1\n", "t.swc").unwrap();
+        assert_eq!(f.points[0].radius, None);
+        assert!(f.warnings.iter().any(|w| w.code == "radius-unknown"));
+    }
+
+    #[test]
+    fn bad_utf8_names_the_line() {
+        let bytes = b"1 1 0 0 0 1 -1\n2 3 0 0 0 1 1 \xff\n";
+        let e = parse_bytes(bytes, "t.swc").unwrap_err();
+        assert_eq!(e.line, Some(2));
+        assert!(matches!(e.fault, Fault::NotUtf8(_)));
+        assert!(e.to_string().starts_with("t.swc:2: "));
+    }
+}

@@ -1,0 +1,1 @@
+//! Invented cells, made by deterministic generators (see sample_cells/README.md).
