@@ -1,9 +1,15 @@
 //! The desktop app (behind the default `gui` feature).
 
+use std::path::PathBuf;
+
 /// What the window opens on.
 pub enum Start {
     /// The embedded demo cell.
     Demo,
+    /// A file.
+    File(PathBuf),
+    /// The branching lab.
+    Lab,
 }
 
 /// Opens the window.

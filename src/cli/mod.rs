@@ -3,7 +3,11 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod batch;
+mod cable;
 mod inspect;
+mod reduce;
+mod view;
 
 /// pollard: open a reconstructed neuron (SWC), check it, compute its passive electrical
 /// structure, and reduce it to a strict binary compartment tree.
@@ -20,13 +24,28 @@ pub struct Cli {
 pub enum Command {
     /// Check a reconstruction and print its shape: points, branches, tips, lengths, areas.
     Inspect(inspect::Args),
+    /// Passive electrical maps: input resistance, attenuation to and from the soma, at every point.
+    Cable(cable::Args),
+    /// Collapse the cell into a strict binary compartment tree under a compartment budget.
+    Reduce(reduce::Args),
+    /// Reduce every SWC file below a folder, in parallel, with one summary table.
+    Batch(batch::Args),
+    /// Open a file in the desktop app.
+    View(view::Args),
+    /// Open the desktop app on the branching lab (parametric trees for teaching).
+    Lab,
 }
 
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result = match cli.command {
         Some(Command::Inspect(a)) => inspect::run(a),
-        None => open_app(),
+        Some(Command::Cable(a)) => cable::run(a),
+        Some(Command::Reduce(a)) => reduce::run(a),
+        Some(Command::Batch(a)) => batch::run(a),
+        Some(Command::View(a)) => view::run(a),
+        Some(Command::Lab) => view::run_lab(),
+        None => view::run_demo(),
     };
     match result {
         Ok(code) => code,
@@ -37,13 +56,3 @@ pub fn main() -> ExitCode {
     }
 }
 
-#[cfg(feature = "gui")]
-fn open_app() -> anyhow::Result<ExitCode> {
-    pollard::app::run(pollard::app::Start::Demo)?;
-    Ok(ExitCode::SUCCESS)
-}
-
-#[cfg(not(feature = "gui"))]
-fn open_app() -> anyhow::Result<ExitCode> {
-    anyhow::bail!("this build has no desktop app (built without the `gui` feature); try `pollard --help`")
-}

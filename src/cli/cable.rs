@@ -1,0 +1,14 @@
+//! `pollard cable` (not yet written).
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(clap::Args, Debug)]
+pub struct Args {
+    /// Input path.
+    pub input: PathBuf,
+}
+
+pub fn run(_a: Args) -> anyhow::Result<ExitCode> {
+    anyhow::bail!("`pollard cable` is not written yet")
+}
