@@ -8,6 +8,7 @@ pub mod cable;
 pub mod export;
 pub mod morphology;
 pub mod swc;
+pub mod samples;
 pub mod synth;
 
 

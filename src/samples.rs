@@ -1,0 +1,1 @@
+//! The invented sample cells shipped in sample_cells/ and embedded in the binary.
