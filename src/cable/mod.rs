@@ -8,7 +8,11 @@
 //!
 //! Units: morphology in µm, Rm in Ω·cm², Ra in Ω·cm, Cm in µF/cm², f in Hz; admittances in S.
 
+pub mod maps;
+
 use crate::morphology::{Flat, NONE};
+
+pub use maps::Maps;
 use num_complex::Complex64;
 
 pub type C64 = Complex64;
