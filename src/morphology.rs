@@ -18,6 +18,9 @@ use petgraph::graph::{DiGraph, NodeIndex};
 use std::collections::HashMap;
 use std::f64::consts::PI;
 
+/// A cell wider than this (µm) is taken as having coordinates in other units (nm, voxels).
+pub const IMPLAUSIBLE_EXTENT_UM: f64 = 20_000.0;
+
 /// Marks "no parent" / "not in the main tree" in index arrays.
 pub const NONE: u32 = u32::MAX;
 
@@ -409,7 +412,12 @@ impl Morphology {
             }
             len
         } else {
-            bfs(&[soma_root as u32], &mut order, &mut new_parent_file, &mut seen)
+            bfs(
+                &[soma_root as u32],
+                &mut order,
+                &mut new_parent_file,
+                &mut seen,
+            )
         };
         trees.push(TreeInfo {
             root: 0,
@@ -662,7 +670,32 @@ impl Morphology {
                 zero_len.1.get_or_insert(self.points[i].line);
             }
         }
-        if zero_r.0 > 0 {
+        let mut lo = [f64::INFINITY; 3];
+        let mut hi = [f64::NEG_INFINITY; 3];
+        for p in &self.points {
+            for c in 0..3 {
+                lo[c] = lo[c].min(p.pos[c]);
+                hi[c] = hi[c].max(p.pos[c]);
+            }
+        }
+        let extent = (0..3).map(|c| hi[c] - lo[c]).fold(0.0, f64::max);
+        if extent > IMPLAUSIBLE_EXTENT_UM {
+            self.warnings.push(Warning::new(
+                "implausible-size",
+                None,
+                format!(
+                    "the cell is {:.1} mm across: coordinates may be in nanometres or voxels rather than µm",
+                    extent / 1000.0
+                ),
+            ));
+        }
+        if zero_r.0 > 0 && zero_r.0 + self.soma.len() >= self.len() {
+            self.warnings.push(Warning::new(
+                "all-radii-zero",
+                zero_r.1,
+                "every neurite radius is 0: the file holds the skeleton only, so cable work needs a default diameter",
+            ));
+        } else if zero_r.0 > 0 {
             self.warnings.push(Warning::new(
                 "zero-radius",
                 zero_r.1,
@@ -736,9 +769,7 @@ impl Morphology {
         }
         if self.soma.is_empty() && n > 0 {
             // without a soma the root's children are the stems
-            stems = (1..self.main_len)
-                .filter(|&i| self.parent[i] == 0)
-                .count();
+            stems = (1..self.main_len).filter(|&i| self.parent[i] == 0).count();
         }
         let (soma_area, soma_vol) = self.soma_area_volume();
         Metrics {
@@ -869,7 +900,9 @@ impl Flat {
             f.point_node[i] = node;
             let p = m.parent[i] as usize;
             f.parent.push(f.point_node[p]);
-            let seg = m.segment(i).expect("non-soma main-tree point has a segment");
+            let seg = m
+                .segment(i)
+                .expect("non-soma main-tree point has a segment");
             f.length_um.push(seg.length);
             f.r_prox_um.push(seg.r_prox);
             f.r_dist_um.push(seg.r_dist);
