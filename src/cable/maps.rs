@@ -10,7 +10,7 @@
 //! - U_k = g_k·P_k/(g_k + P_k): the rest of the tree seen from k through its parent link.
 //! - Z_kk = 1/(D_k + U_k).
 
-use super::{C64, Network, children_csr};
+use super::{C64, Network, Scalar};
 use crate::morphology::NONE;
 
 /// The sweeps' results for one network.
@@ -26,55 +26,128 @@ pub struct Maps {
     pub down: Vec<C64>,
 }
 
+/// Everything the two sweeps give, in any [`Scalar`] (`f64` at DC, `C64` at f > 0).
+#[derive(Debug, Clone, Default)]
+pub struct Sweep<T> {
+    /// Subtree admittance D_k (S).
+    pub d: Vec<T>,
+    /// P_k: admittance at k's parent of everything except k's branch (S); P_0 = 0.
+    pub p: Vec<T>,
+    /// U_k = g_k·P_k/(g_k + P_k) (S); U_0 = 0.
+    pub u: Vec<T>,
+    /// g_k/(g_k + D_k): voltage ratio V_k/V_parent for current entering from the parent side.
+    pub down: Vec<T>,
+    /// Input impedance Z_kk = 1/(D_k + U_k) (Ω).
+    pub z_in: Vec<T>,
+    /// Transfer impedance to the soma Z_k0 (Ω).
+    pub z_soma: Vec<T>,
+}
+
+/// The two sweeps over a parents-first tree (`parent[k] < k`, node 0 the root) with series
+/// admittances `g` and shunts `shunt` (tree elimination: Hines 1984; Koch & Poggio 1985).
+///
+/// Upward (k = n−1 … 1): D_k = S_k + Σ_c g_c·D_c/(g_c + D_c). When node k is reached, its
+/// parent's running sum holds S_p plus the branches of k's later siblings, which is kept as the
+/// first part of P_k. Downward (k = 1 … n−1): the earlier siblings' branches and U_p are added,
+/// so P_k = S_p + U_p + Σ_{c≠k} t_c is summed from its terms (no subtraction, nothing cancels)
+/// without building child lists.
+pub fn sweep<T: Scalar>(parent: &[u32], g: &[T], shunt: &[T]) -> Sweep<T> {
+    let n = parent.len();
+    assert!(g.len() == n && shunt.len() == n, "array lengths differ");
+    let zero = T::real(0.0);
+    if n == 0 {
+        return Sweep {
+            d: vec![],
+            p: vec![],
+            u: vec![],
+            down: vec![],
+            z_in: vec![],
+            z_soma: vec![],
+        };
+    }
+    let mut d = shunt.to_vec();
+    let mut down = vec![zero; n];
+    let mut p = vec![zero; n];
+    for k in (1..n).rev() {
+        let pk = parent[k] as usize;
+        let w = g[k] / (g[k] + d[k]);
+        down[k] = w;
+        p[k] = d[pk];
+        let t = w * d[k];
+        d[pk] += t;
+    }
+    // `pre[q]`: running sum of the branches of q's children met so far
+    let mut pre = vec![zero; n];
+    let mut u = vec![zero; n];
+    let mut z_in = vec![zero; n];
+    let mut z_soma = vec![zero; n];
+    let one = T::real(1.0);
+    z_in[0] = one / d[0];
+    z_soma[0] = z_in[0];
+    for k in 1..n {
+        let pk = parent[k] as usize;
+        let pp = p[k] + pre[pk] + u[pk];
+        p[k] = pp;
+        let t = down[k] * d[k];
+        pre[pk] += t;
+        let uk = g[k] * pp / (g[k] + pp);
+        u[k] = uk;
+        z_in[k] = one / (d[k] + uk);
+        z_soma[k] = z_soma[pk] * down[k];
+    }
+    Sweep {
+        d,
+        p,
+        u,
+        down,
+        z_in,
+        z_soma,
+    }
+}
+
+/// Voltage ratio V_k / V_j at every node k for a current injected at node `j` (one more pass):
+/// towards the root V_p = V_k·g_k/(g_k + P_k), into side branches V_c = V_p·g_c/(g_c + D_c)
+/// (Koch & Poggio 1985). `None` when `j` is not a node.
+pub fn site_ratio_t<T: Scalar>(
+    parent: &[u32],
+    g: &[T],
+    p: &[T],
+    down: &[T],
+    j: usize,
+) -> Option<Vec<T>> {
+    let n = parent.len();
+    if j >= n {
+        return None;
+    }
+    let zero = T::real(0.0);
+    let mut v = vec![zero; n];
+    let mut on_path = vec![false; n];
+    let mut k = j;
+    v[k] = T::real(1.0);
+    on_path[k] = true;
+    while parent[k] != NONE {
+        let q = parent[k] as usize;
+        v[q] = v[k] * g[k] / (g[k] + p[k]);
+        on_path[q] = true;
+        k = q;
+    }
+    for k in 1..n {
+        if !on_path[k] {
+            v[k] = v[parent[k] as usize] * down[k];
+        }
+    }
+    Some(v)
+}
+
 impl Maps {
-    /// Both sweeps: children before parents for D, parents before children for P and U.
+    /// Both sweeps (see [`sweep`]).
     pub fn new(net: &Network) -> Maps {
-        let n = net.len();
-        let g = &net.g;
-        let mut d = net.shunt.clone();
-        // contribution of k's branch to its parent: g_k·D_k/(g_k + D_k)
-        let mut t = vec![C64::new(0.0, 0.0); n];
-        let mut down = vec![C64::new(0.0, 0.0); n];
-        for k in (1..n).rev() {
-            let s = g[k] + d[k];
-            down[k] = g[k] / s;
-            t[k] = down[k] * d[k];
-            let p = net.parent[k] as usize;
-            let add = t[k];
-            d[p] += add;
-        }
-        let (start, kids) = children_csr(&net.parent);
-        let mut p_adm = vec![C64::new(0.0, 0.0); n];
-        let mut u = vec![C64::new(0.0, 0.0); n];
-        let mut scratch: Vec<C64> = Vec::new();
-        for q in 0..n {
-            let ks = &kids[start[q] as usize..start[q + 1] as usize];
-            if ks.is_empty() {
-                continue;
-            }
-            // node q is final (U_q known) before its children: parents-first order
-            let base = net.shunt[q] + u[q];
-            // prefix sums of the children's contributions, then a suffix sweep
-            scratch.clear();
-            let mut acc = C64::new(0.0, 0.0);
-            for &c in ks {
-                scratch.push(acc);
-                acc += t[c as usize];
-            }
-            let mut suffix = C64::new(0.0, 0.0);
-            for (i, &c) in ks.iter().enumerate().rev() {
-                let c = c as usize;
-                let pk = base + scratch[i] + suffix;
-                p_adm[c] = pk;
-                u[c] = g[c] * pk / (g[c] + pk);
-                suffix += t[c];
-            }
-        }
+        let s = sweep(&net.parent, &net.g, &net.shunt);
         Maps {
-            d,
-            p: p_adm,
-            u,
-            down,
+            d: s.d,
+            p: s.p,
+            u: s.u,
+            down: s.down,
         }
     }
 
@@ -114,25 +187,10 @@ impl Maps {
 
     /// Voltage ratio V_k / V_j at every node k for a current injected at node `j`: towards the
     /// root V_p = V_k·g_k/(g_k + P_k), into side branches V_c = V_p·g_c/(g_c + D_c).
+    /// All NaN if `j` is not a node (use [`site_ratio_t`] for an `Option`).
     pub fn site_ratio(&self, net: &Network, j: usize) -> Vec<C64> {
-        let n = self.len();
-        let mut v = vec![C64::new(f64::NAN, 0.0); n];
-        let mut on_path = vec![false; n];
-        let mut k = j;
-        v[k] = C64::new(1.0, 0.0);
-        on_path[k] = true;
-        while net.parent[k] != NONE {
-            let p = net.parent[k] as usize;
-            v[p] = v[k] * net.g[k] / (net.g[k] + self.p[k]);
-            on_path[p] = true;
-            k = p;
-        }
-        for k in 1..n {
-            if !on_path[k] {
-                v[k] = v[net.parent[k] as usize] * self.down[k];
-            }
-        }
-        v
+        site_ratio_t(&net.parent, &net.g, &self.p, &self.down, j)
+            .unwrap_or_else(|| vec![C64::new(f64::NAN, f64::NAN); self.len()])
     }
 }
 

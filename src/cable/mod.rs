@@ -8,14 +8,99 @@
 //!
 //! Units: morphology in µm, Rm in Ω·cm², Ra in Ω·cm, Cm in µF/cm², f in Hz; admittances in S.
 
+pub mod cell;
 pub mod maps;
+pub mod prep;
 
 use crate::morphology::{Flat, NONE};
 
+pub use cell::{CellMaps, PointMaps, Summary, TipPath, db, neper};
 pub use maps::Maps;
 use num_complex::Complex64;
+pub use prep::{PrepOptions, prepare};
+use std::ops::{Add, AddAssign, Div, Mul, Sub};
 
 pub type C64 = Complex64;
+
+/// The number types the network and the sweeps are written for: `f64` at DC (fast path) and
+/// `C64` at f > 0. Only what the formulas need.
+pub trait Scalar:
+    Copy
+    + Send
+    + Sync
+    + Add<Output = Self>
+    + Sub<Output = Self>
+    + Mul<Output = Self>
+    + Div<Output = Self>
+    + Mul<f64, Output = Self>
+    + AddAssign
+    + std::fmt::Debug
+    + 'static
+{
+    fn real(x: f64) -> Self;
+    fn sqrt(self) -> Self;
+    fn exp(self) -> Self;
+    /// Modulus |x|.
+    fn abs(self) -> f64;
+    fn to_c64(self) -> C64;
+    /// From the membrane admittance per area (the imaginary part is dropped for `f64`, which is
+    /// only used at DC where it is 0).
+    fn from_c64(c: C64) -> Self;
+}
+
+impl Scalar for f64 {
+    #[inline]
+    fn real(x: f64) -> Self {
+        x
+    }
+    #[inline]
+    fn sqrt(self) -> Self {
+        f64::sqrt(self)
+    }
+    #[inline]
+    fn exp(self) -> Self {
+        f64::exp(self)
+    }
+    #[inline]
+    fn abs(self) -> f64 {
+        f64::abs(self)
+    }
+    #[inline]
+    fn to_c64(self) -> C64 {
+        C64::new(self, 0.0)
+    }
+    #[inline]
+    fn from_c64(c: C64) -> Self {
+        c.re
+    }
+}
+
+impl Scalar for C64 {
+    #[inline]
+    fn real(x: f64) -> Self {
+        C64::new(x, 0.0)
+    }
+    #[inline]
+    fn sqrt(self) -> Self {
+        Complex64::sqrt(self)
+    }
+    #[inline]
+    fn exp(self) -> Self {
+        Complex64::exp(self)
+    }
+    #[inline]
+    fn abs(self) -> f64 {
+        self.norm()
+    }
+    #[inline]
+    fn to_c64(self) -> C64 {
+        self
+    }
+    #[inline]
+    fn from_c64(c: C64) -> Self {
+        c
+    }
+}
 
 /// Passive membrane and axial parameters. Defaults Rm 20 000 Ω·cm², Ra 150 Ω·cm, Cm 1 µF/cm²
 /// are common practice (no single source).
@@ -58,6 +143,8 @@ pub enum CableError {
         "the cell is {extent_mm:.1} mm across, which suggests coordinates in nanometres or voxels; pass --scale to convert them to µm"
     )]
     Implausible { extent_mm: f64 },
+    #[error("the file has no points")]
+    Empty,
 }
 
 impl Params {
@@ -127,16 +214,23 @@ pub struct Network {
 /// Written with e^(−L) so that long pieces at high frequency do not overflow, and with a series
 /// for short pieces so that nothing cancels.
 pub fn uniform_pi(y0: C64, l: C64) -> (C64, C64) {
-    if l.norm() < 1e-2 {
+    uniform_pi_t(y0, l)
+}
+
+/// [`uniform_pi`] for any [`Scalar`] (real at DC).
+#[inline]
+pub fn uniform_pi_t<T: Scalar>(y0: T, l: T) -> (T, T) {
+    if l.abs() < 1e-2 {
         let l2 = l * l;
-        let sinh = l * (1.0 + l2 / 6.0 + l2 * l2 / 120.0);
-        let tanh_half = l * (0.5 - l2 / 24.0 + l2 * l2 / 240.0);
+        let sinh = l * (T::real(1.0) + l2 * (1.0 / 6.0) + l2 * l2 * (1.0 / 120.0));
+        let tanh_half = l * (T::real(0.5) - l2 * (1.0 / 24.0) + l2 * l2 * (1.0 / 240.0));
         (y0 / sinh, y0 * tanh_half)
     } else {
-        let e = (-l).exp();
+        let e = T::real(0.0) - l;
+        let e = e.exp();
         let e2 = e * e;
-        let series = y0 * 2.0 * e / (1.0 - e2);
-        let shunt = y0 * (1.0 - e) / (1.0 + e);
+        let series = y0 * e * 2.0 / (T::real(1.0) - e2);
+        let shunt = y0 * (T::real(1.0) - e) / (T::real(1.0) + e);
         (series, shunt)
     }
 }
@@ -153,29 +247,43 @@ fn frustum_pieces(a: f64, b: f64) -> usize {
 /// each a uniform cable with r_a = Ra/(π·a·b) and membrane admittance y_m·π(a+b)·slant/h, and
 /// the inner nodes are removed by Kron reduction (exact).
 pub fn segment_pi(params: &Params, ym: C64, h_um: f64, a_um: f64, b_um: f64) -> (C64, C64, C64) {
+    segment_pi_t(params, ym, h_um, a_um, b_um)
+}
+
+/// [`segment_pi`] for any [`Scalar`]: `ym` is the membrane admittance per area (S/cm²).
+#[inline]
+pub fn segment_pi_t<T: Scalar>(
+    params: &Params,
+    ym: T,
+    h_um: f64,
+    a_um: f64,
+    b_um: f64,
+) -> (T, T, T) {
     let h_um = h_um.max(MIN_LENGTH_UM);
     let pieces = frustum_pieces(a_um, b_um);
-    let mut series = C64::new(0.0, 0.0);
-    let mut prox = C64::new(0.0, 0.0);
-    let mut dist = C64::new(0.0, 0.0);
+    let zero = T::real(0.0);
+    let (mut series, mut prox, mut dist) = (zero, zero, zero);
+    let hp = h_um / pieces as f64;
     for i in 0..pieces {
         let t0 = i as f64 / pieces as f64;
         let t1 = (i + 1) as f64 / pieces as f64;
         let ra = a_um + (b_um - a_um) * t0;
         let rb = a_um + (b_um - a_um) * t1;
-        let hp = h_um / pieces as f64;
         let slant = hp.hypot(rb - ra);
         let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM); // Ω/cm
         let y_mem = ym * (std::f64::consts::PI * (ra + rb) * UM * slant / hp); // S/cm
-        let y0 = (y_mem / r_axial).sqrt();
-        let l = (y_mem * r_axial).sqrt() * (hp * UM);
-        let (s, p) = uniform_pi(y0, l);
+        // Y0 = √(y/r_a), L = √(y·r_a)·h (Rall; Koch 1999 ch. 2)
+        let root = y_mem.sqrt();
+        let y0 = root * (1.0 / r_axial.sqrt());
+        let l = root * (r_axial.sqrt() * hp * UM);
+        let (s, p) = uniform_pi_t(y0, l);
         if i == 0 {
             series = s;
             prox = p;
             dist = p;
         } else {
-            // join: inner node x has the running distal shunt plus this piece's proximal shunt
+            // join (Kron reduction of the inner node): inner node x has the running distal
+            // shunt plus this piece's proximal shunt
             let gx = dist + p;
             let total = series + s + gx;
             prox += series * gx / total;
@@ -187,37 +295,83 @@ pub fn segment_pi(params: &Params, ym: C64, h_um: f64, a_um: f64, b_um: f64) -> 
     (series, prox, dist)
 }
 
+/// DC electrotonic length Σ l/λ of one segment (frustum from radius a to b over h, µm), with the
+/// same pieces as [`segment_pi`]: each piece contributes √(r_a·g_m)·h (Rall 1959; Koch 1999 ch. 2).
+pub fn segment_electrotonic_length(params: &Params, h_um: f64, a_um: f64, b_um: f64) -> f64 {
+    let pieces = frustum_pieces(a_um, b_um);
+    let hp = h_um / pieces as f64;
+    let mut x = 0.0;
+    for i in 0..pieces {
+        let ra = a_um + (b_um - a_um) * (i as f64 / pieces as f64);
+        let rb = a_um + (b_um - a_um) * ((i + 1) as f64 / pieces as f64);
+        if hp <= 0.0 {
+            continue;
+        }
+        let slant = hp.hypot(rb - ra);
+        let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM);
+        let g_mem = std::f64::consts::PI * (ra + rb) * UM * slant / hp / params.rm_ohm_cm2;
+        x += (r_axial * g_mem).sqrt() * hp * UM;
+    }
+    x
+}
+
+/// Checks the radii of the main tree: every node k > 0 needs finite, positive radii.
+fn check_radii(flat: &Flat) -> Result<(), CableError> {
+    let bad = |r: f64| !(r > 0.0 && r.is_finite());
+    let mut count = 0;
+    let mut first = None;
+    for k in 1..flat.len() {
+        if bad(flat.r_prox_um[k]) || bad(flat.r_dist_um[k]) {
+            count += 1;
+            first.get_or_insert(k);
+        }
+    }
+    match first {
+        Some(k) => Err(CableError::MissingRadii {
+            count,
+            first_line: flat.line[k],
+        }),
+        None => Ok(()),
+    }
+}
+
+/// The series admittances `g` and shunts `shunt` of the main tree in any [`Scalar`] (see
+/// [`Network`]). Checks parameters and radii.
+pub fn network_arrays<T: Scalar>(
+    flat: &Flat,
+    params: &Params,
+    freq_hz: f64,
+) -> Result<(Vec<T>, Vec<T>), CableError> {
+    params.validate(freq_hz)?;
+    check_radii(flat)?;
+    let n = flat.len();
+    let ym = T::from_c64(params.membrane_admittance(freq_hz));
+    let zero = T::real(0.0);
+    let mut g = vec![zero; n];
+    let mut shunt = vec![zero; n];
+    if n == 0 {
+        return Ok((g, shunt));
+    }
+    shunt[0] = ym * (flat.soma_area_um2 * UM * UM);
+    for k in 1..n {
+        let (s, p, d) = segment_pi_t(
+            params,
+            ym,
+            flat.length_um[k],
+            flat.r_prox_um[k],
+            flat.r_dist_um[k],
+        );
+        g[k] = s;
+        shunt[flat.parent[k] as usize] += p;
+        shunt[k] += d;
+    }
+    Ok((g, shunt))
+}
+
 impl Network {
     /// Builds the network of the main tree at frequency `freq_hz` (0 = DC).
     pub fn build(flat: &Flat, params: &Params, freq_hz: f64) -> Result<Network, CableError> {
-        params.validate(freq_hz)?;
-        let n = flat.len();
-        let bad = |r: f64| !(r > 0.0 && r.is_finite());
-        let bad_nodes: Vec<usize> = (1..n)
-            .filter(|&k| bad(flat.r_prox_um[k]) || bad(flat.r_dist_um[k]))
-            .collect();
-        if let Some(&first) = bad_nodes.first() {
-            return Err(CableError::MissingRadii {
-                count: bad_nodes.len(),
-                first_line: flat.line[first],
-            });
-        }
-        let ym = params.membrane_admittance(freq_hz);
-        let mut g = vec![C64::new(0.0, 0.0); n];
-        let mut shunt = vec![C64::new(0.0, 0.0); n];
-        shunt[0] = ym * (flat.soma_area_um2 * UM * UM);
-        for k in 1..n {
-            let (s, p, d) = segment_pi(
-                params,
-                ym,
-                flat.length_um[k],
-                flat.r_prox_um[k],
-                flat.r_dist_um[k],
-            );
-            g[k] = s;
-            shunt[flat.parent[k] as usize] += p;
-            shunt[k] += d;
-        }
+        let (g, shunt) = network_arrays::<C64>(flat, params, freq_hz)?;
         Ok(Network {
             parent: flat.parent.clone(),
             g,

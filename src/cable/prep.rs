@@ -1,0 +1,163 @@
+//! From a [`Morphology`] to the [`Flat`] arrays the cable engine uses, with the fixes a file may
+//! need: a unit scale (files in nm or voxels) and a default diameter for points whose radius is
+//! 0 or unknown. Also refuses cells too large to be in µm.
+
+use super::CableError;
+use crate::morphology::{Flat, Morphology};
+
+/// Largest accepted cell extent (µm) when no scale is given: 20 mm. Longer than any single
+/// neuron's reconstruction we expect in µm (common practice, no source); a larger number almost
+/// always means nm or voxel coordinates.
+pub const MAX_EXTENT_UM: f64 = 20_000.0;
+
+/// How to turn a file into cable geometry.
+#[derive(Debug, Clone, Copy, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct PrepOptions {
+    /// Diameter (µm, after scaling) for neurite points whose radius is 0 or unknown (`NA`).
+    /// Without it such points are an error ([`CableError::MissingRadii`]).
+    pub default_diameter_um: Option<f64>,
+    /// Multiply coordinates and radii by this factor (e.g. 0.001 for nm → µm). When given, the
+    /// extent check ([`MAX_EXTENT_UM`]) is skipped.
+    pub scale: Option<f64>,
+}
+
+impl PrepOptions {
+    /// Checks the options' values.
+    pub fn validate(&self) -> Result<(), CableError> {
+        if let Some(s) = self.scale
+            && !(s.is_finite() && s > 0.0 && (1e-9..=1e9).contains(&s))
+        {
+            return Err(CableError::ParamRange {
+                name: "scale",
+                value: s,
+                lo: 1e-9,
+                hi: 1e9,
+                unit: "(a factor)",
+            });
+        }
+        if let Some(d) = self.default_diameter_um
+            && !(d.is_finite() && (1e-4..=1e4).contains(&d))
+        {
+            return Err(CableError::ParamRange {
+                name: "default diameter",
+                value: d,
+                lo: 1e-4,
+                hi: 1e4,
+                unit: "µm",
+            });
+        }
+        Ok(())
+    }
+}
+
+/// Largest side of the bounding box of the main tree's nodes (µm).
+pub fn extent_um(flat: &Flat) -> f64 {
+    let mut lo = [f64::INFINITY; 3];
+    let mut hi = [f64::NEG_INFINITY; 3];
+    for p in &flat.pos {
+        for c in 0..3 {
+            lo[c] = lo[c].min(p[c]);
+            hi[c] = hi[c].max(p[c]);
+        }
+    }
+    (0..3).map(|c| hi[c] - lo[c]).fold(0.0, f64::max)
+}
+
+/// Applies a scale factor to flat arrays: lengths, radii and positions × s, soma area × s².
+pub fn scale_flat(flat: &mut Flat, s: f64) {
+    for x in flat
+        .length_um
+        .iter_mut()
+        .chain(flat.r_prox_um.iter_mut())
+        .chain(flat.r_dist_um.iter_mut())
+    {
+        *x *= s;
+    }
+    for p in &mut flat.pos {
+        for c in p.iter_mut() {
+            *c *= s;
+        }
+    }
+    flat.soma_area_um2 *= s * s;
+}
+
+/// Gives every segment end whose radius is 0, negative or unknown the radius `d/2` (node 0, the
+/// soma, has no segment and is left alone). Returns how many segment ends changed.
+pub fn fill_radii(flat: &mut Flat, diameter_um: f64) -> usize {
+    let r = 0.5 * diameter_um;
+    let mut changed = 0;
+    for k in 1..flat.len() {
+        for x in [&mut flat.r_prox_um[k], &mut flat.r_dist_um[k]] {
+            if !(*x > 0.0 && x.is_finite()) {
+                *x = r;
+                changed += 1;
+            }
+        }
+    }
+    changed
+}
+
+/// Flat arrays of the main tree ready for the cable engine: scaled, radii filled, extent
+/// checked ([`CableError::Implausible`] above [`MAX_EXTENT_UM`] unless a scale is given).
+/// Missing radii without a default diameter are reported later, by the network builder.
+pub fn prepare(m: &Morphology, opts: &PrepOptions) -> Result<Flat, CableError> {
+    opts.validate()?;
+    if m.main_len == 0 {
+        return Err(CableError::Empty);
+    }
+    let mut flat = m.flatten();
+    if let Some(s) = opts.scale {
+        scale_flat(&mut flat, s);
+    } else {
+        let e = extent_um(&flat);
+        if e > MAX_EXTENT_UM {
+            return Err(CableError::Implausible {
+                extent_mm: e / 1000.0,
+            });
+        }
+    }
+    if let Some(d) = opts.default_diameter_um {
+        fill_radii(&mut flat, d);
+    }
+    Ok(flat)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn scale_and_default_diameter() {
+        // lengths in nm: a 100 µm stem written as 100 000 nm with radius NA
+        let text = "1 1 0 0 0 0 -1\n2 3 100000 0 0 NA 1\n";
+        let m = Morphology::parse(text, "t.swc").unwrap();
+        let e = prepare(&m, &PrepOptions::default()).unwrap_err();
+        assert!(matches!(e, CableError::Implausible { .. }), "{e}");
+        let opts = PrepOptions {
+            scale: Some(1e-3),
+            default_diameter_um: None,
+        };
+        let f = prepare(&m, &opts).unwrap();
+        assert!((f.length_um[1] - 100.0).abs() < 1e-9);
+        let e = crate::cable::Network::build(&f, &Default::default(), 0.0).unwrap_err();
+        assert!(
+            matches!(e, CableError::MissingRadii { count: 1, .. }),
+            "{e}"
+        );
+        assert!(e.to_string().contains("--default-diameter"));
+        let opts = PrepOptions {
+            scale: Some(1e-3),
+            default_diameter_um: Some(2.0),
+        };
+        let f = prepare(&m, &opts).unwrap();
+        assert_eq!((f.r_prox_um[1], f.r_dist_um[1]), (1.0, 1.0));
+        let bad = PrepOptions {
+            scale: Some(-1.0),
+            default_diameter_um: None,
+        };
+        assert!(matches!(
+            prepare(&m, &bad),
+            Err(CableError::ParamRange { name: "scale", .. })
+        ));
+    }
+}
