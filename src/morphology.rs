@@ -552,6 +552,9 @@ impl Morphology {
         if self.soma.is_empty() {
             return (0.0, 0.0);
         }
+        if let Some(r) = self.three_point_soma_radius() {
+            return (4.0 * PI * r * r, 4.0 / 3.0 * PI * r * r * r);
+        }
         let mut area = 0.0;
         let mut vol = 0.0;
         for &s in &self.soma[1..] {
@@ -575,6 +578,35 @@ impl Morphology {
                 .fold(0.0, f64::max);
             (4.0 * PI * r * r, 4.0 / 3.0 * PI * r * r * r)
         }
+    }
+
+    /// The radius r of a three-point soma: a centre point and two soma points joined to it, all
+    /// of one radius, on opposite sides at a distance of about r (within 5 %). Such a soma stands
+    /// for a sphere of area 4πr² (the standard three-point soma convention).
+    pub fn three_point_soma_radius(&self) -> Option<f64> {
+        if self.soma.len() != 3 {
+            return None;
+        }
+        let c = self.soma[0] as usize;
+        let (a, b) = (self.soma[1] as usize, self.soma[2] as usize);
+        if self.parent[a] as usize != c || self.parent[b] as usize != c {
+            return None;
+        }
+        let r = self.points[c].radius?;
+        let same = |x: usize| {
+            self.points[x]
+                .radius
+                .is_some_and(|rx| (rx - r).abs() <= 1e-6 * r)
+        };
+        let pc = self.points[c].pos;
+        let (da, db) = (
+            dist(&self.points[a].pos, &pc),
+            dist(&self.points[b].pos, &pc),
+        );
+        let mid = [0, 1, 2].map(|k| (self.points[a].pos[k] + self.points[b].pos[k]) / 2.0);
+        let near = |d: f64| (d - r).abs() <= 0.05 * r;
+        (r > 0.0 && same(a) && same(b) && near(da) && near(db) && dist(&mid, &pc) <= 0.05 * r)
+            .then_some(r)
     }
 
     /// Soma centre: mean position of the soma points (the root when there is no soma).
