@@ -1,14 +1,346 @@
-//! `pollard cable` (not yet written).
+//! `pollard cable`: passive maps at every point of a cell (input resistance, attenuation to and
+//! from the soma, optionally the voltage map from one site) and whole-cell numbers.
 
+use anyhow::Context;
+use pollard::Morphology;
+use pollard::cable::{CellMaps, Params, PrepOptions, Summary, prepare};
+use serde::ser::{SerializeMap, SerializeSeq};
+use serde::{Serialize, Serializer};
+use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
-    /// Input path.
-    pub input: PathBuf,
+    /// The SWC file to read.
+    pub cell: PathBuf,
+    /// Specific membrane resistance Rm (Ω·cm²).
+    #[arg(
+        long = "rm",
+        allow_negative_numbers = true,
+        default_value_t = 20_000.0,
+        value_name = "OHM_CM2"
+    )]
+    pub rm: f64,
+    /// Axial resistivity Ra (Ω·cm).
+    #[arg(
+        long = "ra",
+        allow_negative_numbers = true,
+        default_value_t = 150.0,
+        value_name = "OHM_CM"
+    )]
+    pub ra: f64,
+    /// Specific membrane capacitance Cm (µF/cm²).
+    #[arg(
+        long = "cm",
+        allow_negative_numbers = true,
+        default_value_t = 1.0,
+        value_name = "UF_CM2"
+    )]
+    pub cm: f64,
+    /// Frequency (Hz); 0 = DC. At f > 0 resistances are impedance magnitudes.
+    #[arg(
+        long = "freq",
+        allow_negative_numbers = true,
+        default_value_t = 0.0,
+        value_name = "HZ"
+    )]
+    pub freq: f64,
+    /// Also map V_k/V_site for a current injected at the point with this SWC id.
+    #[arg(long, value_name = "ID")]
+    pub site: Option<i64>,
+    /// Diameter (µm) for points whose radius is 0 or unknown.
+    #[arg(
+        long = "default-diameter",
+        allow_negative_numbers = true,
+        value_name = "UM"
+    )]
+    pub default_diameter: Option<f64>,
+    /// Multiply coordinates and radii by this factor (files in nm or voxels; 0.001 for nm).
+    #[arg(long, allow_negative_numbers = true, value_name = "FACTOR")]
+    pub scale: Option<f64>,
+    /// Print JSON (summary and every point) instead of a readable summary.
+    #[arg(long)]
+    pub json: bool,
+    /// Write the output to this file instead of the terminal.
+    #[arg(long, short = 'o', value_name = "FILE")]
+    pub output: Option<PathBuf>,
 }
 
-pub fn run(_a: Args) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`pollard cable` is not written yet")
+/// Every SWC point's maps, streamed into the JSON without building a tree of values.
+struct Points<'a> {
+    m: &'a Morphology,
+    maps: &'a CellMaps,
+    site: Option<&'a [f64]>,
+}
+
+struct OnePoint<'a> {
+    id: i64,
+    i: usize,
+    maps: &'a CellMaps,
+    site: Option<&'a [f64]>,
+}
+
+impl Serialize for OnePoint<'_> {
+    fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        let mut m = s.serialize_map(Some(if self.site.is_some() { 5 } else { 4 }))?;
+        m.serialize_entry("id", &self.id)?;
+        // points outside the main tree: null (serde_json writes NaN as null)
+        let node = self.maps.node_of_point(self.i);
+        let val = |f: &dyn Fn(usize) -> f64| node.map(f).unwrap_or(f64::NAN);
+        m.serialize_entry(
+            "input_resistance_mohm",
+            &val(&|k| self.maps.input_resistance_mohm(k)),
+        )?;
+        m.serialize_entry(
+            "attenuation_to_soma",
+            &val(&|k| self.maps.attenuation_to_soma(k)),
+        )?;
+        m.serialize_entry(
+            "attenuation_from_soma",
+            &val(&|k| self.maps.attenuation_from_soma(k)),
+        )?;
+        if let Some(v) = self.site {
+            m.serialize_entry("site_ratio", &val(&|k| v[k]))?;
+        }
+        m.end()
+    }
+}
+
+impl Serialize for Points<'_> {
+    fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        let mut seq = s.serialize_seq(Some(self.m.len()))?;
+        for (i, p) in self.m.points.iter().enumerate() {
+            seq.serialize_element(&OnePoint {
+                id: p.id,
+                i,
+                maps: self.maps,
+                site: self.site,
+            })?;
+        }
+        seq.end()
+    }
+}
+
+#[derive(Serialize)]
+struct Tip {
+    id: i64,
+    electrotonic_length: f64,
+    path_length_um: f64,
+}
+
+#[derive(Serialize)]
+struct Output<'a> {
+    file: String,
+    freq_hz: f64,
+    rm_ohm_cm2: f64,
+    ra_ohm_cm: f64,
+    cm_uf_cm2: f64,
+    soma_input_resistance_mohm: f64,
+    soma_input_phase_deg: f64,
+    tau_ms: f64,
+    electrotonic_extent: f64,
+    mean_tip_electrotonic_length: f64,
+    max_attenuation_to_soma: f64,
+    max_attenuation_from_soma: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    site: Option<i64>,
+    warnings: &'a [pollard::Warning],
+    tips: Vec<Tip>,
+    points: Points<'a>,
+}
+
+fn tips(m: &Morphology, s: &Summary) -> Vec<Tip> {
+    s.tips
+        .iter()
+        .map(|t| Tip {
+            id: m.points[t.point].id,
+            electrotonic_length: t.electrotonic_length,
+            path_length_um: t.path_length_um,
+        })
+        .collect()
+}
+
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let params = Params {
+        rm_ohm_cm2: a.rm,
+        ra_ohm_cm: a.ra,
+        cm_uf_cm2: a.cm,
+    };
+    params.validate(a.freq)?;
+    let m = Morphology::read(&a.cell)?;
+    let opts = PrepOptions {
+        default_diameter_um: a.default_diameter,
+        scale: a.scale,
+    };
+    let flat = prepare(&m, &opts).with_context(|| a.cell.display().to_string())?;
+    let maps =
+        CellMaps::compute(&flat, &params, a.freq).with_context(|| a.cell.display().to_string())?;
+    let site_node = match a.site {
+        None => None,
+        Some(id) => {
+            let i = m
+                .points
+                .iter()
+                .position(|p| p.id == id)
+                .with_context(|| format!("--site {id}: no point with that id in the file"))?;
+            let k = maps.node_of_point(i).with_context(|| {
+                format!("--site {id}: that point is not connected to the cell's main tree")
+            })?;
+            Some(k)
+        }
+    };
+    let site = site_node.and_then(|k| maps.site_ratio_abs(k));
+    let summary = maps.summary(&flat);
+
+    let mut out: Vec<u8> = Vec::new();
+    let mut sink: Box<dyn Write> = match a.output {
+        Some(_) => Box::new(&mut out),
+        None => Box::new(std::io::BufWriter::with_capacity(
+            1 << 20,
+            std::io::stdout().lock(),
+        )),
+    };
+    let written = if a.json {
+        let o = Output {
+            file: a.cell.display().to_string(),
+            freq_hz: a.freq,
+            rm_ohm_cm2: a.rm,
+            ra_ohm_cm: a.ra,
+            cm_uf_cm2: a.cm,
+            soma_input_resistance_mohm: summary.soma_input_resistance_mohm,
+            soma_input_phase_deg: summary.soma_input_phase_deg,
+            tau_ms: summary.tau_ms,
+            electrotonic_extent: summary.electrotonic_extent,
+            mean_tip_electrotonic_length: summary.mean_tip_electrotonic_length,
+            max_attenuation_to_soma: summary.max_attenuation_to_soma,
+            max_attenuation_from_soma: summary.max_attenuation_from_soma,
+            site: a.site,
+            warnings: &m.warnings,
+            tips: tips(&m, &summary),
+            points: Points {
+                m: &m,
+                maps: &maps,
+                site: site.as_deref(),
+            },
+        };
+        serde_json::to_writer(&mut sink, &o)
+            .map_err(std::io::Error::from)
+            .and_then(|_| writeln!(sink))
+            .map_err(anyhow::Error::from)
+    } else {
+        write_text(
+            &mut sink,
+            &a,
+            &m,
+            &maps,
+            &summary,
+            site_node,
+            site.as_deref(),
+        )
+    };
+    let written = written.and_then(|_| sink.flush().map_err(anyhow::Error::from));
+    drop(sink);
+    if let Err(e) = written {
+        // a reader that stops early (`| head`) is not an error
+        let broken_pipe = e
+            .downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe);
+        if broken_pipe {
+            return Ok(ExitCode::SUCCESS);
+        }
+        return Err(e);
+    }
+    if let Some(path) = &a.output {
+        pollard::export::write_atomic(path, &out, &[a.cell.as_path()])?;
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn write_text(
+    w: &mut dyn Write,
+    a: &Args,
+    m: &Morphology,
+    maps: &CellMaps,
+    s: &Summary,
+    site_node: Option<usize>,
+    site: Option<&[f64]>,
+) -> anyhow::Result<()> {
+    let what = if a.freq > 0.0 {
+        format!("|Z| at {} Hz", a.freq)
+    } else {
+        "DC".to_string()
+    };
+    writeln!(w, "{}", a.cell.display())?;
+    writeln!(
+        w,
+        "  Rm {} Ω·cm², Ra {} Ω·cm, Cm {} µF/cm² ({what})",
+        a.rm, a.ra, a.cm
+    )?;
+    writeln!(w, "  nodes                      {}", maps.len())?;
+    writeln!(
+        w,
+        "  soma input resistance      {:.2} MΩ{}",
+        s.soma_input_resistance_mohm,
+        if a.freq > 0.0 {
+            format!(" (phase {:.1}°)", s.soma_input_phase_deg)
+        } else {
+            String::new()
+        }
+    )?;
+    writeln!(w, "  membrane time constant τ   {:.2} ms", s.tau_ms)?;
+    writeln!(w, "  tips                       {}", s.tips.len())?;
+    writeln!(
+        w,
+        "  electrotonic extent        {:.3} (largest Σ l/λ, soma to tip)",
+        s.electrotonic_extent
+    )?;
+    writeln!(
+        w,
+        "  mean tip distance          {:.3} (Σ l/λ)",
+        s.mean_tip_electrotonic_length
+    )?;
+    writeln!(
+        w,
+        "  largest attenuation        to soma {:.3}, from soma {:.3}",
+        s.max_attenuation_to_soma, s.max_attenuation_from_soma
+    )?;
+    let mut far: Vec<_> = s.tips.iter().collect();
+    far.sort_by(|x, y| y.electrotonic_length.total_cmp(&x.electrotonic_length));
+    if !far.is_empty() {
+        writeln!(
+            w,
+            "  farthest tips (id: Σ l/λ, path µm, R_in MΩ, attenuation to / from soma):"
+        )?;
+        for t in far.iter().take(10) {
+            let p = maps.node(t.node);
+            writeln!(
+                w,
+                "    {:>9}: {:.3}, {:.1}, {:.1}, {:.3} / {:.3}",
+                m.points[t.point].id,
+                t.electrotonic_length,
+                t.path_length_um,
+                p.input_resistance_mohm,
+                p.attenuation_to_soma,
+                p.attenuation_from_soma
+            )?;
+        }
+    }
+    if let (Some(j), Some(v), Some(id)) = (site_node, site, a.site) {
+        writeln!(
+            w,
+            "  site {id}: input resistance {:.2} MΩ; V_soma/V_site {:.4}; smallest |V_k/V_site| {:.4}",
+            maps.input_resistance_mohm(j),
+            v[0],
+            v.iter().cloned().fold(f64::INFINITY, f64::min)
+        )?;
+    }
+    if !m.warnings.is_empty() {
+        writeln!(w, "  warnings:")?;
+        for x in &m.warnings {
+            writeln!(w, "    - {x}")?;
+        }
+    }
+    writeln!(w, "  (every point: --json)")?;
+    Ok(())
 }
