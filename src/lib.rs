@@ -6,6 +6,7 @@
 
 pub mod cable;
 pub mod export;
+pub mod lab;
 pub mod morphology;
 pub mod swc;
 pub mod samples;
