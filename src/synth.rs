@@ -491,6 +491,8 @@ struct Habit {
     max_order: u32,
     /// Chance that a section below `max_order` ends in a fork (else in a tip).
     p_fork: f64,
+    /// Sections of order below this always fork (so that no dendrite is a bare stub).
+    sure_fork_below: u32,
     /// Chance that a fork has three daughters.
     p_three: f64,
     /// Fractional radius loss per µm along a section.
@@ -551,7 +553,7 @@ fn grow(
             pos = c.pos(at);
             done += step;
         }
-        if order < h.max_order && rng.chance(h.p_fork) {
+        if order < h.max_order && (order < h.sure_fork_below || rng.chance(h.p_fork)) {
             let k = if rng.chance(h.p_three) { 3 } else { 2 };
             let radii = fork_radii(rng, r, k, 0.1, h.min_r);
             let perp = random_perp(rng, d);
@@ -582,7 +584,8 @@ fn basal_habit() -> Habit {
         step: (2.0, 5.0),
         section: (15.0, 60.0),
         max_order: 4,
-        p_fork: 0.75,
+        p_fork: 0.7,
+        sure_fork_below: 1,
         p_three: 0.04,
         taper: 0.004,
         min_r: 0.25,
@@ -619,6 +622,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         section: (20.0, 70.0),
         max_order: 2,
         p_fork: 0.6,
+        sure_fork_below: 0,
         p_three: 0.0,
         taper: 0.004,
         min_r: 0.25,
@@ -652,6 +656,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         section: (25.0, 70.0),
         max_order: 3,
         p_fork: 0.8,
+        sure_fork_below: 0,
         p_three: 0.05,
         taper: 0.004,
         min_r: 0.25,
@@ -693,6 +698,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         section: (40.0, 120.0),
         max_order: 1,
         p_fork: 1.0,
+        sure_fork_below: 0,
         p_three: 0.0,
         taper: 0.001,
         min_r: 0.2,
@@ -732,7 +738,8 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
     let habit = Habit {
         section: (20.0, 70.0),
         max_order: 4,
-        p_fork: 0.7,
+        p_fork: 0.6,
+        sure_fork_below: 2,
         wander: 0.3,
         ..basal_habit()
     };
@@ -759,6 +766,7 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
         section: (60.0, 150.0),
         max_order: 1,
         p_fork: 0.5,
+        sure_fork_below: 0,
         p_three: 0.0,
         taper: 0.001,
         min_r: 0.2,
