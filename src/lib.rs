@@ -8,6 +8,7 @@ pub mod cable;
 pub mod export;
 pub mod lab;
 pub mod morphology;
+pub mod reduce;
 pub mod swc;
 pub mod samples;
 pub mod synth;

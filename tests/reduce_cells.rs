@@ -1,0 +1,300 @@
+//! Acceptance checks of the reduction on cells: strict binary, positive finite conductances,
+//! soma DC input resistance against the cable engine (checked with an independent nalgebra
+//! solve), τ as the slowest time constant (nalgebra eigenvalues), the feed-forward form against
+//! a full solve, and the site and point maps.
+
+use nalgebra::{DMatrix, DVector, SymmetricEigen};
+use pollard::cable::{Maps, Network, Params};
+use pollard::morphology::{Flat, Morphology, NONE};
+use pollard::reduce::{ReduceOptions, ReducedTree, Reducer};
+
+const BUDGETS: [usize; 6] = [1, 3, 7, 15, 31, 63];
+
+/// Conductance matrix of a reduced tree in nS.
+fn g_matrix(t: &ReducedTree) -> DMatrix<f64> {
+    let n = t.len();
+    let mut a = DMatrix::zeros(n, n);
+    for c in &t.compartments {
+        let k = c.id as usize;
+        a[(k, k)] += c.g_leak_ns;
+        if let Some(p) = c.parent {
+            let p = p as usize;
+            a[(k, k)] += c.g_axial_ns;
+            a[(p, p)] += c.g_axial_ns;
+            a[(k, p)] -= c.g_axial_ns;
+            a[(p, k)] -= c.g_axial_ns;
+        }
+    }
+    a
+}
+
+/// Independent sparse solve for large trees: Gaussian elimination of the tree's conductance
+/// matrix leaves-first (children have larger ids), then back-substitution. Returns V for the
+/// currents `i` (nS, pA → mV).
+fn tree_solve(t: &ReducedTree, i: &[f64]) -> Vec<f64> {
+    let n = t.len();
+    let mut diag: Vec<f64> = t
+        .compartments
+        .iter()
+        .map(|c| c.g_leak_ns + c.g_axial_ns)
+        .collect();
+    for c in &t.compartments {
+        if let Some([a, b]) = c.children {
+            diag[c.id as usize] +=
+                t.compartments[a as usize].g_axial_ns + t.compartments[b as usize].g_axial_ns;
+        }
+    }
+    let mut rhs = i.to_vec();
+    for k in (1..n).rev() {
+        let c = &t.compartments[k];
+        let p = c.parent.unwrap() as usize;
+        let f = -c.g_axial_ns / diag[k];
+        diag[p] -= f * -c.g_axial_ns;
+        rhs[p] -= f * rhs[k];
+    }
+    let mut v = vec![0.0; n];
+    v[0] = rhs[0] / diag[0];
+    for k in 1..n {
+        let c = &t.compartments[k];
+        let p = c.parent.unwrap() as usize;
+        v[k] = (rhs[k] + c.g_axial_ns * v[p]) / diag[k];
+    }
+    v
+}
+
+/// Soma voltage for currents `i`, dense LU (small trees) or the tree solve (large).
+fn soma_voltage(t: &ReducedTree, i: &[f64]) -> f64 {
+    if t.len() <= 600 {
+        let a = g_matrix(t);
+        let v = a.lu().solve(&DVector::from_column_slice(i)).unwrap();
+        v[0]
+    } else {
+        tree_solve(t, i)[0]
+    }
+}
+
+/// Smallest eigenvalue of C⁻¹G (1/ms with nS and pF), from the symmetric form C^{-1/2} G C^{-1/2}.
+fn slowest_rate(t: &ReducedTree) -> f64 {
+    let n = t.len();
+    let a = g_matrix(t);
+    let s: Vec<f64> = t
+        .compartments
+        .iter()
+        .map(|c| 1.0 / c.capacitance_pf.sqrt())
+        .collect();
+    let m = DMatrix::from_fn(n, n, |r, c| a[(r, c)] * s[r] * s[c]);
+    let e = SymmetricEigen::new(m);
+    e.eigenvalues.iter().cloned().fold(f64::INFINITY, f64::min)
+}
+
+/// Simple deterministic generator (xorshift) so the checks need no extra crate.
+struct Rng(u64);
+impl Rng {
+    fn next(&mut self) -> f64 {
+        self.0 ^= self.0 << 13;
+        self.0 ^= self.0 >> 7;
+        self.0 ^= self.0 << 17;
+        (self.0 >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
+
+/// Checks every acceptance point for one cell and returns the worst relative errors
+/// (R_in, τ, feed-forward).
+fn check_cell(name: &str, flat: &Flat, opts: &ReduceOptions) -> [f64; 3] {
+    let params = Params::default();
+    let red = Reducer::new(flat, &params, opts).unwrap();
+    let maxc = red.max_compartments();
+    // the cable engine's value, on the kept cell
+    let net = Network::build(red.kept_flat(), &params, 0.0).unwrap();
+    let r_engine = Maps::new(&net).input_impedance(0).re;
+    let tau = params.tau_ms();
+    let mut worst = [0.0f64; 3];
+    let mut budgets: Vec<usize> = BUDGETS.to_vec();
+    budgets.push(maxc);
+    let mut rng = Rng(0x9e3779b97f4a7c15);
+    for &b in &budgets {
+        let t = red.tree(b);
+        let n = t.len();
+        assert_eq!(n, b.min(maxc), "{name}: budget {b}");
+        assert!(n % 2 == 1);
+        // strict binary, parents first, positive finite conductances
+        let mut nkids = vec![0usize; n];
+        for c in &t.compartments {
+            assert!(c.g_leak_ns.is_finite() && c.g_leak_ns > 0.0, "{name} {c:?}");
+            assert!(c.capacitance_pf.is_finite() && c.capacitance_pf > 0.0);
+            match c.parent {
+                None => assert_eq!(c.id, 0),
+                Some(p) => {
+                    assert!(p < c.id);
+                    assert!(
+                        c.g_axial_ns.is_finite() && c.g_axial_ns > 0.0,
+                        "{name} {c:?}"
+                    );
+                    nkids[p as usize] += 1;
+                }
+            }
+        }
+        for c in &t.compartments {
+            let k = nkids[c.id as usize];
+            assert!(
+                k == 0 || k == 2,
+                "{name}: compartment {} has {k} children",
+                c.id
+            );
+            assert_eq!(k == 2, c.children.is_some());
+        }
+        // soma DC input resistance: independent solve against the cable engine
+        let mut e0 = vec![0.0; n];
+        e0[0] = 1.0;
+        let r_red = soma_voltage(&t, &e0) * 1e9; // 1/nS → Ω
+        let rel = (r_red - r_engine).abs() / r_engine;
+        worst[0] = worst[0].max(rel);
+        assert!(
+            rel < 1e-6,
+            "{name} budget {b}: R_in {r_red} vs {r_engine} ({rel:e})"
+        );
+        // τ is the slowest time constant
+        if n <= 1500 {
+            let lam = slowest_rate(&t);
+            let rel = (1.0 / lam - tau).abs() / tau;
+            worst[1] = worst[1].max(rel);
+            assert!(
+                rel < 1e-6,
+                "{name} budget {b}: slowest τ {} vs {tau}",
+                1.0 / lam
+            );
+        }
+        // feed-forward form against the full solve for random currents
+        let ff = t.feed_forward();
+        for _ in 0..3 {
+            let i: Vec<f64> = (0..n).map(|_| rng.next() * 2.0 - 0.5).collect();
+            let v_solve = soma_voltage(&t, &i);
+            let mut prod = vec![1.0; n];
+            let mut sum = i[0];
+            for k in 1..n {
+                let p = t.compartments[k].parent.unwrap() as usize;
+                prod[k] = prod[p] * ff.w[k].unwrap();
+                assert!(ff.w[k].unwrap() > 0.0 && ff.w[k].unwrap() < 1.0);
+                sum += i[k] * prod[k];
+            }
+            let v_ff = sum / ff.root_input_conductance_ns;
+            let scale: f64 = i.iter().map(|x| x.abs()).sum::<f64>() / ff.root_input_conductance_ns;
+            let rel = (v_ff - v_solve).abs() / scale;
+            worst[2] = worst[2].max(rel);
+            assert!(
+                rel < 1e-6,
+                "{name} budget {b}: feed-forward {v_ff} vs {v_solve}"
+            );
+        }
+        // layers cover every compartment once, by depth
+        let total: usize = ff.layers.iter().map(|l| l.len()).sum();
+        assert_eq!(total, n);
+        // point map: every kept point maps to a compartment; site counts add up
+        let counted: u32 = t.compartments.iter().map(|c| c.site_count).sum();
+        assert_eq!(counted as usize, red.sites().len());
+        for &c in &t.site_compartment {
+            assert!((c as usize) < n);
+        }
+        let area: f64 = t.compartments.iter().map(|c| c.membrane_area_um2).sum();
+        let kept = red.kept_flat();
+        let full_area: f64 =
+            kept.soma_area_um2 + (1..kept.len()).map(|k| kept.segment_area(k)).sum::<f64>();
+        assert!(
+            (area - full_area).abs() <= 1e-9 * full_area,
+            "{name}: area {area} vs {full_area}"
+        );
+    }
+    eprintln!(
+        "{name}: max {maxc}, junctions {}, junction effect {:.2e}, worst R_in {:.2e}, τ {:.2e}, ff {:.2e}",
+        red.junctions(),
+        red.junction_effect_relative(),
+        worst[0],
+        worst[1],
+        worst[2]
+    );
+    worst
+}
+
+/// Flat arrays of a morphology, with a default radius where the file has none.
+fn flat_of(m: &Morphology) -> Flat {
+    let mut f = m.flatten();
+    for k in 1..f.len() {
+        for r in [&mut f.r_prox_um[k], &mut f.r_dist_um[k]] {
+            if !(*r > 0.0 && r.is_finite()) {
+                *r = 0.25;
+            }
+        }
+    }
+    f
+}
+
+#[test]
+fn sample_cells_meet_the_acceptance_checks() {
+    for s in pollard::samples::SAMPLES {
+        let m = Morphology::parse(s.text, s.file_name).unwrap();
+        let f = flat_of(&m);
+        check_cell(s.name, &f, &ReduceOptions::default());
+    }
+}
+
+#[test]
+fn point_map_covers_the_main_tree_and_types_filter_leaves_out_the_axon() {
+    // soma, a dendrite with a fork, an axon with a fork
+    let text = "1 1 0 0 0 8 -1\n\
+                2 3 20 0 0 1 1\n3 3 60 10 0 0.8 2\n4 3 60 -10 0 0.8 2\n5 3 90 15 0 0.5 3\n\
+                6 2 -20 0 0 0.6 1\n7 2 -80 5 0 0.4 6\n8 2 -80 -5 0 0.4 6\n\
+                9 3 0 0 500 1 -1\n";
+    let m = Morphology::parse(text, "t.swc").unwrap();
+    let f = m.flatten();
+    let all = Reducer::new(&f, &Params::default(), &ReduceOptions::default()).unwrap();
+    let t = all.tree(all.max_compartments());
+    for i in 0..m.len() {
+        let inside = i < m.main_len;
+        assert_eq!(t.point_compartment[i] != NONE, inside, "point {i}");
+    }
+    let opts = ReduceOptions {
+        types: Some(vec![1, 3]),
+        ..Default::default()
+    };
+    let no_axon = Reducer::new(&f, &Params::default(), &opts).unwrap();
+    let t2 = no_axon.tree(99);
+    for (i, p) in m.points.iter().enumerate() {
+        if p.kind == 2 {
+            assert_eq!(t2.point_compartment[i], NONE);
+        }
+    }
+    // the cell without its axon has a higher input resistance
+    assert!(t2.soma_input_resistance_ohm() > t.soma_input_resistance_ohm());
+    check_cell("no-axon", &f, &opts);
+}
+
+/// The real reconstructions of the shared folder, when present (set POLLARD_CELLS to a folder
+/// of SWC files to run this).
+#[test]
+#[ignore]
+fn real_cells_from_a_folder() {
+    let Ok(dir) = std::env::var("POLLARD_CELLS") else {
+        return;
+    };
+    let mut paths: Vec<_> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .collect();
+    paths.sort();
+    for p in paths {
+        if p.extension().is_none_or(|e| e != "swc") {
+            continue;
+        }
+        let m = Morphology::read(&p).unwrap();
+        let f = flat_of(&m);
+        let jf = std::env::var("POLLARD_JF")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(1e-4);
+        let opts = ReduceOptions {
+            junction_length_fraction: jf,
+            ..Default::default()
+        };
+        check_cell(&p.display().to_string(), &f, &opts);
+    }
+}
