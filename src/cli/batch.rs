@@ -1,14 +1,238 @@
-//! `pollard batch` (not yet written).
+//! `pollard batch`: reduce every SWC file below a folder, in parallel, with one summary table.
+//! The work itself is in [`pollard::batch`]; this file parses the flags and shows progress.
 
+use anyhow::Context as _;
+use pollard::batch::{self, RunOptions, Settings, Shard, Status};
+use pollard::cable::Params;
+use std::io::IsTerminal as _;
 use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::Mutex;
+use std::time::{Duration, Instant};
+
+/// Exit code when the batch ran but at least one cell failed (1 means the batch could not run).
+const SOME_FAILED: u8 = 2;
 
 #[derive(clap::Args, Debug)]
+#[command(after_help = "\
+Outputs: OUT_DIR/<same folders>/<name>.json per cell, OUT_DIR/summary.csv and summary.jsonl
+(one row per input file; with --shard I/K: summary.shard-I-of-K.csv/.jsonl).
+A second run skips the cells already done with the same flags; --force redoes them.
+Exit code: 0 all cells reduced, 2 some cells failed (see the summary), 1 the batch could not run.")]
 pub struct Args {
-    /// Input path.
-    pub input: PathBuf,
+    /// The folder to search for .swc files (all subfolders too).
+    #[arg(required_unless_present = "merge_summaries")]
+    pub input: Option<PathBuf>,
+    /// The output folder (created if missing); its subfolders mirror the input's.
+    #[arg(long, value_name = "OUT_DIR")]
+    pub out: PathBuf,
+    /// Compartment budget of each reduced tree.
+    #[arg(long, value_name = "N", required_unless_present = "merge_summaries")]
+    pub compartments: Option<usize>,
+    /// Specific membrane resistance Rm (Ω·cm²).
+    #[arg(long, value_name = "R", default_value_t = Params::default().rm_ohm_cm2)]
+    pub rm: f64,
+    /// Axial resistivity Ra (Ω·cm).
+    #[arg(long, value_name = "R", default_value_t = Params::default().ra_ohm_cm)]
+    pub ra: f64,
+    /// Specific membrane capacitance Cm (µF/cm²).
+    #[arg(long, value_name = "C", default_value_t = Params::default().cm_uf_cm2)]
+    pub cm: f64,
+    /// Diameter (µm) for points whose radius is 0 or unknown; without it such cells fail.
+    #[arg(long, value_name = "D")]
+    pub default_diameter: Option<f64>,
+    /// Multiply coordinates and radii by this factor (e.g. 0.001 for files in nm).
+    #[arg(long, value_name = "S")]
+    pub scale: Option<f64>,
+    /// Keep only these SWC types (comma-separated codes, e.g. 1,3,4 drops the axon).
+    #[arg(long, value_name = "CODES", value_delimiter = ',')]
+    pub types: Option<Vec<i32>>,
+    /// Worker threads (default: one per core).
+    #[arg(long, short = 'j', value_name = "J")]
+    pub jobs: Option<usize>,
+    /// Do only share I of K of the files (chosen by a stable hash of each path), e.g. 3/8.
+    #[arg(long, value_name = "I/K")]
+    pub shard: Option<Shard>,
+    /// Redo every cell, even those whose outputs are complete.
+    #[arg(long)]
+    pub force: bool,
+    /// Redo the cells that failed last time (otherwise they are skipped until the file changes).
+    #[arg(long)]
+    pub retry_failed: bool,
+    /// Do no cells: join the shard summaries in OUT_DIR into summary.csv and summary.jsonl.
+    #[arg(long)]
+    pub merge_summaries: bool,
 }
 
-pub fn run(_a: Args) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`pollard batch` is not written yet")
+/// Progress on a terminal (a bar with an ETA) or, in a log, a plain line every 10 % or minute.
+struct Progress {
+    bar: indicatif::ProgressBar,
+    plain: Option<Mutex<PlainState>>,
+    total: usize,
+}
+
+struct PlainState {
+    done: usize,
+    failed: usize,
+    next_tenth: usize,
+    last: Instant,
+    start: Instant,
+}
+
+impl Progress {
+    fn new(total: usize) -> Progress {
+        let tty = std::io::stderr().is_terminal();
+        let bar = if tty {
+            let b = indicatif::ProgressBar::new(total as u64);
+            let style = indicatif::ProgressStyle::with_template(
+                "{elapsed_precise} [{bar:40}] {pos}/{len} cells, {per_sec}, ETA {eta} {msg}",
+            )
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar())
+            .progress_chars("=> ");
+            b.set_style(style);
+            b.enable_steady_tick(Duration::from_millis(200));
+            b
+        } else {
+            indicatif::ProgressBar::with_draw_target(
+                Some(total as u64),
+                indicatif::ProgressDrawTarget::hidden(),
+            )
+        };
+        let plain = (!tty).then(|| {
+            let now = Instant::now();
+            Mutex::new(PlainState {
+                done: 0,
+                failed: 0,
+                next_tenth: 1,
+                last: now,
+                start: now,
+            })
+        });
+        Progress { bar, plain, total }
+    }
+
+    fn line(&self, text: String) {
+        if self.plain.is_some() {
+            eprintln!("{text}");
+        } else {
+            self.bar.println(text);
+        }
+    }
+
+    fn on_row(&self, row: &batch::Row, reused: bool) {
+        if row.status == Status::Failed && !reused {
+            self.line(format!(
+                "failed: {}",
+                row.error.as_deref().unwrap_or(&row.file)
+            ));
+        }
+        self.bar.inc(1);
+        let Some(plain) = &self.plain else { return };
+        let Ok(mut s) = plain.lock() else { return };
+        s.done += 1;
+        if row.status == Status::Failed {
+            s.failed += 1;
+        }
+        let tenth = s.done * 10 / self.total.max(1);
+        if tenth >= s.next_tenth || s.last.elapsed() >= Duration::from_secs(60) {
+            s.next_tenth = tenth + 1;
+            s.last = Instant::now();
+            let t = s.start.elapsed().as_secs_f64();
+            let rate = s.done as f64 / t.max(1e-9);
+            let eta = (self.total - s.done) as f64 / rate.max(1e-9);
+            eprintln!(
+                "{}/{} cells ({:.0} %), {} failed, {:.1} cells/s, ETA {:.0} s",
+                s.done,
+                self.total,
+                100.0 * s.done as f64 / self.total.max(1) as f64,
+                s.failed,
+                rate,
+                eta
+            );
+        }
+    }
+}
+
+fn exit_for(rows: &[batch::Row]) -> ExitCode {
+    if rows.iter().any(|r| r.status == Status::Failed) {
+        ExitCode::from(SOME_FAILED)
+    } else {
+        ExitCode::SUCCESS
+    }
+}
+
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    if a.merge_summaries {
+        let rows = batch::merge_summaries(&a.out)?;
+        let failed = rows.iter().filter(|r| r.status == Status::Failed).count();
+        eprintln!(
+            "joined {} rows ({failed} failed) into {}",
+            rows.len(),
+            a.out.join("summary.csv").display()
+        );
+        return Ok(exit_for(&rows));
+    }
+    let (Some(input), Some(compartments)) = (a.input.as_ref(), a.compartments) else {
+        anyhow::bail!("give the input folder and --compartments N");
+    };
+    let types = a.types.clone().map(|mut t| {
+        t.sort_unstable();
+        t.dedup();
+        t
+    });
+    let settings = Settings {
+        compartments,
+        params: Params {
+            rm_ohm_cm2: a.rm,
+            ra_ohm_cm: a.ra,
+            cm_uf_cm2: a.cm,
+        },
+        default_diameter_um: a.default_diameter,
+        scale: a.scale,
+        types,
+    };
+    // a flag error would fail every cell alike: say it once, before any work
+    settings
+        .params
+        .validate(0.0)
+        .context("check the passive flags")?;
+    let shard = a.shard.unwrap_or(Shard::ALL);
+    std::fs::create_dir_all(&a.out)
+        .with_context(|| format!("{}: cannot create the output folder", a.out.display()))?;
+    let cells = batch::plan(input, &a.out, shard)?;
+    let jobs = a
+        .jobs
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
+        .max(1);
+    eprintln!(
+        "{} cell(s) in {}{}, {jobs} worker(s)",
+        cells.len(),
+        input.display(),
+        if shard.count > 1 {
+            format!(" (shard {shard})")
+        } else {
+            String::new()
+        }
+    );
+    let progress = Progress::new(cells.len());
+    let start = Instant::now();
+    let opts = RunOptions {
+        jobs,
+        force: a.force,
+        retry_failed: a.retry_failed,
+    };
+    let (rows, reused) = batch::run(&cells, &settings, &opts, &|r, re| progress.on_row(r, re))?;
+    progress.bar.finish_and_clear();
+    let (csv, _) = batch::write_summary(&a.out, &shard.summary_stem(), &rows)?;
+    let failed = rows.iter().filter(|r| r.status == Status::Failed).count();
+    let secs = start.elapsed().as_secs_f64();
+    let done = rows.len() - reused;
+    eprintln!(
+        "{} cell(s): {done} done in this run, {reused} reused from earlier runs, {failed} failed; {:.1} s ({:.1} cells/s); summary {}",
+        rows.len(),
+        secs,
+        done as f64 / secs.max(1e-9),
+        csv.display()
+    );
+    Ok(exit_for(&rows))
 }

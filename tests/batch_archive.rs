@@ -1,0 +1,444 @@
+//! `pollard batch` on a generated folder of cells with broken files mixed in: outputs, summary
+//! rows, exit codes, resumability, shards and byte-identical results.
+
+use pollard::batch::{self, Row, RunOptions, Settings, Shard, Status};
+use pollard::synth;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+const BUDGET: &str = "12";
+
+/// Good cells (relative path → points) and broken files (relative path) written into `dir`.
+struct Archive {
+    good: BTreeMap<String, usize>,
+    bad: BTreeSet<String>,
+}
+
+fn write(dir: &Path, rel: &str, bytes: &[u8]) {
+    let p = dir.join(rel);
+    std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+    std::fs::write(p, bytes).unwrap();
+}
+
+fn make_archive(dir: &Path) -> Archive {
+    let mut good = BTreeMap::new();
+    let folders = ["", "mouse/", "mouse/v1/", "rat,odd name/"];
+    for i in 0..18usize {
+        let n = 60 + 37 * i;
+        let rel = format!("{}cell_{i:02}.swc", folders[i % folders.len()]);
+        let text = synth::to_swc(&synth::random_tree(n, 1000 + i as u64), &["test cell"]);
+        write(dir, &rel, text.as_bytes());
+        good.insert(rel, n);
+    }
+    // upper-case extension counts too
+    let text = synth::to_swc(&synth::random_tree(80, 7), &[]);
+    write(dir, "mouse/UPPER.SWC", text.as_bytes());
+    good.insert("mouse/UPPER.SWC".into(), 80);
+
+    let mut bad = BTreeSet::new();
+    let broken: [(&str, &[u8]); 7] = [
+        ("empty.swc", b""),
+        ("mouse/garbage.swc", b"this is not a reconstruction\n"),
+        ("mouse/v1/cycle.swc", b"1 3 0 0 0 1 2\n2 3 1 0 0 1 1\n"),
+        ("missing_parent.swc", b"1 1 0 0 0 5 -1\n2 3 10 0 0 1 7\n"),
+        ("rat,odd name/latin1.swc", b"# caf\xe9\n1 1 0 0 0 5 -1\n"),
+        ("mouse/negative.swc", b"1 1 0 0 0 5 -1\n2 3 10 0 0 -1 1\n"),
+        ("short.swc", b"1 1 0 0 0 5\n"),
+    ];
+    for (rel, bytes) in broken {
+        write(dir, rel, bytes);
+        bad.insert(rel.to_string());
+    }
+    // not inputs: other extensions, and a folder whose name ends in .swc (walked, not read)
+    write(dir, "notes.txt", b"1 1 0 0 0 5 -1\n");
+    write(dir, "mouse/cell_00.swc.bak", b"junk");
+    write(
+        dir,
+        "folder.swc/inner.swc",
+        synth::to_swc(&synth::random_tree(50, 3), &[]).as_bytes(),
+    );
+    good.insert("folder.swc/inner.swc".into(), 50);
+    Archive { good, bad }
+}
+
+fn pollard(args: &[&str]) -> (i32, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_pollard"))
+        .args(args)
+        .output()
+        .expect("runs the pollard binary");
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+fn read_rows(path: &Path) -> Vec<Row> {
+    batch::read_summary(path).unwrap()
+}
+
+fn tree_path(out: &Path, rel: &str) -> PathBuf {
+    out.join(Path::new(rel).with_extension("json"))
+}
+
+/// All files below `dir` (relative path → bytes), leaving out the summaries.
+fn snapshot(dir: &Path) -> BTreeMap<String, Vec<u8>> {
+    let mut m = BTreeMap::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let e = e.unwrap();
+            let p = e.path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().to_string();
+                if !rel.starts_with("summary") {
+                    m.insert(rel, std::fs::read(&p).unwrap());
+                }
+            }
+        }
+    }
+    m
+}
+
+#[test]
+fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let out = tmp.path().join("out");
+    let arch = make_archive(&input);
+
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&out),
+        "--compartments",
+        BUDGET,
+        "--jobs",
+        "2",
+    ]);
+    // exit code 2: the batch ran, some cells failed (documented in `pollard batch --help`)
+    assert_eq!(code, 2, "{err}");
+
+    let rows = read_rows(&out.join("summary.jsonl"));
+    let files: Vec<&str> = rows.iter().map(|r| r.file.as_str()).collect();
+    let mut expected: Vec<&str> = arch
+        .good
+        .keys()
+        .chain(arch.bad.iter())
+        .map(|x| x.as_str())
+        .collect();
+    expected.sort();
+    assert_eq!(files, expected, "one row per input file, sorted by path");
+
+    for r in &rows {
+        if let Some(&n) = arch.good.get(&r.file) {
+            assert_eq!(r.status, Status::Ok, "{r:?}");
+            assert_eq!(r.points, Some(n), "{r:?}");
+            assert!(r.error.is_none());
+            let rin = r.soma_rin_full_mohm.unwrap();
+            assert!(rin.is_finite() && rin > 0.0, "{r:?}");
+            let tree = std::fs::read(tree_path(&out, &r.file)).unwrap();
+            serde_json::from_slice::<serde_json::Value>(&tree).unwrap();
+        } else {
+            assert_eq!(r.status, Status::Failed, "{r:?}");
+            let e = r.error.as_deref().unwrap();
+            assert!(e.contains(&r.file), "the error names the file: {e}");
+            assert!(r.points.is_none());
+            assert!(!tree_path(&out, &r.file).exists());
+        }
+    }
+    // the CSV has the same rows, in the same order, with the header first
+    let csv = std::fs::read_to_string(out.join("summary.csv")).unwrap();
+    let lines: Vec<&str> = csv.lines().collect();
+    assert_eq!(lines[0], batch::CSV_HEADER);
+    assert_eq!(lines.len(), rows.len() + 1);
+    // a name with a comma is quoted (RFC 4180)
+    assert!(
+        lines
+            .iter()
+            .any(|l| l.starts_with("\"rat,odd name/latin1.swc\",failed,,")),
+        "{csv}"
+    );
+    for (l, r) in lines[1..].iter().zip(&rows) {
+        // same file and status; numbers equal to the JSON's up to its reader's last bit
+        let f: Vec<&str> = match l.strip_prefix('"') {
+            Some(quoted) => {
+                let (name, rest) = quoted.split_once("\",").unwrap();
+                std::iter::once(name).chain(rest.split(',')).collect()
+            }
+            None => l.split(',').collect(),
+        };
+        assert_eq!(f[0].replace("\"\"", "\""), r.file);
+        assert_eq!(
+            f[1],
+            if r.status == Status::Ok {
+                "ok"
+            } else {
+                "failed"
+            }
+        );
+        let close = |text: &str, v: Option<f64>| match v {
+            None => assert_eq!(text, ""),
+            Some(v) => {
+                let x: f64 = text.parse().unwrap();
+                assert!((x - v).abs() <= 1e-14 * v.abs(), "{x} {v}");
+            }
+        };
+        close(f[4], r.total_length_um);
+        close(f[6], r.soma_rin_full_mohm);
+        close(f[7], r.soma_rin_reduced_mohm);
+        close(f[10], r.site_error_max);
+    }
+
+    // the rerun does no work: no file below OUT changes, and the rows are the same
+    let before = snapshot(&out);
+    let (code2, err2) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&out),
+        "--compartments",
+        BUDGET,
+        "--jobs",
+        "2",
+    ]);
+    assert_eq!(code2, 2);
+    assert!(err2.contains(" 0 done in this run"), "{err2}");
+    assert_eq!(snapshot(&out), before);
+    // the summary is rebuilt from the records, byte for byte (times too: they are kept)
+    assert_eq!(
+        std::fs::read_to_string(out.join("summary.csv")).unwrap(),
+        csv
+    );
+    assert_eq!(read_rows(&out.join("summary.jsonl")), rows);
+
+    // --force redoes every cell (records are rewritten, trees come out byte-identical)
+    let (code3, err3) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&out),
+        "--compartments",
+        BUDGET,
+        "--force",
+    ]);
+    assert_eq!(code3, 2);
+    assert!(err3.contains(" 0 reused"), "{err3}");
+    let after = snapshot(&out);
+    for rel in arch.good.keys() {
+        let k = Path::new(rel)
+            .with_extension("json")
+            .to_string_lossy()
+            .to_string();
+        assert_eq!(after[&k], before[&k], "{rel} is byte-identical");
+    }
+}
+
+#[test]
+fn all_good_cells_exit_zero() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    for i in 0..3 {
+        let text = synth::to_swc(&synth::random_tree(100, i), &[]);
+        write(&input, &format!("c{i}.swc"), text.as_bytes());
+    }
+    let out = input.join("reduced"); // an output folder inside the input is left out of the search
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&out),
+        "--compartments",
+        BUDGET,
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(read_rows(&out.join("summary.jsonl")).len(), 3);
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&out),
+        "--compartments",
+        BUDGET,
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(read_rows(&out.join("summary.jsonl")).len(), 3);
+    // an output folder that holds the input is refused: exit code 1
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(tmp.path()),
+        "--compartments",
+        BUDGET,
+    ]);
+    assert_eq!(code, 1, "{err}");
+}
+
+fn settings() -> Settings {
+    Settings {
+        compartments: BUDGET.parse().unwrap(),
+        params: Default::default(),
+        default_diameter_um: None,
+        scale: None,
+        types: None,
+    }
+}
+
+fn run_lib(cells: &[batch::Cell], st: &Settings, force: bool) -> (Vec<Row>, usize) {
+    let opts = RunOptions {
+        jobs: 2,
+        force,
+        retry_failed: false,
+    };
+    batch::run(cells, st, &opts, &|_, _| {}).unwrap()
+}
+
+#[test]
+fn incomplete_or_stale_outputs_are_redone() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let out = tmp.path().join("out");
+    let arch = make_archive(&input);
+    let cells = batch::plan(&input, &out, Shard::ALL).unwrap();
+    let st = settings();
+    let (rows, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 0);
+    assert_eq!(rows.len(), arch.good.len() + arch.bad.len());
+    let (_, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, cells.len());
+
+    let pick = |rel: &str| cells.iter().find(|c| c.rel == rel).unwrap();
+    // a truncated tree file does not count as complete
+    let a = pick("cell_00.swc");
+    let full = std::fs::read(&a.output).unwrap();
+    std::fs::write(&a.output, &full[..full.len() / 2]).unwrap();
+    // a missing record (the tree was written, the run stopped before the record) neither
+    let b = pick("mouse/cell_01.swc");
+    std::fs::remove_file(&b.record).unwrap();
+    // nor does a missing tree
+    let c = pick("mouse/v1/cell_02.swc");
+    std::fs::remove_file(&c.output).unwrap();
+    // an input that changed is redone
+    let d = pick("cell_04.swc");
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    let text = synth::to_swc(&synth::random_tree(90, 77), &[]);
+    std::fs::write(&d.input, text).unwrap();
+    let (rows, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, cells.len() - 4);
+    assert_eq!(std::fs::read(&a.output).unwrap(), full);
+    assert!(c.output.exists());
+    assert_eq!(
+        rows.iter().find(|r| r.file == d.rel).unwrap().points,
+        Some(90)
+    );
+
+    // other flags: nothing is reused
+    let mut st2 = st.clone();
+    st2.params.rm_ohm_cm2 = 15_000.0;
+    let (rows2, reused) = run_lib(&cells, &st2, false);
+    assert_eq!(reused, 0);
+    // a larger Rm gives a larger soma input resistance (every membrane conductance shrinks;
+    // Rall's input conductance is monotone in them: Rall 1959)
+    for (r1, r2) in rows.iter().zip(&rows2) {
+        if r1.status == Status::Ok {
+            assert!(r2.soma_rin_full_mohm.unwrap() < r1.soma_rin_full_mohm.unwrap());
+        }
+    }
+    // a fixed broken file is retried without --force: its size (or time) changed
+    let e = pick("empty.swc");
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    std::fs::write(&e.input, synth::to_swc(&synth::random_tree(40, 5), &[])).unwrap();
+    let (rows3, _) = run_lib(&cells, &st2, false);
+    assert_eq!(
+        rows3.iter().find(|r| r.file == e.rel).unwrap().status,
+        Status::Ok
+    );
+}
+
+#[test]
+fn shards_partition_the_archive_and_merge_into_the_whole() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let whole = tmp.path().join("whole");
+    let split = tmp.path().join("split");
+    let arch = make_archive(&input);
+    let n = arch.good.len() + arch.bad.len();
+
+    let (code, _) = pollard(&[
+        "batch",
+        s(&input),
+        "--out",
+        s(&whole),
+        "--compartments",
+        BUDGET,
+    ]);
+    assert_eq!(code, 2);
+    let all = read_rows(&whole.join("summary.jsonl"));
+
+    let k = 3;
+    let mut seen: Vec<String> = Vec::new();
+    for i in 1..=k {
+        let shard = format!("{i}/{k}");
+        let (code, err) = pollard(&[
+            "batch",
+            s(&input),
+            "--out",
+            s(&split),
+            "--compartments",
+            BUDGET,
+            "--shard",
+            &shard,
+            "--jobs",
+            "1",
+        ]);
+        assert!(code == 0 || code == 2, "{err}");
+        let rows = read_rows(&split.join(format!("summary.shard-{i}-of-{k}.jsonl")));
+        assert!(split.join(format!("summary.shard-{i}-of-{k}.csv")).exists());
+        // the library's own split agrees with the command's
+        let planned = batch::plan(&input, &split, shard.parse().unwrap()).unwrap();
+        assert_eq!(
+            planned.iter().map(|c| c.rel.clone()).collect::<Vec<_>>(),
+            rows.iter().map(|r| r.file.clone()).collect::<Vec<_>>()
+        );
+        seen.extend(rows.into_iter().map(|r| r.file));
+    }
+    // exactly a partition: every file once
+    let uniq: BTreeSet<&String> = seen.iter().collect();
+    assert_eq!(seen.len(), n);
+    assert_eq!(uniq.len(), n);
+    assert!(!split.join("summary.jsonl").exists());
+
+    let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
+    assert_eq!(code, 2, "{err}");
+    let merged = read_rows(&split.join("summary.jsonl"));
+    let strip = |rs: &[Row]| -> Vec<Row> {
+        rs.iter()
+            .map(|r| Row {
+                seconds: 0.0,
+                ..r.clone()
+            })
+            .collect()
+    };
+    assert_eq!(strip(&merged), strip(&all));
+    // the trees of the split run equal those of the whole run, byte for byte
+    for rel in arch.good.keys() {
+        assert_eq!(
+            std::fs::read(tree_path(&split, rel)).unwrap(),
+            std::fs::read(tree_path(&whole, rel)).unwrap(),
+            "{rel}"
+        );
+    }
+    // an incomplete set of shard summaries is refused
+    std::fs::remove_file(split.join("summary.shard-2-of-3.jsonl")).unwrap();
+    let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
+    assert_eq!(code, 1);
+    assert!(err.contains("shard(s) 2 of 3"), "{err}");
+}
