@@ -4,6 +4,7 @@
 //! ([`morphology::Flat`]) → cable maps ([`cable`]) → reduced tree ([`reduce`]) → files
 //! ([`export`]) and views (`app`, behind the `gui` feature). See DEVELOPERS.md for the map.
 
+pub mod batch;
 pub mod cable;
 pub mod export;
 pub mod lab;
