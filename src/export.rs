@@ -59,6 +59,215 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
     Ok(())
 }
 
+/// Version of the reduced-tree JSON layout (`assets/reduced-tree.schema.json`). Raised when a
+/// field changes meaning or is removed; adding fields keeps it.
+pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 1;
+
+/// The `format` value of a reduced-tree JSON file.
+pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";
+
+/// Where a reduced tree came from, for the file's header and site map.
+#[derive(Debug, Clone, Copy)]
+pub struct TreeSource<'a> {
+    /// The input file's name or path, as the user gave it.
+    pub source: &'a str,
+    /// SWC id of every morphology point (`Morphology::points[i].id`).
+    pub point_ids: &'a [i64],
+    /// Position of every morphology point (µm).
+    pub point_pos: &'a [[f64; 3]],
+}
+
+#[derive(serde::Serialize)]
+struct Parameters<'a> {
+    rm_ohm_cm2: f64,
+    ra_ohm_cm: f64,
+    cm_uf_cm2: f64,
+    tau_ms: f64,
+    freq_hz: f64,
+    types_kept: Option<&'a [i32]>,
+    sites: &'static str,
+    junction_length_fraction: f64,
+    compartments_requested: usize,
+    compartments: usize,
+}
+
+#[derive(serde::Serialize)]
+struct PointMap {
+    swc_id: Vec<i64>,
+    compartment: Vec<Option<u32>>,
+}
+
+#[derive(serde::Serialize)]
+struct SiteOut {
+    swc_id: i64,
+    position_um: [f64; 3],
+    weight: f64,
+    compartment: u32,
+    ln_attenuation_full: f64,
+    ln_attenuation_reduced: f64,
+    ln_attenuation_error: f64,
+}
+
+#[derive(serde::Serialize)]
+struct SiteMap {
+    points: PointMap,
+    sites: Vec<SiteOut>,
+}
+
+#[derive(serde::Serialize)]
+struct TreeFile<'a> {
+    format: &'static str,
+    schema_version: u32,
+    generator: String,
+    source: &'a str,
+    parameters: Parameters<'a>,
+    compartments: &'a [crate::reduce::Compartment],
+    feed_forward: crate::reduce::FeedForward,
+    site_map: SiteMap,
+    report: &'a crate::reduce::Report,
+}
+
+/// The reduced tree as JSON (layout: `assets/reduced-tree.schema.json`, version
+/// [`REDUCED_TREE_SCHEMA_VERSION`]): parameters, compartments, the DC feed-forward form, the
+/// site map (every point and every site → compartment, with each site's DC log attenuation to
+/// the soma in the full and the reduced cell) and the report. Non-finite numbers are written as
+/// `null`.
+pub fn reduced_tree_json(
+    src: &TreeSource<'_>,
+    reducer: &crate::reduce::Reducer,
+    tree: &crate::reduce::ReducedTree,
+    report: &crate::reduce::Report,
+) -> Result<String, serde_json::Error> {
+    use crate::morphology::NONE;
+    let p = reducer.params();
+    let o = reducer.options();
+    let ln_red = tree.ln_attenuation_dc();
+    let sites = reducer
+        .sites()
+        .iter()
+        .zip(&tree.site_compartment)
+        .map(|(s, &c)| {
+            let i = s.point as usize;
+            let red = ln_red[c as usize];
+            SiteOut {
+                swc_id: src.point_ids.get(i).copied().unwrap_or(-1),
+                position_um: src.point_pos.get(i).copied().unwrap_or([f64::NAN; 3]),
+                weight: s.weight,
+                compartment: c,
+                ln_attenuation_full: s.ln_attenuation_full,
+                ln_attenuation_reduced: red,
+                ln_attenuation_error: s.ln_attenuation_full - red,
+            }
+        })
+        .collect();
+    let file = TreeFile {
+        format: REDUCED_TREE_FORMAT,
+        schema_version: REDUCED_TREE_SCHEMA_VERSION,
+        generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),
+        source: src.source,
+        parameters: Parameters {
+            rm_ohm_cm2: p.rm_ohm_cm2,
+            ra_ohm_cm: p.ra_ohm_cm,
+            cm_uf_cm2: p.cm_uf_cm2,
+            tau_ms: p.tau_ms(),
+            freq_hz: o.freq_hz,
+            types_kept: o.types.as_deref(),
+            sites: match o.sites {
+                crate::reduce::Sites::Default => "default",
+                crate::reduce::Sites::List(_) => "list",
+            },
+            junction_length_fraction: o.junction_length_fraction,
+            compartments_requested: tree.requested,
+            compartments: tree.len(),
+        },
+        compartments: &tree.compartments,
+        feed_forward: tree.feed_forward(),
+        site_map: SiteMap {
+            points: PointMap {
+                swc_id: src.point_ids.to_vec(),
+                compartment: tree
+                    .point_compartment
+                    .iter()
+                    .map(|&c| (c != NONE).then_some(c))
+                    .collect(),
+            },
+            sites,
+        },
+        report,
+    };
+    serde_json::to_string_pretty(&file)
+}
+
+/// The reduced tree as SWC, one point per compartment, each an *equivalent cylinder*: the
+/// radius r and length l for which a cylinder has the compartment's axial conductance
+/// g = πr²/(Ra·l) and leak G = 2πrl/Rm (core-conductor model; Rall 1959), i.e.
+/// r³ = (g·Ra/π)·(G·Rm/2π) and l = G·Rm/(2πr). The soma is a sphere of area G·Rm (type 1).
+/// Each point is placed l µm from its parent, towards the position of the point the
+/// compartment is named after. Ids are compartment id + 1. Readers that draw a frustum between
+/// a point and its parent will see tapers at the joins; the JSON is the exact description.
+pub fn reduced_tree_swc(tree: &crate::reduce::ReducedTree, header: &[String]) -> String {
+    use std::fmt::Write as _;
+    let p = &tree.params;
+    let mut out = String::new();
+    for h in header {
+        let _ = writeln!(out, "# {h}");
+    }
+    let _ = writeln!(
+        out,
+        "# equivalent cylinders: radius and length give each compartment's axial and leak conductance (Rm {} ohm cm2, Ra {} ohm cm)",
+        p.rm_ohm_cm2, p.ra_ohm_cm
+    );
+    let mut pos: Vec<[f64; 3]> = Vec::with_capacity(tree.len());
+    for c in &tree.compartments {
+        let g = c.g_axial_ns * 1e-9;
+        let gl = c.g_leak_ns * 1e-9;
+        let (xyz, r_um, parent) = match c.parent {
+            None => {
+                let area_cm2 = gl * p.rm_ohm_cm2;
+                let r = (area_cm2 / (4.0 * std::f64::consts::PI)).sqrt() / crate::cable::UM;
+                (c.position_um, r, -1i64)
+            }
+            Some(q) => {
+                let pi = std::f64::consts::PI;
+                let r_cm = ((g * p.ra_ohm_cm / pi) * (gl * p.rm_ohm_cm2 / (2.0 * pi))).cbrt();
+                let l_um = gl * p.rm_ohm_cm2 / (2.0 * pi * r_cm) / crate::cable::UM;
+                let from = pos[q as usize];
+                let target = c.position_um;
+                let src_from = tree.compartments[q as usize].position_um;
+                let mut d = [0.0; 3];
+                for k in 0..3 {
+                    d[k] = target[k] - src_from[k];
+                }
+                let norm = (d[0] * d[0] + d[1] * d[1] + d[2] * d[2]).sqrt();
+                let dir = if norm > 0.0 && norm.is_finite() {
+                    d.map(|v| v / norm)
+                } else {
+                    [1.0, 0.0, 0.0]
+                };
+                (
+                    [0, 1, 2].map(|k| from[k] + dir[k] * l_um),
+                    r_cm / crate::cable::UM,
+                    q as i64 + 1,
+                )
+            }
+        };
+        pos.push(xyz);
+        let kind = if c.parent.is_none() { 1 } else { c.swc_type };
+        let _ = writeln!(
+            out,
+            "{} {} {} {} {} {} {}",
+            c.id + 1,
+            kind,
+            xyz[0],
+            xyz[1],
+            xyz[2],
+            r_um,
+            parent
+        );
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -1,14 +1,220 @@
-//! `pollard reduce` (not yet written).
+//! `pollard reduce`: collapse a cell into a strict binary compartment tree under a budget, write
+//! it as JSON (and optionally SWC), and print what was lost.
 
+use anyhow::Context;
+use pollard::Morphology;
+use pollard::cable::{Params, PrepOptions, prepare};
+use pollard::export::{TreeSource, reduced_tree_json, reduced_tree_swc, write_atomic};
+use pollard::reduce::{ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
+use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
-    /// Input path.
-    pub input: PathBuf,
+    /// The SWC file to read.
+    pub cell: PathBuf,
+    /// Number of compartments of the reduced tree, soma included. A strict binary tree has an
+    /// odd number: an even number is rounded down; above the maximum gives the maximum.
+    #[arg(long, short = 'n', value_name = "N")]
+    pub compartments: usize,
+    /// Site list: one SWC id, or one x,y,z position (µm, snapped to the nearest point), per
+    /// line. Default: every dendritic point, weighted by membrane area.
+    #[arg(long, value_name = "FILE")]
+    pub sites: Option<PathBuf>,
+    /// SWC types to keep, comma-separated (e.g. 1,3,4 leaves out the axon); the soma is always
+    /// kept. Points of other types, and everything beyond them, are left out entirely.
+    #[arg(long, value_delimiter = ',', value_name = "LIST")]
+    pub types: Option<Vec<i32>>,
+    /// Specific membrane resistance Rm (Ω·cm²).
+    #[arg(
+        long = "rm",
+        allow_negative_numbers = true,
+        default_value_t = 20_000.0,
+        value_name = "OHM_CM2"
+    )]
+    pub rm: f64,
+    /// Axial resistivity Ra (Ω·cm).
+    #[arg(
+        long = "ra",
+        allow_negative_numbers = true,
+        default_value_t = 150.0,
+        value_name = "OHM_CM"
+    )]
+    pub ra: f64,
+    /// Specific membrane capacitance Cm (µF/cm²).
+    #[arg(
+        long = "cm",
+        allow_negative_numbers = true,
+        default_value_t = 1.0,
+        value_name = "UF_CM2"
+    )]
+    pub cm: f64,
+    /// Frequency (Hz) of the input-impedance line of the report.
+    #[arg(
+        long = "freq",
+        allow_negative_numbers = true,
+        default_value_t = 100.0,
+        value_name = "HZ"
+    )]
+    pub freq: f64,
+    /// Diameter (µm) for points whose radius is 0 or unknown.
+    #[arg(
+        long = "default-diameter",
+        allow_negative_numbers = true,
+        value_name = "UM"
+    )]
+    pub default_diameter: Option<f64>,
+    /// Multiply coordinates and radii by this factor (files in nm or voxels; 0.001 for nm).
+    #[arg(long, allow_negative_numbers = true, value_name = "FACTOR")]
+    pub scale: Option<f64>,
+    /// Junction link length as a fraction of the branch point's radius (multifurcations and a
+    /// single-stem soma are split with links this short).
+    #[arg(long = "junction-fraction", default_value_t = 1e-4, value_name = "F")]
+    pub junction_fraction: f64,
+    /// Where to write the reduced tree (JSON, see assets/reduced-tree.schema.json).
+    #[arg(long, short = 'o', value_name = "TREE.json")]
+    pub out: PathBuf,
+    /// Also write the reduced tree as SWC (equivalent cylinders).
+    #[arg(long, value_name = "OUT.swc")]
+    pub swc: Option<PathBuf>,
+    /// Print the report as JSON instead of text.
+    #[arg(long)]
+    pub json: bool,
 }
 
-pub fn run(_a: Args) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`pollard reduce` is not written yet")
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let params = Params {
+        rm_ohm_cm2: a.rm,
+        ra_ohm_cm: a.ra,
+        cm_uf_cm2: a.cm,
+    };
+    params.validate(a.freq)?;
+    let name = a.cell.display().to_string();
+    let m = Morphology::read(&a.cell)?;
+    let flat = prepare(
+        &m,
+        &PrepOptions {
+            default_diameter_um: a.default_diameter,
+            scale: a.scale,
+        },
+    )
+    .with_context(|| name.clone())?;
+    let sites = match &a.sites {
+        None => Sites::Default,
+        Some(p) => {
+            let text = std::fs::read_to_string(p)
+                .with_context(|| format!("{}: cannot read the site list", p.display()))?;
+            Sites::List(parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?)
+        }
+    };
+    let opts = ReduceOptions {
+        types: a.types.clone(),
+        sites,
+        freq_hz: a.freq,
+        junction_length_fraction: a.junction_fraction,
+    };
+    let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
+    let tree = reducer.tree(a.compartments);
+    let report = reducer.report(&tree)?;
+    let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
+    let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
+    let src = TreeSource {
+        source: &name,
+        point_ids: &ids,
+        point_pos: &pos,
+    };
+    let mut inputs = vec![a.cell.as_path()];
+    if let Some(s) = &a.sites {
+        inputs.push(s.as_path());
+    }
+    let json = reduced_tree_json(&src, &reducer, &tree, &report)?;
+    write_atomic(&a.out, json.as_bytes(), &inputs)?;
+    if let Some(path) = &a.swc {
+        let header = vec![
+            format!("reduced tree of {name}: {} compartments", tree.len()),
+            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
+        ];
+        write_atomic(path, reduced_tree_swc(&tree, &header).as_bytes(), &inputs)?;
+    }
+    let mut out = std::io::stdout().lock();
+    let written = if a.json {
+        serde_json::to_writer_pretty(&mut out, &report)
+            .map_err(std::io::Error::from)
+            .and_then(|_| writeln!(out))
+    } else {
+        write_report(&mut out, &name, &report, reducer.max_compartments())
+    };
+    match written {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(ExitCode::SUCCESS),
+    }
+}
+
+fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::io::Result<()> {
+    writeln!(
+        w,
+        "{name}: reduced to {} compartments (of at most {max})",
+        r.compartments
+    )?;
+    if r.rounded_down {
+        writeln!(
+            w,
+            "  note: {} requested; a strict binary tree has an odd number of compartments, so it was rounded down",
+            r.compartments_requested
+        )?;
+    }
+    if r.clamped {
+        writeln!(
+            w,
+            "  note: {} requested; the budget runs from 1 to {max}",
+            r.compartments_requested
+        )?;
+    }
+    if r.points_left_out > 0 {
+        writeln!(
+            w,
+            "  points left out by the type filter: {}",
+            r.points_left_out
+        )?;
+    }
+    writeln!(
+        w,
+        "  soma input resistance, DC:      full {:.6} MΩ, reduced {:.6} MΩ (relative error {:.2e})",
+        r.soma_input_resistance_dc_full_mohm,
+        r.soma_input_resistance_dc_reduced_mohm,
+        r.soma_input_resistance_dc_relative_error
+    )?;
+    writeln!(
+        w,
+        "  soma input impedance, {} Hz:   full {:.6} MΩ, reduced {:.6} MΩ (relative error {:.2e})",
+        r.freq_hz,
+        r.soma_input_impedance_full_mohm,
+        r.soma_input_impedance_reduced_mohm,
+        r.soma_input_impedance_relative_error
+    )?;
+    writeln!(
+        w,
+        "  junctions: {} (their effect on the DC input resistance: {:.2e} relative)",
+        r.junctions, r.junction_effect_relative
+    )?;
+    writeln!(w, "  slowest time constant: τ = {} ms", r.tau_ms)?;
+    let s = &r.ln_attenuation_error;
+    writeln!(
+        w,
+        "  {} sites, error in DC log attenuation to the soma (nepers): median {:.4}, 95th percentile {:.4}, max {:.4}, weighted RMS {:.4}",
+        r.sites, s.median, s.p95, s.max, r.ln_attenuation_error_weighted_rms
+    )?;
+    // a short view of the curve: budgets 1, 3, 7, 15, … and the maximum
+    write!(w, "  error vs budget (weighted RMS, nepers):")?;
+    let mut next = 1usize;
+    for c in &r.error_curve {
+        if c.compartments == next || c.compartments == max {
+            write!(w, " {}:{:.4}", c.compartments, c.rms_ln_attenuation_error)?;
+            if c.compartments == next {
+                next = 2 * next + 1;
+            }
+        }
+    }
+    writeln!(w)
 }

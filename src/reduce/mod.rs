@@ -164,6 +164,8 @@ pub struct Compartment {
     pub site_count: u32,
     /// Number of links to the root (root 0).
     pub depth: u32,
+    /// SWC type code of the point it is named after (junctions and soma leaf: their node's).
+    pub swc_type: i32,
     /// What the compartment is named after.
     pub role: Role,
     /// SWC line of the point it is named after (0 for junctions and the soma leaf).
@@ -188,6 +190,8 @@ fn children_list<S: serde::Serializer>(c: &Option<[u32; 2]>, s: S) -> Result<S::
 pub struct SiteInfo {
     /// Node of the [`Flat`] arrays (0 = soma).
     pub node: u32,
+    /// Morphology point it stands for (index into `Morphology::points`).
+    pub point: u32,
     /// Weight in the collapse cost (membrane area µm² for default sites, 1 for listed ones).
     pub weight: f64,
     /// DC log attenuation to the soma in the full (kept) cell, ln(Z_kk/Z_ks) (nepers).
@@ -207,6 +211,8 @@ pub struct ReducedTree {
     pub requested: usize,
     /// True when an even request was rounded down to the odd number below.
     pub rounded_down: bool,
+    /// True when the request exceeded the maximal tree (or was 0) and was clamped.
+    pub clamped: bool,
     pub params: Params,
 }
 
@@ -254,6 +260,8 @@ pub struct Report {
     pub max_compartments: usize,
     /// The even request was rounded down.
     pub rounded_down: bool,
+    /// The request was 0 or above the maximum and was clamped.
+    pub clamped: bool,
     pub points_kept: usize,
     pub points_left_out: usize,
     pub junctions: usize,
@@ -293,6 +301,7 @@ pub struct Reducer {
     pos: Vec<[f64; 3]>,
     role: Vec<Role>,
     line: Vec<usize>,
+    kind: Vec<i32>,
     kids: Vec<Option<[u32; 2]>>,
     site_count: Vec<u32>,
     /// Cherry parents in collapse order.
@@ -593,6 +602,7 @@ impl Reducer {
                 kept.pos[k],
                 role,
                 kept.line[k],
+                kept.kind[k],
             );
             ret_to_max[k] = me;
             let mut ch = std::mem::take(&mut kids_ret[k]);
@@ -606,7 +616,16 @@ impl Reducer {
                     let half_area = t.area[me as usize] / 2.0;
                     t.shunt[me as usize] = half_sh;
                     t.area[me as usize] = half_area;
-                    t.push(me, gj, half_sh, half_area, kept.pos[k], Role::SomaLeaf, 0);
+                    t.push(
+                        me,
+                        gj,
+                        half_sh,
+                        half_area,
+                        kept.pos[k],
+                        Role::SomaLeaf,
+                        0,
+                        kept.kind[k],
+                    );
                     junctions += 1;
                 }
                 2 => {
@@ -629,7 +648,16 @@ impl Reducer {
                     let mut up = me;
                     for i in 1..m - 1 {
                         let j = t.len() as u32;
-                        t.push(up, gj, share_sh, share_area, kept.pos[k], Role::Junction, 0);
+                        t.push(
+                            up,
+                            gj,
+                            share_sh,
+                            share_area,
+                            kept.pos[k],
+                            Role::Junction,
+                            0,
+                            kept.kind[k],
+                        );
                         junctions += 1;
                         attach[ch[i] as usize] = j;
                         up = j;
@@ -679,7 +707,8 @@ impl Reducer {
             site_count[mx] += 1;
             site_max.push(mx as u32);
             sites.push(SiteInfo {
-                node: kept.node_point[s as usize],
+                node: 0,
+                point: kept.node_point[s as usize],
                 weight: w,
                 ln_attenuation_full: ln_att[s as usize],
             });
@@ -768,6 +797,7 @@ impl Reducer {
             pos: t.pos,
             role: t.role,
             line: t.line,
+            kind: t.kind,
             kids,
             site_count,
             order,
@@ -903,6 +933,7 @@ impl Reducer {
                 depth,
                 role: self.role[k],
                 swc_line: self.line[k],
+                swc_type: self.kind[k],
             });
         }
         let map = |m: u32| {
@@ -918,6 +949,7 @@ impl Reducer {
             site_compartment: self.site_max.iter().map(|&m| map(m)).collect(),
             requested: budget,
             rounded_down: budget % 2 == 0 && budget <= nm && budget >= 1,
+            clamped: budget == 0 || budget > nm,
             params: self.params,
         }
     }
@@ -962,6 +994,7 @@ impl Reducer {
             compartments: tree.compartments.len(),
             max_compartments: self.max_compartments(),
             rounded_down: tree.rounded_down,
+            clamped: tree.clamped,
             points_kept: self.kept.len(),
             points_left_out: self.points_left_out,
             junctions: self.junctions,
@@ -1009,6 +1042,7 @@ struct Tree {
     pos: Vec<[f64; 3]>,
     role: Vec<Role>,
     line: Vec<usize>,
+    kind: Vec<i32>,
 }
 
 impl Tree {
@@ -1025,7 +1059,9 @@ impl Tree {
         pos: [f64; 3],
         role: Role,
         line: usize,
+        kind: i32,
     ) {
+        self.kind.push(kind);
         self.parent.push(parent);
         self.g.push(g);
         self.shunt.push(shunt);

@@ -1,0 +1,140 @@
+#!/usr/bin/env python3
+"""Load a reduced tree written by `pollard reduce --out TREE.json`, rebuild its conductance
+matrix, and check it against the numbers the file itself reports.
+
+    python3 examples/check_reduced_tree.py TREE.json
+
+Checks (exit status 1 if any fails):
+  1. strict binary tree: every compartment has 0 or 2 children, parents listed first;
+     every axial and leak conductance finite and > 0;
+  2. soma input resistance from a dense solve of G v = e_soma equals the report's reduced value
+     (and the full cell's within the junction effect plus 1e-6);
+  3. the feed-forward form: for random injected currents I, the soma voltage of the dense solve
+     equals (sum_k I_k * prod of w along k's path to the root) / Y_root;
+  4. the slowest time constant (smallest eigenvalue of C^-1 G) equals tau = Rm*Cm.
+
+Needs numpy only. Units in the file: nS, pF, um; 1/nS = 1 GOhm = 1000 MOhm; nS/pF = 1/ms.
+"""
+
+import json
+import sys
+
+import numpy as np
+
+
+def fail(msg):
+    print("FAIL:", msg)
+    return 1
+
+
+def main(path):
+    with open(path) as f:
+        doc = json.load(f)
+    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 1:
+        print("not a version-1 pollard reduced tree:", path)
+        return 1
+    comps = doc["compartments"]
+    n = len(comps)
+    errors = 0
+
+    # 1. structure and signs
+    for c in comps:
+        k = c["id"]
+        if c["parent"] is None:
+            if k != 0:
+                errors += fail(f"compartment {k} has no parent but is not the root")
+        else:
+            if not c["parent"] < k:
+                errors += fail(f"compartment {k}: parent {c['parent']} is not listed first")
+            if not (np.isfinite(c["g_axial_ns"]) and c["g_axial_ns"] > 0):
+                errors += fail(f"compartment {k}: g_axial_ns = {c['g_axial_ns']}")
+        if len(c["children"]) not in (0, 2):
+            errors += fail(f"compartment {k} has {len(c['children'])} children")
+        for ch in c["children"]:
+            if comps[ch]["parent"] != k:
+                errors += fail(f"compartment {k} lists child {ch} whose parent differs")
+        if not (np.isfinite(c["g_leak_ns"]) and c["g_leak_ns"] > 0):
+            errors += fail(f"compartment {k}: g_leak_ns = {c['g_leak_ns']}")
+
+    # conductance matrix (nS)
+    G = np.zeros((n, n))
+    for c in comps:
+        k = c["id"]
+        G[k, k] += c["g_leak_ns"]
+        if c["parent"] is not None:
+            p, g = c["parent"], c["g_axial_ns"]
+            G[k, k] += g
+            G[p, p] += g
+            G[k, p] -= g
+            G[p, k] -= g
+
+    # 2. soma input resistance
+    e0 = np.zeros(n)
+    e0[0] = 1.0
+    r_mohm = np.linalg.solve(G, e0)[0] * 1000.0
+    rep = doc["report"]
+    r_rep = rep["soma_input_resistance_dc_reduced_mohm"]
+    r_full = rep["soma_input_resistance_dc_full_mohm"]
+    rel = abs(r_mohm - r_rep) / r_rep
+    rel_full = abs(r_mohm - r_full) / r_full
+    print(f"soma input resistance: solve {r_mohm:.9g} MOhm, reported {r_rep:.9g} (rel {rel:.2e}), "
+          f"full cell {r_full:.9g} (rel {rel_full:.2e})")
+    if rel > 1e-6:
+        errors += fail("soma input resistance differs from the reported reduced value")
+    if rel_full > abs(rep["junction_effect_relative"]) + 1e-6:
+        errors += fail("soma input resistance differs from the full cell's")
+
+    # 3. feed-forward form
+    ff = doc["feed_forward"]
+    w = ff["w"]
+    y_root = ff["root_input_conductance_ns"]
+    if abs(1000.0 / y_root - r_mohm) / r_mohm > 1e-6:
+        errors += fail("root input conductance does not match the solve")
+    prod = np.ones(n)
+    for c in comps[1:]:
+        k = c["id"]
+        if not (0.0 < w[k] < 1.0):
+            errors += fail(f"w[{k}] = {w[k]} is outside (0, 1)")
+        prod[k] = prod[c["parent"]] * w[k]
+    rng = np.random.default_rng(1)
+    worst = 0.0
+    for _ in range(5):
+        i_pa = rng.uniform(-0.5, 1.5, n)
+        v_solve = np.linalg.solve(G, i_pa)[0]
+        v_ff = np.dot(i_pa, prod) / y_root
+        worst = max(worst, abs(v_ff - v_solve) / (np.abs(i_pa).sum() / y_root))
+    print(f"feed-forward form vs solve: worst relative difference {worst:.2e}")
+    if worst > 1e-6:
+        errors += fail("feed-forward form differs from the solve")
+    layers = ff["layers"]
+    if sorted(k for layer in layers for k in layer) != list(range(n)):
+        errors += fail("layers do not cover every compartment once")
+    for d, layer in enumerate(layers):
+        for k in layer:
+            if comps[k]["depth"] != d:
+                errors += fail(f"compartment {k} is in layer {d} but has depth {comps[k]['depth']}")
+
+    # 4. slowest time constant: smallest eigenvalue of C^-1/2 G C^-1/2 (1/ms)
+    s = 1.0 / np.sqrt(np.array([c["capacitance_pf"] for c in comps]))
+    lam = np.linalg.eigvalsh(G * s[:, None] * s[None, :])
+    tau = doc["parameters"]["tau_ms"]
+    tau_slow = 1.0 / lam.min()
+    rel_tau = abs(tau_slow - tau) / tau
+    print(f"slowest time constant {tau_slow:.9g} ms, tau = {tau} ms (rel {rel_tau:.2e})")
+    if rel_tau > 1e-6:
+        errors += fail("the slowest time constant is not tau")
+
+    # site map: counts add up
+    counted = sum(c["site_count"] for c in comps)
+    if counted != len(doc["site_map"]["sites"]):
+        errors += fail("site counts do not add up to the number of sites")
+
+    print("OK" if errors == 0 else f"{errors} check(s) failed")
+    return 0 if errors == 0 else 1
+
+
+if __name__ == "__main__":
+    if len(sys.argv) != 2:
+        print(__doc__)
+        sys.exit(2)
+    sys.exit(main(sys.argv[1]))
