@@ -34,9 +34,7 @@ fn batch_throughput(c: &mut Criterion) {
     let settings = Settings {
         compartments: 63,
         params: Default::default(),
-        default_diameter_um: None,
-        scale: None,
-        types: None,
+        ..Default::default()
     };
     let mut g = c.benchmark_group("batch");
     g.sample_size(10)

@@ -25,9 +25,10 @@
 //!   lines. A shard writes `summary.shard-I-of-K.{csv,jsonl}`; [`merge_summaries`] joins the K
 //!   shard tables into `summary.{csv,jsonl}`.
 
-use crate::cable::{self, Params};
-use crate::export::{WriteError, write_atomic};
+use crate::cable::{Params, PrepOptions, prepare};
+use crate::export::{TreeSource, WriteError, reduced_tree_json, write_atomic};
 use crate::morphology::Morphology;
+use crate::reduce::{ReduceOptions, Reducer, Sites};
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -144,8 +145,29 @@ pub struct Settings {
     pub default_diameter_um: Option<f64>,
     /// Coordinate scale factor (e.g. 0.001 for nm); `None` for files in µm.
     pub scale: Option<f64>,
-    /// SWC type codes kept (sorted, no repeats); `None` keeps every type.
+    /// SWC type codes kept (sorted, no repeats; the soma is always kept); `None` keeps every
+    /// type.
     pub types: Option<Vec<i32>>,
+    /// Frequency (Hz) of the soma input-impedance line of each report.
+    pub freq_hz: f64,
+    /// Junction link length as a fraction of the branch point's radius.
+    pub junction_length_fraction: f64,
+}
+
+impl Default for Settings {
+    /// The defaults of `pollard reduce` with a budget of 1.
+    fn default() -> Self {
+        let o = ReduceOptions::default();
+        Settings {
+            compartments: 1,
+            params: Params::default(),
+            default_diameter_um: None,
+            scale: None,
+            types: None,
+            freq_hz: o.freq_hz,
+            junction_length_fraction: o.junction_length_fraction,
+        }
+    }
 }
 
 impl Settings {
@@ -186,10 +208,11 @@ pub struct Row {
     pub soma_rin_full_mohm: Option<f64>,
     /// Soma input resistance of the reduced tree at DC (MΩ).
     pub soma_rin_reduced_mohm: Option<f64>,
-    /// Error over the synapse sites: median, 95th percentile and largest.
-    pub site_error_median: Option<f64>,
-    pub site_error_p95: Option<f64>,
-    pub site_error_max: Option<f64>,
+    /// Error over the synapse sites, |ln A_full − ln A_reduced| of the DC attenuation to the
+    /// soma (nepers): median, 95th percentile and largest. Empty when the cell has no sites.
+    pub site_error_median_np: Option<f64>,
+    pub site_error_p95_np: Option<f64>,
+    pub site_error_max_np: Option<f64>,
     /// Wall time of the cell's job (s), rounded to µs; kept from the run that did the work.
     pub seconds: f64,
     /// Why the cell failed.
@@ -207,9 +230,9 @@ impl Row {
             compartments: None,
             soma_rin_full_mohm: None,
             soma_rin_reduced_mohm: None,
-            site_error_median: None,
-            site_error_p95: None,
-            site_error_max: None,
+            site_error_median_np: None,
+            site_error_p95_np: None,
+            site_error_max_np: None,
             seconds,
             error: Some(error),
         }
@@ -217,7 +240,7 @@ impl Row {
 }
 
 /// The CSV header, in the column order of [`csv_line`].
-pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median,site_error_p95,site_error_max,seconds,error";
+pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,seconds,error";
 
 /// Quotes a CSV field when it holds a comma, quote or line break (RFC 4180).
 fn csv_field(s: &str) -> String {
@@ -245,9 +268,9 @@ pub fn csv_line(r: &Row) -> String {
         opt(r.compartments),
         opt(r.soma_rin_full_mohm),
         opt(r.soma_rin_reduced_mohm),
-        opt(r.site_error_median),
-        opt(r.site_error_p95),
-        opt(r.site_error_max),
+        opt(r.site_error_median_np),
+        opt(r.site_error_p95_np),
+        opt(r.site_error_max_np),
         r.seconds.to_string(),
         csv_field(r.error.as_deref().unwrap_or("")),
     ]
@@ -381,9 +404,9 @@ const FLOAT_FIELDS: [&str; 7] = [
     "total_length_um",
     "soma_rin_full_mohm",
     "soma_rin_reduced_mohm",
-    "site_error_median",
-    "site_error_p95",
-    "site_error_max",
+    "site_error_median_np",
+    "site_error_p95_np",
+    "site_error_max_np",
     "seconds",
 ];
 
@@ -447,38 +470,55 @@ struct Computed {
     row: Row,
 }
 
-/// Read, build, reduce one cell. Errors are plain messages (they go into the summary).
+/// Read, build, reduce one cell; the tree file is [`reduced_tree_json`] with the relative path
+/// as its source, so it does not depend on where the archive lies. Errors are plain messages
+/// naming the file (they go into the summary).
 fn compute(cell: &Cell, settings: &Settings) -> Result<Computed, String> {
-    let bytes =
-        std::fs::read(&cell.input).map_err(|e| format!("{}: cannot read: {e}", cell.rel))?;
-    let swc = crate::swc::parse_bytes(&bytes, &cell.rel).map_err(|e| e.to_string())?;
+    let name = cell.rel.as_str();
+    let bytes = std::fs::read(&cell.input).map_err(|e| format!("{name}: cannot read: {e}"))?;
+    let swc = crate::swc::parse_bytes(&bytes, name).map_err(|e| e.to_string())?;
     let m = Morphology::from_swc(swc).map_err(|e| e.to_string())?;
     let met = m.metrics();
-    let flat = m.flatten();
-    let net = cable::Network::build(&flat, &settings.params, 0.0)
-        .map_err(|e| format!("{}: {e}", cell.rel))?;
-    let maps = cable::Maps::new(&net);
-    let rin_full = maps.input_impedance(0).re * 1e-6;
-    let doc = serde_json::json!({
-        "file": cell.rel,
-        "settings": settings,
-        "soma_rin_full_mohm": rin_full,
-    });
-    let json = serde_json::to_vec_pretty(&doc).map_err(|e| e.to_string())?;
+    let prep = PrepOptions {
+        default_diameter_um: settings.default_diameter_um,
+        scale: settings.scale,
+    };
+    let flat = prepare(&m, &prep).map_err(|e| format!("{name}: {e}"))?;
+    let opts = ReduceOptions {
+        types: settings.types.clone(),
+        sites: Sites::Default,
+        freq_hz: settings.freq_hz,
+        junction_length_fraction: settings.junction_length_fraction,
+    };
+    let reducer =
+        Reducer::new(&flat, &settings.params, &opts).map_err(|e| format!("{name}: {e}"))?;
+    let tree = reducer.tree(settings.compartments);
+    let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
+    let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
+    let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
+    let src = TreeSource {
+        source: name,
+        point_ids: &ids,
+        point_pos: &pos,
+    };
+    let json = reduced_tree_json(&src, &reducer, &tree, &report)
+        .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
+    let e = &report.ln_attenuation_error;
+    let finite = |x: f64| x.is_finite().then_some(x);
     Ok(Computed {
-        json,
+        json: json.into_bytes(),
         row: Row {
             file: cell.rel.clone(),
             status: Status::Ok,
             points: Some(met.points),
             tips: Some(met.tips),
-            total_length_um: Some(met.total_length_um),
-            compartments: None,
-            soma_rin_full_mohm: Some(rin_full),
-            soma_rin_reduced_mohm: None,
-            site_error_median: None,
-            site_error_p95: None,
-            site_error_max: None,
+            total_length_um: finite(met.total_length_um),
+            compartments: Some(report.compartments),
+            soma_rin_full_mohm: finite(report.soma_input_resistance_dc_full_mohm),
+            soma_rin_reduced_mohm: finite(report.soma_input_resistance_dc_reduced_mohm),
+            site_error_median_np: (report.sites > 0).then_some(e.median).and_then(finite),
+            site_error_p95_np: (report.sites > 0).then_some(e.p95).and_then(finite),
+            site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
             seconds: 0.0,
             error: None,
         },

@@ -144,8 +144,26 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
             assert!(r.error.is_none());
             let rin = r.soma_rin_full_mohm.unwrap();
             assert!(rin.is_finite() && rin > 0.0, "{r:?}");
-            let tree = std::fs::read(tree_path(&out, &r.file)).unwrap();
-            serde_json::from_slice::<serde_json::Value>(&tree).unwrap();
+            let tree: serde_json::Value =
+                serde_json::from_slice(&std::fs::read(tree_path(&out, &r.file)).unwrap()).unwrap();
+            // a strict binary tree has an odd number of nodes (2L − 1 for L leaves); the
+            // budget 12 is rounded down to 11
+            let nc = tree["compartments"].as_array().unwrap().len();
+            assert_eq!(Some(nc), r.compartments);
+            assert!(nc % 2 == 1 && nc <= 11, "{nc}");
+            assert_eq!(tree["source"], r.file.as_str());
+            // the full soma input resistance agrees with the cable engine run here on the same
+            // file (a second route: network + two sweeps, Hines 1984)
+            let m = pollard::Morphology::read(&input.join(&r.file)).unwrap();
+            let net =
+                pollard::cable::Network::build(&m.flatten(), &Default::default(), 0.0).unwrap();
+            let z = pollard::cable::Maps::new(&net).input_impedance(0).re * 1e-6;
+            assert!((rin - z).abs() <= 1e-9 * z, "{rin} {z}");
+            let red = r.soma_rin_reduced_mohm.unwrap();
+            assert!(red.is_finite() && red > 0.0);
+            let emax = r.site_error_max_np.unwrap();
+            assert!(r.site_error_median_np.unwrap() <= r.site_error_p95_np.unwrap());
+            assert!(r.site_error_p95_np.unwrap() <= emax && emax.is_finite());
         } else {
             assert_eq!(r.status, Status::Failed, "{r:?}");
             let e = r.error.as_deref().unwrap();
@@ -194,7 +212,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
         close(f[4], r.total_length_um);
         close(f[6], r.soma_rin_full_mohm);
         close(f[7], r.soma_rin_reduced_mohm);
-        close(f[10], r.site_error_max);
+        close(f[10], r.site_error_max_np);
     }
 
     // the rerun does no work: no file below OUT changes, and the rows are the same
@@ -286,9 +304,7 @@ fn settings() -> Settings {
     Settings {
         compartments: BUDGET.parse().unwrap(),
         params: Default::default(),
-        default_diameter_um: None,
-        scale: None,
-        types: None,
+        ..Default::default()
     }
 }
 

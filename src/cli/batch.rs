@@ -3,7 +3,8 @@
 
 use anyhow::Context as _;
 use pollard::batch::{self, RunOptions, Settings, Shard, Status};
-use pollard::cable::Params;
+use pollard::cable::{Params, PrepOptions};
+use pollard::reduce::ReduceOptions;
 use std::io::IsTerminal as _;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -26,7 +27,8 @@ pub struct Args {
     /// The output folder (created if missing); its subfolders mirror the input's.
     #[arg(long, value_name = "OUT_DIR")]
     pub out: PathBuf,
-    /// Compartment budget of each reduced tree.
+    /// Compartments of each reduced tree, soma included (an even number is rounded down to
+    /// the odd number below; above a cell's maximum gives its maximum).
     #[arg(long, value_name = "N", required_unless_present = "merge_summaries")]
     pub compartments: Option<usize>,
     /// Specific membrane resistance Rm (Ω·cm²).
@@ -44,6 +46,13 @@ pub struct Args {
     /// Multiply coordinates and radii by this factor (e.g. 0.001 for files in nm).
     #[arg(long, value_name = "S")]
     pub scale: Option<f64>,
+    /// Frequency (Hz) of the soma input-impedance line of each report.
+    #[arg(long, value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
+    pub freq: f64,
+    /// Junction link length as a fraction of the branch point's radius.
+    #[arg(long = "junction-fraction", value_name = "F",
+          default_value_t = ReduceOptions::default().junction_length_fraction)]
+    pub junction_fraction: f64,
     /// Keep only these SWC types (comma-separated codes, e.g. 1,3,4 drops the axon).
     #[arg(long, value_name = "CODES", value_delimiter = ',')]
     pub types: Option<Vec<i32>>,
@@ -190,12 +199,29 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         default_diameter_um: a.default_diameter,
         scale: a.scale,
         types,
+        freq_hz: a.freq,
+        junction_length_fraction: a.junction_fraction,
     };
     // a flag error would fail every cell alike: say it once, before any work
     settings
         .params
-        .validate(0.0)
+        .validate(a.freq)
         .context("check the passive flags")?;
+    PrepOptions {
+        default_diameter_um: a.default_diameter,
+        scale: a.scale,
+    }
+    .validate()
+    .context("check --default-diameter and --scale")?;
+    if !(a.junction_fraction.is_finite() && (1e-9..=1.0).contains(&a.junction_fraction)) {
+        anyhow::bail!(
+            "--junction-fraction {} is outside the accepted range 1e-9 to 1",
+            a.junction_fraction
+        );
+    }
+    if settings.types.as_ref().is_some_and(|t| t.is_empty()) {
+        anyhow::bail!("--types lists no types");
+    }
     let shard = a.shard.unwrap_or(Shard::ALL);
     std::fs::create_dir_all(&a.out)
         .with_context(|| format!("{}: cannot create the output folder", a.out.display()))?;
