@@ -1,6 +1,28 @@
 //! The desktop app (behind the default `gui` feature).
+//!
+//! [`PollardApp`] owns small views, each with its own state and a `ui()` method: two
+//! [`canvas::ArborCanvas`]es sharing one camera, the [`panels::ControlsPanel`], the
+//! [`panels::PlotsPanel`], and the branching lab. The data behind them is a plain
+//! [`state::CellState`] with no egui in it. Loading and building the reduction run on background
+//! threads; a panic there is caught and shown as an error, and the previous cell stays.
 
-use std::path::PathBuf;
+pub mod canvas;
+pub mod colour;
+pub mod files;
+pub mod jobs;
+pub mod lab;
+pub mod panels;
+pub mod picture;
+pub mod state;
+
+use canvas::{ArborCanvas, Camera, ReducedLayout, Side};
+use eframe::egui::{self, Color32, Vec2};
+use files::{Dialogs, Purpose, RecentFiles};
+use jobs::Job;
+use panels::{Action, ControlsPanel, PlotsPanel};
+use state::{Cell, CellState};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 /// What the window opens on.
 pub enum Start {
@@ -13,6 +35,615 @@ pub enum Start {
 }
 
 /// Opens the window.
-pub fn run(_start: Start) -> anyhow::Result<()> {
-    anyhow::bail!("the desktop app is not built yet")
+pub fn run(start: Start) -> anyhow::Result<()> {
+    let options = eframe::NativeOptions {
+        viewport: egui::ViewportBuilder::default()
+            .with_inner_size([1560.0, 960.0])
+            .with_min_inner_size([900.0, 600.0])
+            .with_title("pollard")
+            .with_drag_and_drop(true),
+        ..Default::default()
+    };
+    eframe::run_native(
+        "pollard",
+        options,
+        Box::new(move |cc| {
+            let mut app = PollardApp::new(start, Dialogs::Native, RecentFiles::from_config());
+            app.ctx = Some(cc.egui_ctx.clone());
+            Ok(Box::new(app))
+        }),
+    )
+    .map_err(|e| anyhow::anyhow!("cannot open the window: {e}"))
+}
+
+/// Which screen is shown.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Screen {
+    Cell,
+    Lab,
+}
+
+/// A message in the status area.
+#[derive(Debug, Clone)]
+pub struct Notice {
+    pub text: String,
+    pub is_error: bool,
+}
+
+/// The app.
+pub struct PollardApp {
+    pub screen: Screen,
+    pub lab: lab::LabView,
+    /// The current cell and its maps (None only before the first load finishes).
+    pub state: Option<CellState>,
+    pub camera: Camera,
+    pub layout: ReducedLayout,
+    pub left: ArborCanvas,
+    pub right: ArborCanvas,
+    pub controls: ControlsPanel,
+    pub plots: PlotsPanel,
+    pub scale: colour::Scale,
+    colours: Option<colour::Colours>,
+    colours_version: (u64, usize),
+    pub dialogs: Dialogs,
+    pending_dialog: Option<(Purpose, std::sync::mpsc::Receiver<Option<PathBuf>>)>,
+    pub recent: RecentFiles,
+    load_job: Option<Job<CellState>>,
+    reduce_job: Option<(u64, Job<Arc<dyn state::Reduction>>)>,
+    reduce_generation: u64,
+    /// The last error (file, line, what) or other failure; shown until dismissed.
+    pub error: Option<String>,
+    /// The last thing done (a file saved, a cell opened).
+    pub notice: Option<String>,
+    /// Waiting for a screenshot to crop into a PNG.
+    pending_png: Option<(PathBuf, std::sync::mpsc::Receiver<Arc<egui::ColorImage>>)>,
+    /// The rect of the figure (canvases and colour bar) last drawn.
+    figure_rect: egui::Rect,
+    ctx: Option<egui::Context>,
+}
+
+impl PollardApp {
+    /// A new app; the first cell loads in the background.
+    pub fn new(start: Start, dialogs: Dialogs, recent: RecentFiles) -> PollardApp {
+        let mut app = PollardApp {
+            screen: Screen::Cell,
+            lab: lab::LabView::new(),
+            state: None,
+            camera: Camera::default(),
+            layout: ReducedLayout::InPlace,
+            left: ArborCanvas::new(Side::Original),
+            right: ArborCanvas::new(Side::Reduced),
+            controls: ControlsPanel::default(),
+            plots: PlotsPanel::default(),
+            scale: colour::Scale::new(),
+            colours: None,
+            colours_version: (0, 0),
+            dialogs,
+            pending_dialog: None,
+            recent,
+            load_job: None,
+            reduce_job: None,
+            reduce_generation: 0,
+            error: None,
+            notice: None,
+            pending_png: None,
+            figure_rect: egui::Rect::NOTHING,
+            ctx: None,
+        };
+        match start {
+            Start::Demo => app.open_demo(),
+            Start::File(p) => {
+                app.open_demo();
+                app.wait_idle();
+                app.open_path(&p);
+            }
+            Start::Lab => {
+                app.open_demo();
+                app.screen = Screen::Lab;
+            }
+        }
+        app
+    }
+
+    /// Loads the built-in demo cell (in the background).
+    pub fn open_demo(&mut self) {
+        self.start_load("demo cell".into(), Box::new(|| Ok(Cell::demo())));
+    }
+
+    /// Loads a file (in the background); on failure the current cell stays and the error shows.
+    pub fn open_path(&mut self, path: &Path) {
+        let p = path.to_path_buf();
+        self.start_load(path.display().to_string(), Box::new(move || Cell::read(&p)));
+    }
+
+    /// Loads one of the sample cells.
+    pub fn open_sample(&mut self, i: usize) {
+        if let Some(s) = files::samples().get(i) {
+            let (name, text) = (s.0.clone(), s.1.clone());
+            self.start_load(
+                name.clone(),
+                Box::new(move || {
+                    let m = crate::Morphology::parse(&text, &name)?;
+                    Ok(Cell::new(name, None, m))
+                }),
+            );
+        }
+    }
+
+    /// Loads a tree handed over by the lab.
+    pub fn open_morphology(&mut self, name: String, m: crate::Morphology) {
+        self.start_load(name.clone(), Box::new(move || Ok(Cell::new(name, None, m))));
+    }
+
+    fn start_load(&mut self, what: String, make: Box<dyn FnOnce() -> anyhow::Result<Cell> + Send>) {
+        let params = self.state.as_ref().map(|s| s.params).unwrap_or_default();
+        let freq = self.state.as_ref().map(|s| s.freq_hz).unwrap_or(0.0);
+        self.load_job = Some(Job::spawn(
+            format!("opening {what}"),
+            self.ctx.clone(),
+            move |progress| {
+                progress.set("reading the file");
+                let cell = make()?;
+                progress.set("computing the electrical maps");
+                CellState::new(Arc::new(cell), params, freq)
+            },
+        ));
+    }
+
+    fn start_reduction(&mut self) {
+        let Some(s) = &self.state else { return };
+        self.reduce_generation += 1;
+        let flat = s.model.flat.clone();
+        let params = s.params;
+        let job = Job::spawn(
+            "building the reduction".into(),
+            self.ctx.clone(),
+            move |p| {
+                p.set("building the collapse order");
+                state::build_reduction(&flat, &params).map_err(|e| anyhow::anyhow!(e))
+            },
+        );
+        self.reduce_job = Some((self.reduce_generation, job));
+    }
+
+    /// True while something runs in the background.
+    pub fn busy(&self) -> bool {
+        self.load_job.is_some() || self.reduce_job.is_some() || self.pending_dialog.is_some()
+    }
+
+    /// Applies finished background work. Called every frame.
+    pub fn poll(&mut self) {
+        if let Some(job) = &self.load_job
+            && let Some(r) = job.try_take()
+        {
+            let what = job.what.clone();
+            self.load_job = None;
+            match r {
+                Ok(s) => {
+                    if let Some(p) = &s.cell.path {
+                        self.recent.add(p);
+                    }
+                    let n_warn = s.cell.warnings.len();
+                    self.notice = Some(format!(
+                        "Opened {} ({} points{})",
+                        s.cell.name,
+                        s.cell.morph.len(),
+                        if n_warn > 0 {
+                            format!(", {n_warn} warning(s) listed under Warnings")
+                        } else {
+                            String::new()
+                        }
+                    ));
+                    self.controls.sync_from(&s);
+                    self.state = Some(s);
+                    self.camera = Camera::default();
+                    self.error = None;
+                    self.start_reduction();
+                }
+                Err(e) => {
+                    self.error = Some(format!(
+                        "Could not open {}: {e}",
+                        what.trim_start_matches("opening ")
+                    ));
+                }
+            }
+        }
+        if let Some((generation, job)) = &self.reduce_job
+            && let Some(r) = job.try_take()
+        {
+            let generation = *generation;
+            self.reduce_job = None;
+            if generation == self.reduce_generation
+                && let Some(s) = &mut self.state
+            {
+                s.set_reduction(r.map_err(|e| e.to_string()));
+            }
+        }
+        if let Some((purpose, rx)) = &self.pending_dialog
+            && let Ok(answer) = rx.try_recv()
+        {
+            let purpose = *purpose;
+            self.pending_dialog = None;
+            if let Some(path) = answer {
+                self.dialog_answered(purpose, path);
+            }
+        }
+        if let Some(lab_tree) = self.lab.take_send_to_main() {
+            self.open_morphology(lab_tree.0, lab_tree.1);
+            self.screen = Screen::Cell;
+        }
+    }
+
+    /// Blocks until background work is done and applied (for tests and scripted starts).
+    pub fn wait_idle(&mut self) {
+        let start = std::time::Instant::now();
+        while self.load_job.is_some() || self.reduce_job.is_some() || self.pending_dialog.is_some()
+        {
+            self.poll();
+            std::thread::sleep(std::time::Duration::from_millis(2));
+            if start.elapsed().as_secs() > 300 {
+                break;
+            }
+        }
+    }
+
+    fn ask(&mut self, purpose: Purpose) {
+        if self.pending_dialog.is_some() {
+            return;
+        }
+        let name = self
+            .state
+            .as_ref()
+            .map(|s| s.cell.name.trim_end_matches(".swc").to_string())
+            .unwrap_or_else(|| "cell".into());
+        let rx = self.dialogs.ask(purpose, &name);
+        self.pending_dialog = Some((purpose, rx));
+        self.poll();
+    }
+
+    fn dialog_answered(&mut self, purpose: Purpose, path: PathBuf) {
+        let result = match purpose {
+            Purpose::Open => {
+                self.open_path(&path);
+                return;
+            }
+            Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveSvg => self.export(purpose, &path),
+            Purpose::SavePng => {
+                if let Some(ctx) = &self.ctx {
+                    let (tx, rx) = std::sync::mpsc::channel();
+                    let c = ctx.clone();
+                    ctx.request_screenshot(move |image| {
+                        let _ = tx.send(image);
+                        c.request_repaint();
+                    });
+                    self.pending_png = Some((path, rx));
+                }
+                return;
+            }
+        };
+        self.report(result, &path);
+    }
+
+    fn report(&mut self, result: anyhow::Result<()>, path: &Path) {
+        match result {
+            Ok(()) => {
+                self.notice = Some(format!("Saved {}", path.display()));
+                self.error = None;
+            }
+            Err(e) => self.error = Some(format!("Could not save {}: {e:#}", path.display())),
+        }
+    }
+
+    /// Writes the reduced tree (JSON or SWC) or the figure (SVG) to `path`.
+    pub fn export(&mut self, purpose: Purpose, path: &Path) -> anyhow::Result<()> {
+        let s = self
+            .state
+            .as_ref()
+            .ok_or_else(|| anyhow::anyhow!("no cell is open"))?;
+        let inputs: Vec<&Path> = s.cell.path.iter().map(|p| p.as_path()).collect();
+        let bytes = match purpose {
+            Purpose::SaveJson | Purpose::SaveSwc => {
+                let r = s.reduction.as_ref().ok_or_else(|| {
+                    anyhow::anyhow!("there is no reduced tree yet ({})", s.reduction_note)
+                })?;
+                if purpose == Purpose::SaveJson {
+                    r.export_json(s.budget)?
+                } else {
+                    r.export_swc(s.budget)?
+                }
+                .into_bytes()
+            }
+            Purpose::SaveSvg => {
+                let colours = colour::colours(s, &self.scale);
+                picture::svg_figure(s, &self.camera, self.layout, &colours, &self.scale)
+                    .into_bytes()
+            }
+            Purpose::SavePng | Purpose::Open => anyhow::bail!("not a direct export"),
+        };
+        crate::export::write_atomic(path, &bytes, &inputs)?;
+        Ok(())
+    }
+
+    fn apply(&mut self, action: Action) {
+        let mut rebuild_reduction = false;
+        let result: anyhow::Result<()> = (|| {
+            match action {
+                Action::Open => self.ask(Purpose::Open),
+                Action::OpenRecent(p) => self.open_path(&p),
+                Action::OpenSample(i) => self.open_sample(i),
+                Action::OpenDemo => self.open_demo(),
+                Action::Save(p) => self.ask(p),
+                Action::Camera(c) => self.camera = c,
+                Action::Layout(l) => self.layout = l,
+                Action::ClearRecent => self.recent.clear(),
+                other => {
+                    let Some(s) = &mut self.state else {
+                        return Ok(());
+                    };
+                    match other {
+                        Action::Electrical {
+                            params,
+                            freq_hz,
+                            settle,
+                        } => {
+                            let params_changed = params != s.params;
+                            s.set_electrical(params, freq_hz)?;
+                            if params_changed && settle {
+                                rebuild_reduction = true;
+                            } else if params_changed {
+                                self.controls.unsettled = true;
+                            }
+                        }
+                        Action::Settle => {
+                            if s.reduction.is_none() && self.reduce_job.is_none() {
+                                rebuild_reduction = true;
+                            }
+                        }
+                        Action::Budget(b) => s.set_budget(b),
+                        Action::Kept(k, on) => {
+                            s.set_kept(k, on)?;
+                            rebuild_reduction = true;
+                        }
+                        Action::ColourBy(c) => {
+                            s.colour_by = c;
+                            s.colour_version += 1;
+                        }
+                        Action::Unit(u) => {
+                            s.unit = u;
+                            s.colour_version += 1;
+                        }
+                        _ => {}
+                    }
+                }
+            }
+            Ok(())
+        })();
+        if let Err(e) = result {
+            self.error = Some(format!("{e:#}"));
+        }
+        if rebuild_reduction {
+            self.start_reduction();
+        }
+    }
+
+    /// Sets the synapse site (a whole-tree node), as a click on the original does.
+    pub fn click_site(&mut self, node: usize) {
+        if let Some(s) = &mut self.state {
+            s.set_site(Some(node));
+        }
+    }
+
+    fn colours(&mut self) -> Option<&colour::Colours> {
+        let s = self.state.as_ref()?;
+        let key = (s.colour_version, Arc::as_ptr(&s.cell) as usize);
+        if self.colours.is_none() || self.colours_version != key {
+            self.colours = Some(colour::colours(s, &self.scale));
+            self.colours_version = key;
+        }
+        self.colours.as_ref()
+    }
+
+    /// Draws the whole app into `ui` (the eframe entry point and the tests call this).
+    pub fn show(&mut self, ui: &mut egui::Ui) {
+        if self.ctx.is_none() {
+            self.ctx = Some(ui.ctx().clone());
+        }
+        self.poll();
+        self.handle_drops(ui);
+        self.handle_screenshot(ui);
+        let mut actions = Vec::new();
+
+        egui::Panel::top("top_bar").show(ui, |ui| {
+            self.top_bar(ui, &mut actions);
+        });
+
+        if self.screen == Screen::Lab {
+            egui::CentralPanel::default().show(ui, |ui| self.lab.ui(ui));
+            for a in actions {
+                self.apply(a);
+            }
+            return;
+        }
+
+        egui::Panel::left("controls")
+            .resizable(true)
+            .default_size(300.0)
+            .show(ui, |ui| {
+                egui::ScrollArea::vertical().show(ui, |ui| {
+                    self.controls.ui(
+                        ui,
+                        self.state.as_ref(),
+                        &self.recent,
+                        self.layout,
+                        &self.camera,
+                        &mut actions,
+                    );
+                });
+            });
+
+        egui::Panel::bottom("plots")
+            .resizable(true)
+            .default_size(250.0)
+            .show(ui, |ui| {
+                if let Some(s) = &self.state {
+                    self.plots.ui(ui, s);
+                }
+            });
+
+        egui::CentralPanel::default().show(ui, |ui| {
+            self.central(ui);
+        });
+
+        for a in actions {
+            self.apply(a);
+        }
+        if self.busy()
+            && let Some(ctx) = &self.ctx
+        {
+            ctx.request_repaint_after(std::time::Duration::from_millis(50));
+        }
+    }
+
+    fn top_bar(&mut self, ui: &mut egui::Ui, actions: &mut Vec<Action>) {
+        ui.horizontal(|ui| {
+            ui.heading("pollard");
+            ui.separator();
+            ui.selectable_value(&mut self.screen, Screen::Cell, "Cell view");
+            ui.selectable_value(&mut self.screen, Screen::Lab, "Branching lab");
+            ui.separator();
+            if let Some(s) = &self.state {
+                ui.label(format!(
+                    "{} — {} points, {} in the model",
+                    s.cell.name,
+                    s.cell.morph.len(),
+                    s.model.flat.len()
+                ));
+            }
+            let busy: Option<String> = self
+                .load_job
+                .as_ref()
+                .map(|j| j.status())
+                .or_else(|| self.reduce_job.as_ref().map(|j| j.1.status()));
+            if let Some(b) = busy {
+                ui.spinner();
+                ui.label(b);
+            }
+        });
+        if let Some(e) = self.error.clone() {
+            ui.horizontal(|ui| {
+                ui.colored_label(Color32::from_rgb(255, 110, 100), format!("⚠ {e}"));
+                if ui.button("Dismiss").clicked() {
+                    self.error = None;
+                }
+            });
+        } else if let Some(n) = &self.notice {
+            ui.label(n);
+        }
+        let _ = actions;
+    }
+
+    fn central(&mut self, ui: &mut egui::Ui) {
+        if self.state.is_none() {
+            ui.centered_and_justified(|ui| {
+                ui.spinner();
+            });
+            return;
+        }
+        let top = ui.cursor().min;
+        self.colours();
+        let colours = self.colours.take();
+        let Some(colours) = colours else { return };
+        let s = self.state.as_ref().expect("checked above");
+        canvas::colour_bar(ui, s, &colours, &self.scale);
+        let avail = ui.available_size();
+        let w = ((avail.x - 8.0) / 2.0).max(50.0);
+        let h = (avail.y - 4.0).max(50.0);
+        let mut clicked = None;
+        ui.horizontal(|ui| {
+            let e = self.left.ui(
+                ui,
+                s,
+                &colours,
+                &mut self.camera,
+                self.layout,
+                Vec2::new(w, h),
+            );
+            clicked = e.clicked_node;
+            self.right.ui(
+                ui,
+                s,
+                &colours,
+                &mut self.camera,
+                self.layout,
+                Vec2::new(w, h),
+            );
+        });
+        self.figure_rect = egui::Rect::from_min_max(top, self.right.last_rect.max);
+        self.colours = Some(colours);
+        if let Some(k) = clicked {
+            self.click_site(k);
+        }
+    }
+
+    fn handle_drops(&mut self, ui: &mut egui::Ui) {
+        let (dropped, hovering) = ui.input(|i| {
+            (
+                i.raw
+                    .dropped_files
+                    .iter()
+                    .map(|f| f.path().to_path_buf())
+                    .find(|p| !p.as_os_str().is_empty()),
+                !i.raw.hovered_files.is_empty(),
+            )
+        });
+        if let Some(p) = dropped {
+            self.screen = Screen::Cell;
+            self.open_path(&p);
+        }
+        if hovering {
+            let painter = ui.ctx().layer_painter(egui::LayerId::new(
+                egui::Order::Foreground,
+                egui::Id::unique("pollard-drop-overlay"),
+            ));
+            let r = ui.ctx().content_rect();
+            painter.rect_filled(r, 0.0, Color32::from_black_alpha(170));
+            painter.text(
+                r.center(),
+                egui::Align2::CENTER_CENTER,
+                "Drop an SWC file to open it",
+                egui::FontId::proportional(26.0),
+                Color32::WHITE,
+            );
+        }
+    }
+
+    fn handle_screenshot(&mut self, ui: &mut egui::Ui) {
+        let Some((_, rx)) = &self.pending_png else {
+            return;
+        };
+        let Ok(image) = rx.try_recv() else {
+            return;
+        };
+        let Some((path, _)) = self.pending_png.take() else {
+            return;
+        };
+        let ppp = ui.ctx().pixels_per_point();
+        let inputs: Vec<PathBuf> = self
+            .state
+            .as_ref()
+            .and_then(|s| s.cell.path.clone())
+            .into_iter()
+            .collect();
+        let r = picture::png_of_region(&image, self.figure_rect, ppp).and_then(|bytes| {
+            let ins: Vec<&Path> = inputs.iter().map(|p| p.as_path()).collect();
+            crate::export::write_atomic(&path, &bytes, &ins).map_err(anyhow::Error::from)
+        });
+        self.report(r, &path);
+    }
+}
+
+impl eframe::App for PollardApp {
+    fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
+        self.show(ui);
+    }
 }

@@ -1,0 +1,449 @@
+//! The side panel of controls and the plots under the drawings.
+
+use super::canvas::{AxisView, Camera, ReducedLayout};
+use super::files::{Purpose, RecentFiles};
+use super::state::{CellState, ColourBy, LogUnit};
+use crate::cable::Params;
+use crate::morphology::kind_name;
+use eframe::egui::{self, Color32};
+use egui_plot::{Legend, Line, Plot, Points, VLine};
+use std::path::PathBuf;
+
+/// Something the user asked for; the app applies it after drawing.
+#[derive(Debug, Clone)]
+pub enum Action {
+    Open,
+    OpenRecent(PathBuf),
+    OpenSample(usize),
+    OpenDemo,
+    ClearRecent,
+    Save(Purpose),
+    Camera(Camera),
+    Layout(ReducedLayout),
+    /// New membrane parameters or frequency; `settle` is false while a value is being dragged.
+    Electrical {
+        params: Params,
+        freq_hz: f64,
+        settle: bool,
+    },
+    /// A drag ended: rebuild what waits on settled values.
+    Settle,
+    Budget(usize),
+    Kept(i32, bool),
+    ColourBy(ColourBy),
+    Unit(LogUnit),
+}
+
+/// The controls: files, membrane, frequency, budget, types, colouring, view and export.
+#[derive(Debug, Clone)]
+pub struct ControlsPanel {
+    pub params: Params,
+    pub freq_hz: f64,
+    pub budget: usize,
+    /// A parameter changed during a drag; the reduction is rebuilt when it ends.
+    pub unsettled: bool,
+}
+
+impl Default for ControlsPanel {
+    fn default() -> Self {
+        ControlsPanel {
+            params: Params::default(),
+            freq_hz: 0.0,
+            budget: 16,
+            unsettled: false,
+        }
+    }
+}
+
+impl ControlsPanel {
+    /// Takes the values of a freshly loaded state.
+    pub fn sync_from(&mut self, s: &CellState) {
+        self.params = s.params;
+        self.freq_hz = s.freq_hz;
+        self.budget = s.budget;
+    }
+
+    pub fn ui(
+        &mut self,
+        ui: &mut egui::Ui,
+        state: Option<&CellState>,
+        recent: &RecentFiles,
+        layout: ReducedLayout,
+        cam: &Camera,
+        out: &mut Vec<Action>,
+    ) {
+        ui.add_space(4.0);
+        ui.strong("Cell");
+        ui.horizontal_wrapped(|ui| {
+            if ui
+                .button("Open file…")
+                .on_hover_text(
+                    "Open an SWC reconstruction (you can also drop a file on the window)",
+                )
+                .clicked()
+            {
+                out.push(Action::Open);
+            }
+            ui.menu_button("Recent", |ui| {
+                if recent.list.is_empty() {
+                    ui.label("No files opened yet");
+                }
+                for p in &recent.list {
+                    let name = p
+                        .file_name()
+                        .map(|n| n.to_string_lossy().into_owned())
+                        .unwrap_or_default();
+                    if ui
+                        .button(name)
+                        .on_hover_text(p.display().to_string())
+                        .clicked()
+                    {
+                        out.push(Action::OpenRecent(p.clone()));
+                        ui.close();
+                    }
+                }
+                if !recent.list.is_empty() && ui.button("Forget these").clicked() {
+                    out.push(Action::ClearRecent);
+                    ui.close();
+                }
+            });
+            ui.menu_button("Samples", |ui| {
+                for (i, (name, _)) in super::files::samples().iter().enumerate() {
+                    if ui.button(name).clicked() {
+                        out.push(Action::OpenSample(i));
+                        ui.close();
+                    }
+                }
+            });
+        });
+        let Some(s) = state else {
+            ui.label("Opening…");
+            return;
+        };
+        if !s.cell.warnings.is_empty() {
+            egui::CollapsingHeader::new(format!("Warnings ({})", s.cell.warnings.len()))
+                .default_open(true)
+                .show(ui, |ui| {
+                    for w in &s.cell.warnings {
+                        ui.colored_label(Color32::from_rgb(240, 200, 90), w);
+                    }
+                });
+        }
+
+        ui.separator();
+        ui.strong("Membrane and cytoplasm");
+        let mut p = self.params;
+        let mut any_drag_end = false;
+        let mut changed = false;
+        let mut dragging = false;
+        egui::Grid::new("membrane").num_columns(2).show(ui, |ui| {
+            for (label, hint, v, lo, hi, unit) in [
+                (
+                    "Membrane resistance",
+                    "Rm: how leaky the membrane is; higher means less current lost",
+                    &mut p.rm_ohm_cm2,
+                    100.0,
+                    1e6,
+                    " Ω·cm²",
+                ),
+                (
+                    "Axial resistivity",
+                    "Ra: resistance of the cytoplasm along the neurites",
+                    &mut p.ra_ohm_cm,
+                    10.0,
+                    1000.0,
+                    " Ω·cm",
+                ),
+                (
+                    "Membrane capacitance",
+                    "Cm: charge stored per area; matters above DC",
+                    &mut p.cm_uf_cm2,
+                    0.1,
+                    10.0,
+                    " µF/cm²",
+                ),
+            ] {
+                ui.label(label).on_hover_text(hint);
+                let speed = *v * 0.005;
+                let r = ui.add(
+                    egui::DragValue::new(v)
+                        .range(lo..=hi)
+                        .speed(speed)
+                        .max_decimals(2)
+                        .suffix(unit),
+                );
+                let r = r.on_hover_text(hint);
+                changed |= r.changed();
+                dragging |= r.dragged();
+                any_drag_end |= r.drag_stopped();
+                ui.end_row();
+            }
+        });
+        ui.label(format!("Membrane time constant {:.1} ms", p.tau_ms()));
+
+        ui.add_space(4.0);
+        ui.strong("Frequency");
+        let mut f = self.freq_hz;
+        let r = ui.add(
+            egui::Slider::new(&mut f, 0.0..=1000.0)
+                .logarithmic(true)
+                .smallest_positive(1.0)
+                .suffix(" Hz")
+                .text("Frequency")
+                .custom_formatter(|v, _| {
+                    if v < 0.5 {
+                        "0 (DC)".into()
+                    } else {
+                        format!("{v:.0}")
+                    }
+                }),
+        );
+        let r = r.on_hover_text("0 is a steady current (DC); higher frequencies attenuate more");
+        changed |= r.changed();
+        dragging |= r.dragged();
+        any_drag_end |= r.drag_stopped();
+        if changed {
+            self.params = p;
+            self.freq_hz = f;
+            out.push(Action::Electrical {
+                params: p,
+                freq_hz: f,
+                settle: !dragging,
+            });
+        }
+        if any_drag_end || (self.unsettled && !dragging && !changed) {
+            self.unsettled = false;
+            out.push(Action::Settle);
+        }
+
+        ui.separator();
+        ui.strong("Compartments");
+        match &s.reduction {
+            Some(r) => {
+                let (lo, hi) = (r.min_compartments(), r.max_compartments().max(1));
+                let mut b = s.budget.clamp(lo, hi);
+                let resp = ui.add(
+                    egui::Slider::new(&mut b, lo..=hi)
+                        .logarithmic(hi > 64)
+                        .text("Compartments"),
+                );
+                resp.on_hover_text("How many compartments the reduced tree may use");
+                if b != s.budget {
+                    self.budget = b;
+                    out.push(Action::Budget(b));
+                }
+                if let Some(red) = &s.reduced {
+                    ui.label(format!("{} compartments drawn", red.tree.len()));
+                }
+            }
+            None => {
+                ui.add_enabled(
+                    false,
+                    egui::Slider::new(&mut self.budget, 1..=16).text("Compartments"),
+                );
+                ui.label(&s.reduction_note);
+            }
+        }
+
+        ui.separator();
+        ui.strong("Neurite types in the model");
+        for (&k, &on) in &s.kept {
+            let mut v = on;
+            if ui.checkbox(&mut v, capitalised(kind_name(k))).changed() {
+                out.push(Action::Kept(k, v));
+            }
+        }
+
+        ui.separator();
+        ui.strong("Colour the arbors by");
+        for c in ColourBy::ALL {
+            if ui.radio(s.colour_by == c, c.label()).clicked() && s.colour_by != c {
+                out.push(Action::ColourBy(c));
+            }
+        }
+        ui.horizontal(|ui| {
+            ui.label("Attenuation in");
+            for (u, name) in [(LogUnit::Decibel, "dB"), (LogUnit::Neper, "natural log")] {
+                if ui.radio(s.unit == u, name).clicked() && s.unit != u {
+                    out.push(Action::Unit(u));
+                }
+            }
+        });
+        ui.label("Click a point on the original to make it the synapse site.");
+
+        ui.separator();
+        ui.strong("View");
+        ui.horizontal_wrapped(|ui| {
+            if ui
+                .button("Reset")
+                .on_hover_text("Whole cell, seen from the front")
+                .clicked()
+            {
+                out.push(Action::Camera(Camera::default()));
+            }
+            for (v, name, hint) in [
+                (AxisView::Front, "Front", "x to the right, y up"),
+                (AxisView::Side, "Side", "z to the right, y up"),
+                (AxisView::Top, "Top", "x to the right, z up"),
+            ] {
+                if ui.button(name).on_hover_text(hint).clicked() {
+                    out.push(Action::Camera(Camera {
+                        zoom: cam.zoom,
+                        pan: cam.pan,
+                        ..Camera::axis(v)
+                    }));
+                }
+            }
+        });
+        ui.label("Drag to turn, right-drag or shift-drag to shift, scroll to zoom, double-click to reset.");
+        ui.horizontal(|ui| {
+            ui.label("Reduced tree");
+            for (l, name) in [
+                (ReducedLayout::InPlace, "in place"),
+                (ReducedLayout::Dendrogram, "as a dendrogram"),
+            ] {
+                if ui.radio(layout == l, name).clicked() && layout != l {
+                    out.push(Action::Layout(l));
+                }
+            }
+        });
+
+        ui.separator();
+        ui.strong("Save");
+        ui.horizontal_wrapped(|ui| {
+            let has_tree = s.reduction.is_some();
+            if ui
+                .add_enabled(has_tree, egui::Button::new("Reduced tree (JSON)…"))
+                .clicked()
+            {
+                out.push(Action::Save(Purpose::SaveJson));
+            }
+            if ui
+                .add_enabled(has_tree, egui::Button::new("Reduced tree (SWC)…"))
+                .clicked()
+            {
+                out.push(Action::Save(Purpose::SaveSwc));
+            }
+            if ui.button("Figure (SVG)…").clicked() {
+                out.push(Action::Save(Purpose::SaveSvg));
+            }
+            if ui.button("Figure (PNG)…").clicked() {
+                out.push(Action::Save(Purpose::SavePng));
+            }
+        });
+    }
+}
+
+fn capitalised(s: &str) -> String {
+    let mut c = s.chars();
+    match c.next() {
+        Some(f) => f.to_uppercase().collect::<String>() + c.as_str(),
+        None => String::new(),
+    }
+}
+
+/// Which plot is shown.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PlotKind {
+    Attenuation,
+    Error,
+    Sholl,
+}
+
+/// The plots under the drawings.
+#[derive(Debug, Clone)]
+pub struct PlotsPanel {
+    pub shown: PlotKind,
+}
+
+impl Default for PlotsPanel {
+    fn default() -> Self {
+        PlotsPanel {
+            shown: PlotKind::Attenuation,
+        }
+    }
+}
+
+/// At most this many original points go into the attenuation plot (evenly thinned).
+const PLOT_POINTS: usize = 20_000;
+
+impl PlotsPanel {
+    pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
+        ui.horizontal(|ui| {
+            ui.selectable_value(
+                &mut self.shown,
+                PlotKind::Attenuation,
+                "Attenuation vs distance",
+            );
+            ui.selectable_value(&mut self.shown, PlotKind::Error, "Error vs compartments");
+            ui.selectable_value(&mut self.shown, PlotKind::Sholl, "Sholl profile");
+        });
+        match self.shown {
+            PlotKind::Attenuation => {
+                let (orig, red) = s.attenuation_profile();
+                let step = orig.len().div_ceil(PLOT_POINTS).max(1);
+                let thinned: Vec<[f64; 2]> = orig.iter().step_by(step).copied().collect();
+                let what = if s.colour_by == ColourBy::ToSoma {
+                    "reaching the soma"
+                } else {
+                    "from the site"
+                };
+                Plot::new("attenuation")
+                    .legend(Legend::default())
+                    .x_axis_label("path distance from the soma (µm)")
+                    .y_axis_label(format!("attenuation {what} ({})", s.unit.suffix()))
+                    .show(ui, |pu| {
+                        pu.points(
+                            Points::new("original points", thinned)
+                                .radius(1.2)
+                                .color(Color32::from_rgb(150, 150, 160)),
+                        );
+                        if !red.is_empty() {
+                            pu.points(
+                                Points::new("reduced compartments", red)
+                                    .radius(4.0)
+                                    .color(Color32::from_rgb(250, 170, 60)),
+                            );
+                        }
+                    });
+            }
+            PlotKind::Error => match &s.reduction {
+                Some(r) => {
+                    let curve: Vec<[f64; 2]> = r
+                        .error_curve()
+                        .into_iter()
+                        .filter(|(_, e)| e.is_finite())
+                        .map(|(b, e)| [b as f64, e])
+                        .collect();
+                    Plot::new("error")
+                        .legend(Legend::default())
+                        .x_axis_label("compartments")
+                        .y_axis_label("error")
+                        .show(ui, |pu| {
+                            pu.line(
+                                Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)),
+                            );
+                            pu.vline(
+                                VLine::new("current", s.budget as f64)
+                                    .color(Color32::from_rgb(250, 170, 60)),
+                            );
+                        });
+                }
+                None => {
+                    ui.label(&s.reduction_note);
+                }
+            },
+            PlotKind::Sholl => {
+                let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
+                Plot::new("sholl")
+                    .x_axis_label("distance from the soma centre (µm)")
+                    .y_axis_label(format!("crossings (every {} µm)", s.cell.sholl_step))
+                    .show(ui, |pu| {
+                        pu.line(
+                            Line::new("crossings", pts).color(Color32::from_rgb(110, 215, 140)),
+                        );
+                    });
+            }
+        }
+    }
+}

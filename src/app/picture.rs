@@ -1,0 +1,392 @@
+//! Pictures for figures: an SVG of both drawings with the colour bar (drawn from the data, so it
+//! scales cleanly), and a PNG cut from a screenshot of the window.
+
+use super::canvas::{Camera, Projector, ReducedLayout, dendrogram_layout};
+use super::colour::{self, Colours, FAINT, Scale, hex};
+use super::state::{CellState, nice_step};
+use crate::morphology::NONE;
+use eframe::egui::{self, Color32, Pos2, Rect, Vec2};
+use std::fmt::Write;
+
+const PANEL_W: f32 = 640.0;
+const PANEL_H: f32 = 560.0;
+const BAR_H: f32 = 60.0;
+
+fn opacity(c: Color32) -> f32 {
+    c.a() as f32 / 255.0
+}
+
+/// Unmultiplies a premultiplied colour for SVG.
+fn plain(c: Color32) -> Color32 {
+    let a = c.a();
+    if a == 0 || a == 255 {
+        return c;
+    }
+    let f = 255.0 / a as f32;
+    Color32::from_rgb(
+        (c.r() as f32 * f).min(255.0) as u8,
+        (c.g() as f32 * f).min(255.0) as u8,
+        (c.b() as f32 * f).min(255.0) as u8,
+    )
+}
+
+fn arbor(out: &mut String, s: &CellState, proj: &Projector, colour_of: &dyn Fn(usize) -> Color32) {
+    let f = &s.cell.flat;
+    let pts: Vec<Pos2> = f.pos.iter().map(|&p| proj.project(p)).collect();
+    for k in 1..f.len() {
+        let a = pts[f.parent[k] as usize];
+        let b = pts[k];
+        let r = f.r_dist_um[k];
+        let w = if r.is_finite() {
+            (2.0 * r as f32 * proj.scale).max(0.8)
+        } else {
+            0.8
+        };
+        let c = colour_of(k);
+        let _ = writeln!(
+            out,
+            r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{}" stroke-opacity="{:.2}" stroke-width="{:.2}" stroke-linecap="round"/>"#,
+            a.x,
+            a.y,
+            b.x,
+            b.y,
+            hex(plain(c)),
+            opacity(c),
+            w
+        );
+    }
+    if !pts.is_empty() {
+        let c = colour_of(0);
+        let r = (s.cell.soma_radius_um as f32 * proj.scale).max(3.0);
+        let _ = writeln!(
+            out,
+            r#"<circle cx="{:.2}" cy="{:.2}" r="{:.2}" fill="{}" fill-opacity="{:.2}"/>"#,
+            pts[0].x,
+            pts[0].y,
+            r,
+            hex(plain(c)),
+            opacity(c)
+        );
+    }
+}
+
+fn text(out: &mut String, x: f32, y: f32, size: f32, anchor: &str, t: &str) {
+    let t = t
+        .replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;");
+    let _ = writeln!(
+        out,
+        r##"<text x="{x:.1}" y="{y:.1}" font-family="sans-serif" font-size="{size}" fill="#e6e6e6" text-anchor="{anchor}">{t}</text>"##
+    );
+}
+
+fn scale_bar(out: &mut String, proj: &Projector, rect: Rect) {
+    let um = nice_step(0.18 * rect.width() as f64 / proj.scale as f64);
+    let len = um as f32 * proj.scale;
+    let y = rect.bottom() - 16.0;
+    let x0 = rect.left() + 16.0;
+    let _ = writeln!(
+        out,
+        r##"<line x1="{x0:.1}" y1="{y:.1}" x2="{:.1}" y2="{y:.1}" stroke="#e6e6e6" stroke-width="2"/>"##,
+        x0 + len
+    );
+    text(
+        out,
+        x0 + len / 2.0,
+        y - 6.0,
+        12.0,
+        "middle",
+        &format!("{um} µm"),
+    );
+}
+
+/// Both drawings side by side with the shared colour bar, as SVG text.
+pub fn svg_figure(
+    s: &CellState,
+    cam: &Camera,
+    layout: ReducedLayout,
+    colours: &Colours,
+    scale: &Scale,
+) -> String {
+    let w = 2.0 * PANEL_W;
+    let h = PANEL_H + BAR_H;
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}">"#
+    );
+    let _ = writeln!(out, r##"<rect width="{w}" height="{h}" fill="#121218"/>"##);
+    let left = Rect::from_min_size(Pos2::new(0.0, BAR_H), Vec2::new(PANEL_W, PANEL_H));
+    let right = Rect::from_min_size(Pos2::new(PANEL_W, BAR_H), Vec2::new(PANEL_W, PANEL_H));
+    let cell = &s.cell;
+
+    // left: the original
+    let proj = Projector::new(cam, left, cell.centre, cell.extent_radius_um);
+    out.push_str("<g id=\"original\">\n");
+    arbor(&mut out, s, &proj, &|k| colours.nodes[k]);
+    if let Some(site) = s.site {
+        let p = proj.project(cell.flat.pos[site]);
+        let _ = writeln!(
+            out,
+            r#"<circle cx="{:.2}" cy="{:.2}" r="7" fill="none" stroke="{}" stroke-width="2.5"/>"#,
+            p.x,
+            p.y,
+            hex(colour::SITE)
+        );
+    }
+    scale_bar(&mut out, &proj, left);
+    text(
+        &mut out,
+        left.left() + 10.0,
+        left.top() + 20.0,
+        15.0,
+        "start",
+        "Original",
+    );
+    out.push_str("</g>\n");
+
+    // right: the reduced tree
+    out.push_str("<g id=\"reduced\">\n");
+    let rproj = Projector::new(cam, right, cell.centre, cell.extent_radius_um);
+    match &s.reduced {
+        Some(r) => {
+            let t = &r.tree;
+            let pts: Vec<Pos2> = match layout {
+                ReducedLayout::InPlace => {
+                    arbor(&mut out, s, &rproj, &|_| FAINT);
+                    t.pos.iter().map(|&p| rproj.project(p)).collect()
+                }
+                ReducedLayout::Dendrogram => {
+                    let inner = right.shrink2(Vec2::new(24.0, 34.0));
+                    dendrogram_layout(&t.parent)
+                        .into_iter()
+                        .map(|(x, y)| {
+                            Pos2::new(
+                                inner.left() + x as f32 * inner.width(),
+                                inner.top() + y as f32 * inner.height(),
+                            )
+                        })
+                        .collect()
+                }
+            };
+            for c in 0..t.len() {
+                let p = t.parent[c];
+                if p == NONE {
+                    continue;
+                }
+                let a = pts[p as usize];
+                let b = pts[c];
+                let col = hex(colours.comps[c]);
+                if layout == ReducedLayout::Dendrogram {
+                    let _ = writeln!(
+                        out,
+                        r#"<polyline points="{:.2},{:.2} {:.2},{:.2} {:.2},{:.2}" fill="none" stroke="{col}" stroke-width="2"/>"#,
+                        a.x, a.y, b.x, a.y, b.x, b.y
+                    );
+                } else {
+                    let _ = writeln!(
+                        out,
+                        r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{col}" stroke-width="2"/>"#,
+                        a.x, a.y, b.x, b.y
+                    );
+                }
+            }
+            for (c, p) in pts.iter().enumerate() {
+                let rad = if layout == ReducedLayout::InPlace {
+                    ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * rproj.scale)
+                        .clamp(3.0, 14.0)
+                } else {
+                    3.5
+                };
+                let _ = writeln!(
+                    out,
+                    r##"<circle cx="{:.2}" cy="{:.2}" r="{rad:.2}" fill="{}" stroke="#141414"/>"##,
+                    p.x,
+                    p.y,
+                    hex(colours.comps[c])
+                );
+            }
+            if let Some(sc) = r.site_comp {
+                let _ = writeln!(
+                    out,
+                    r#"<circle cx="{:.2}" cy="{:.2}" r="9" fill="none" stroke="{}" stroke-width="2.5"/>"#,
+                    pts[sc].x,
+                    pts[sc].y,
+                    hex(colour::SITE)
+                );
+            }
+            if layout == ReducedLayout::InPlace {
+                scale_bar(&mut out, &rproj, right);
+            }
+            text(
+                &mut out,
+                right.left() + 10.0,
+                right.top() + 20.0,
+                15.0,
+                "start",
+                &format!("Reduced: {} compartments", t.len()),
+            );
+        }
+        None => {
+            text(
+                &mut out,
+                right.center().x,
+                right.center().y,
+                15.0,
+                "middle",
+                &s.reduction_note,
+            );
+        }
+    }
+    out.push_str("</g>\n");
+
+    // the colour bar
+    out.push_str("<g id=\"colour-bar\">\n");
+    if s.colour_by.is_continuous() {
+        out.push_str("<defs><linearGradient id=\"heat\" x1=\"0\" x2=\"1\" y1=\"0\" y2=\"0\">\n");
+        for i in 0..=16 {
+            let t = i as f64 / 16.0;
+            let _ = writeln!(
+                out,
+                r#"<stop offset="{:.4}" stop-color="{}"/>"#,
+                t,
+                hex(scale.at(t))
+            );
+        }
+        out.push_str("</linearGradient></defs>\n");
+        let (lo, hi) = colours.range;
+        let x0 = 80.0;
+        let bw = 400.0;
+        let _ = writeln!(
+            out,
+            r#"<rect x="{x0}" y="18" width="{bw}" height="16" fill="url(#heat)"/>"#
+        );
+        text(&mut out, x0 - 6.0, 31.0, 13.0, "end", &format!("{lo:.1}"));
+        text(
+            &mut out,
+            x0 + bw + 6.0,
+            31.0,
+            13.0,
+            "start",
+            &format!("{hi:.1}"),
+        );
+        text(
+            &mut out,
+            x0 + bw + 60.0,
+            31.0,
+            13.0,
+            "start",
+            &s.value_label(),
+        );
+    } else {
+        text(&mut out, 20.0, 31.0, 13.0, "start", &s.value_label());
+    }
+    out.push_str("</g>\n</svg>\n");
+    out
+}
+
+/// Cuts `region` (in points) out of a screenshot and encodes it as PNG.
+pub fn png_of_region(image: &egui::ColorImage, region: Rect, ppp: f32) -> anyhow::Result<Vec<u8>> {
+    let [w, h] = image.size;
+    let x0 = ((region.left() * ppp).floor().max(0.0) as usize).min(w);
+    let y0 = ((region.top() * ppp).floor().max(0.0) as usize).min(h);
+    let x1 = ((region.right() * ppp).ceil().max(0.0) as usize).min(w);
+    let y1 = ((region.bottom() * ppp).ceil().max(0.0) as usize).min(h);
+    anyhow::ensure!(x1 > x0 && y1 > y0, "the figure is not on screen");
+    let mut rgba = Vec::with_capacity((x1 - x0) * (y1 - y0) * 4);
+    for y in y0..y1 {
+        for x in x0..x1 {
+            let c = image.pixels[y * w + x];
+            rgba.extend_from_slice(&[c.r(), c.g(), c.b(), 255]);
+        }
+    }
+    Ok(encode_png((x1 - x0) as u32, (y1 - y0) as u32, &rgba))
+}
+
+/// CRC-32 (ISO 3309, as PNG requires).
+fn crc32(bytes: &[u8]) -> u32 {
+    let mut table = [0u32; 256];
+    for (n, t) in table.iter_mut().enumerate() {
+        let mut c = n as u32;
+        for _ in 0..8 {
+            c = if c & 1 != 0 {
+                0xEDB8_8320 ^ (c >> 1)
+            } else {
+                c >> 1
+            };
+        }
+        *t = c;
+    }
+    let mut c = 0xFFFF_FFFFu32;
+    for &b in bytes {
+        c = table[((c ^ b as u32) & 0xFF) as usize] ^ (c >> 8);
+    }
+    c ^ 0xFFFF_FFFF
+}
+
+/// A PNG (RGBA, 8 bits) with the image data in uncompressed deflate blocks (RFC 1950/1951).
+pub fn encode_png(w: u32, h: u32, rgba: &[u8]) -> Vec<u8> {
+    let mut raw = Vec::with_capacity((w as usize * 4 + 1) * h as usize);
+    for row in rgba.chunks(w as usize * 4) {
+        raw.push(0); // filter: none
+        raw.extend_from_slice(row);
+    }
+    let mut z = vec![0x78, 0x01];
+    let mut blocks = raw.chunks(65_535).peekable();
+    if blocks.peek().is_none() {
+        z.extend_from_slice(&[1, 0, 0, 0xFF, 0xFF]);
+    }
+    while let Some(b) = blocks.next() {
+        let last = blocks.peek().is_none();
+        z.push(last as u8);
+        let len = b.len() as u16;
+        z.extend_from_slice(&len.to_le_bytes());
+        z.extend_from_slice(&(!len).to_le_bytes());
+        z.extend_from_slice(b);
+    }
+    let (mut a, mut bsum) = (1u32, 0u32);
+    for &x in &raw {
+        a = (a + x as u32) % 65_521;
+        bsum = (bsum + a) % 65_521;
+    }
+    z.extend_from_slice(&((bsum << 16) | a).to_be_bytes());
+
+    let mut out = vec![0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A];
+    let mut chunk = |kind: &[u8; 4], data: &[u8]| {
+        out.extend_from_slice(&(data.len() as u32).to_be_bytes());
+        let mut c = kind.to_vec();
+        c.extend_from_slice(data);
+        out.extend_from_slice(&c);
+        out.extend_from_slice(&crc32(&c).to_be_bytes());
+    };
+    let mut ihdr = Vec::new();
+    ihdr.extend_from_slice(&w.to_be_bytes());
+    ihdr.extend_from_slice(&h.to_be_bytes());
+    ihdr.extend_from_slice(&[8, 6, 0, 0, 0]);
+    chunk(b"IHDR", &ihdr);
+    chunk(b"IDAT", &z);
+    chunk(b"IEND", &[]);
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn crc_of_the_standard_check_string() {
+        // CRC-32 of "123456789" is 0xCBF43926 (the catalogue check value of CRC-32/ISO-HDLC)
+        assert_eq!(crc32(b"123456789"), 0xCBF4_3926);
+    }
+
+    #[test]
+    fn png_has_signature_header_and_end() {
+        let px = [255u8, 0, 0, 255, 0, 255, 0, 255];
+        let png = encode_png(2, 1, &px);
+        assert_eq!(&png[..8], &[0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A]);
+        assert_eq!(&png[12..16], b"IHDR");
+        assert_eq!(u32::from_be_bytes(png[16..20].try_into().unwrap()), 2);
+        assert_eq!(&png[png.len() - 8..png.len() - 4], b"IEND");
+    }
+}

@@ -1,0 +1,1082 @@
+//! The app's data, with no egui in it: the loaded cell, the electrical maps at the current
+//! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
+//! values that colour both drawings. Tests and benchmarks drive this directly.
+
+use crate::cable::{C64, Maps, Network, Params};
+use crate::morphology::{Flat, Morphology, NONE, kind};
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+/// A cell as read from disk (or built in), with the things computed once per file.
+#[derive(Debug, Clone)]
+pub struct Cell {
+    /// Short name shown in the title bar (file name or sample name).
+    pub name: String,
+    /// The file it came from, when it came from one.
+    pub path: Option<std::path::PathBuf>,
+    pub morph: Morphology,
+    /// The whole main tree as flat arrays (what the drawings show).
+    pub flat: Flat,
+    /// Warnings from reading, one line each.
+    pub warnings: Vec<String>,
+    /// Sholl profile (radius µm, crossings) at `sholl_step` µm.
+    pub sholl: Vec<(f64, usize)>,
+    pub sholl_step: f64,
+    /// Soma radius for drawing (µm).
+    pub soma_radius_um: f64,
+    /// Centre and radius of the bounding sphere of the main tree (µm), for framing.
+    pub centre: [f64; 3],
+    pub extent_radius_um: f64,
+    /// Neurite type codes present in the main tree (soma excluded), sorted.
+    pub kinds: Vec<i32>,
+}
+
+impl Cell {
+    /// Computes the per-file things from a morphology.
+    pub fn new(name: String, path: Option<std::path::PathBuf>, morph: Morphology) -> Cell {
+        let flat = morph.flatten();
+        let warnings = morph.warnings.iter().map(|w| w.to_string()).collect();
+        let mut lo = [f64::INFINITY; 3];
+        let mut hi = [f64::NEG_INFINITY; 3];
+        for p in &flat.pos {
+            for c in 0..3 {
+                lo[c] = lo[c].min(p[c]);
+                hi[c] = hi[c].max(p[c]);
+            }
+        }
+        let centre = if flat.is_empty() {
+            [0.0; 3]
+        } else {
+            [0, 1, 2].map(|c| 0.5 * (lo[c] + hi[c]))
+        };
+        let mut rad: f64 = 0.0;
+        for p in &flat.pos {
+            let d = ((p[0] - centre[0]).powi(2)
+                + (p[1] - centre[1]).powi(2)
+                + (p[2] - centre[2]).powi(2))
+            .sqrt();
+            rad = rad.max(d);
+        }
+        let soma_radius_um = (flat.soma_area_um2 / (4.0 * std::f64::consts::PI)).sqrt();
+        let rad = rad.max(soma_radius_um).max(1.0);
+        let sholl_step = nice_step(rad / 40.0);
+        let sholl = morph.sholl(sholl_step);
+        let mut kinds: Vec<i32> = flat.kind.iter().skip(1).copied().collect();
+        kinds.sort_unstable();
+        kinds.dedup();
+        Cell {
+            name,
+            path,
+            morph,
+            flat,
+            warnings,
+            sholl,
+            sholl_step,
+            soma_radius_um,
+            centre,
+            extent_radius_um: rad,
+            kinds,
+        }
+    }
+
+    /// Reads and prepares a file.
+    pub fn read(path: &std::path::Path) -> anyhow::Result<Cell> {
+        let morph = Morphology::read(path)?;
+        let name = path
+            .file_name()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| path.display().to_string());
+        Ok(Cell::new(name, Some(path.to_path_buf()), morph))
+    }
+
+    /// The built-in demo cell.
+    pub fn demo() -> Cell {
+        Cell::new("demo cell".into(), None, crate::samples::demo())
+    }
+
+    /// Number of nodes in the whole main tree.
+    pub fn len(&self) -> usize {
+        self.flat.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.flat.is_empty()
+    }
+}
+
+/// 1, 2 or 5 times a power of ten, at least `x`.
+pub fn nice_step(x: f64) -> f64 {
+    if !(x > 0.0) || !x.is_finite() {
+        return 1.0;
+    }
+    let p = 10f64.powf(x.log10().floor());
+    for m in [1.0, 2.0, 5.0, 10.0] {
+        if m * p >= x {
+            return m * p;
+        }
+    }
+    10.0 * p
+}
+
+/// What colours the drawings.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ColourBy {
+    /// Voltage at each point for a current injected at the synapse site, relative to the
+    /// voltage at the site.
+    FromSite,
+    /// Voltage at the soma for a current injected at each point, relative to the voltage there.
+    ToSoma,
+    /// Local input resistance.
+    InputResistance,
+    Strahler,
+    NeuriteType,
+}
+
+impl ColourBy {
+    pub const ALL: [ColourBy; 5] = [
+        ColourBy::FromSite,
+        ColourBy::ToSoma,
+        ColourBy::InputResistance,
+        ColourBy::Strahler,
+        ColourBy::NeuriteType,
+    ];
+
+    pub fn label(self) -> &'static str {
+        match self {
+            ColourBy::FromSite => "Signal spreading from the site",
+            ColourBy::ToSoma => "Signal reaching the soma",
+            ColourBy::InputResistance => "Local input resistance",
+            ColourBy::Strahler => "Strahler order",
+            ColourBy::NeuriteType => "Neurite type",
+        }
+    }
+
+    /// Whether the values are continuous (a colour bar) or categories (a key).
+    pub fn is_continuous(self) -> bool {
+        matches!(
+            self,
+            ColourBy::FromSite | ColourBy::ToSoma | ColourBy::InputResistance
+        )
+    }
+}
+
+/// Units of attenuation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LogUnit {
+    /// 20·log10 of the voltage ratio.
+    Decibel,
+    /// Natural log of the voltage ratio.
+    Neper,
+}
+
+impl LogUnit {
+    pub fn from_ln(self, ln: f64) -> f64 {
+        match self {
+            LogUnit::Decibel => ln * 20.0 / std::f64::consts::LN_10,
+            LogUnit::Neper => ln,
+        }
+    }
+    pub fn suffix(self) -> &'static str {
+        match self {
+            LogUnit::Decibel => "dB",
+            LogUnit::Neper => "(natural log)",
+        }
+    }
+}
+
+/// A compartment tree ready for drawing and solving, in parents-first order (`parent[c] < c`).
+/// Filled from the reducer's output.
+#[derive(Debug, Clone, Default)]
+pub struct RTree {
+    /// The reducer's compartment id of each entry.
+    pub id: Vec<u32>,
+    pub parent: Vec<u32>,
+    /// Axial conductance to the parent (nS), leak conductance (nS), capacitance (pF).
+    pub g_axial_ns: Vec<f64>,
+    pub g_leak_ns: Vec<f64>,
+    pub capacitance_pf: Vec<f64>,
+    pub pos: Vec<[f64; 3]>,
+    pub area_um2: Vec<f64>,
+    pub site_count: Vec<u32>,
+    pub depth: Vec<u32>,
+    /// Model node (see [`CellState::model`]) → entry.
+    pub node_comp: Vec<u32>,
+    /// Mean path distance (µm) of the points each entry stands for.
+    pub path_distance: Vec<f64>,
+    /// Most common neurite type among the points of each entry.
+    pub kind: Vec<i32>,
+    /// Strahler order of each entry in the compartment tree.
+    pub strahler: Vec<u32>,
+}
+
+impl RTree {
+    pub fn len(&self) -> usize {
+        self.parent.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.parent.is_empty()
+    }
+
+    /// Builds from plain compartment records (any order with the root first reachable),
+    /// re-ordering parents first. `node_comp_ids[k]` is the compartment id of model node k.
+    /// Returns None if the records do not form one tree.
+    #[allow(clippy::too_many_arguments)]
+    pub fn from_records(
+        ids: &[u32],
+        parent_ids: &[Option<u32>],
+        g_axial_ns: &[f64],
+        g_leak_ns: &[f64],
+        capacitance_pf: &[f64],
+        pos: &[[f64; 3]],
+        area_um2: &[f64],
+        site_count: &[u32],
+        depth: &[u32],
+        node_comp_ids: &[u32],
+        model: &Flat,
+        path_distance: &[f64],
+    ) -> Option<RTree> {
+        let n = ids.len();
+        let mut by_id: std::collections::HashMap<u32, usize> = Default::default();
+        for (i, &id) in ids.iter().enumerate() {
+            by_id.insert(id, i);
+        }
+        let par: Vec<Option<usize>> = parent_ids
+            .iter()
+            .map(|p| p.and_then(|p| by_id.get(&p).copied()))
+            .collect();
+        let root = par.iter().position(|p| p.is_none())?;
+        // children lists, then breadth-first from the root
+        let mut kids: Vec<Vec<usize>> = vec![Vec::new(); n];
+        for (i, p) in par.iter().enumerate() {
+            if let Some(p) = p {
+                kids[*p].push(i);
+            }
+        }
+        let mut order = vec![root];
+        let mut h = 0;
+        while h < order.len() {
+            let k = order[h];
+            h += 1;
+            order.extend(kids[k].iter().copied());
+        }
+        if order.len() != n {
+            return None;
+        }
+        let mut new_of = vec![0u32; n];
+        for (new, &old) in order.iter().enumerate() {
+            new_of[old] = new as u32;
+        }
+        let pick = |v: &[f64]| order.iter().map(|&o| v[o]).collect::<Vec<f64>>();
+        let mut t = RTree {
+            id: order.iter().map(|&o| ids[o]).collect(),
+            parent: order
+                .iter()
+                .map(|&o| par[o].map(|p| new_of[p]).unwrap_or(NONE))
+                .collect(),
+            g_axial_ns: pick(g_axial_ns),
+            g_leak_ns: pick(g_leak_ns),
+            capacitance_pf: pick(capacitance_pf),
+            pos: order.iter().map(|&o| pos[o]).collect(),
+            area_um2: pick(area_um2),
+            site_count: order.iter().map(|&o| site_count[o]).collect(),
+            depth: order.iter().map(|&o| depth[o]).collect(),
+            node_comp: node_comp_ids
+                .iter()
+                .map(|id| by_id.get(id).map(|&o| new_of[o]).unwrap_or(NONE))
+                .collect(),
+            ..Default::default()
+        };
+        // path distance and type of each entry from the model nodes it stands for
+        let mut sum = vec![0.0; n];
+        let mut cnt = vec![0usize; n];
+        let mut kinds: Vec<BTreeMap<i32, usize>> = vec![BTreeMap::new(); n];
+        for (k, &c) in t.node_comp.iter().enumerate() {
+            if c == NONE {
+                continue;
+            }
+            let c = c as usize;
+            sum[c] += path_distance.get(k).copied().unwrap_or(0.0);
+            cnt[c] += 1;
+            *kinds[c].entry(model.kind[k]).or_default() += 1;
+        }
+        t.path_distance = (0..n)
+            .map(|c| {
+                if cnt[c] > 0 {
+                    sum[c] / cnt[c] as f64
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        t.kind = kinds
+            .iter()
+            .map(|m| {
+                m.iter()
+                    .max_by_key(|(_, c)| **c)
+                    .map(|(k, _)| *k)
+                    .unwrap_or(0)
+            })
+            .collect();
+        // Strahler order, children before parents
+        let mut best = vec![0u32; n];
+        let mut count = vec![0u32; n];
+        let mut s = vec![1u32; n];
+        for c in (0..n).rev() {
+            s[c] = if best[c] == 0 {
+                1
+            } else if count[c] >= 2 {
+                best[c] + 1
+            } else {
+                best[c]
+            };
+            let p = t.parent[c];
+            if p != NONE {
+                let p = p as usize;
+                if s[c] > best[p] {
+                    best[p] = s[c];
+                    count[p] = 1;
+                } else if s[c] == best[p] {
+                    count[p] += 1;
+                }
+            }
+        }
+        t.strahler = s;
+        Some(t)
+    }
+
+    /// The compartments as a network at `freq_hz`: series admittance g_axial, shunt
+    /// g_leak + jωC (a lumped RC compartment; Koch 1999 ch. 3).
+    pub fn network(&self, params: &Params, freq_hz: f64) -> Network {
+        let w = 2.0 * std::f64::consts::PI * freq_hz;
+        let n = self.len();
+        Network {
+            parent: self.parent.clone(),
+            g: (0..n)
+                .map(|c| {
+                    if self.parent[c] == NONE {
+                        C64::new(0.0, 0.0)
+                    } else {
+                        C64::new(self.g_axial_ns[c] * 1e-9, 0.0)
+                    }
+                })
+                .collect(),
+            shunt: (0..n)
+                .map(|c| C64::new(self.g_leak_ns[c] * 1e-9, w * self.capacitance_pf[c] * 1e-12))
+                .collect(),
+            freq_hz,
+            params: *params,
+        }
+    }
+}
+
+/// The reduction of one model: turns a budget into a compartment tree, and knows its error
+/// curve. Implemented over the library's reducer when it is present.
+pub trait Reduction: Send + Sync {
+    fn max_compartments(&self) -> usize;
+    fn min_compartments(&self) -> usize {
+        1
+    }
+    fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree>;
+    fn error_curve(&self) -> Vec<(usize, f64)>;
+    /// The reduced tree as JSON and SWC text.
+    fn export_json(&self, budget: usize) -> anyhow::Result<String>;
+    fn export_swc(&self, budget: usize) -> anyhow::Result<String>;
+}
+
+/// Builds the reduction of a model (every point of the model kept), or says why it cannot.
+pub fn build_reduction(model: &Flat, params: &Params) -> Result<Arc<dyn Reduction>, String> {
+    let opts = crate::reduce::ReduceOptions::default();
+    match crate::reduce::Reducer::new(model, params, &opts) {
+        Ok(r) => Ok(Arc::new(LibReduction { r })),
+        Err(e) => Err(format!("no reduction: {e}")),
+    }
+}
+
+/// [`Reduction`] over the library's reducer.
+struct LibReduction {
+    r: crate::reduce::Reducer,
+}
+
+impl Reduction for LibReduction {
+    fn max_compartments(&self) -> usize {
+        self.r.max_compartments()
+    }
+
+    fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
+        let t = self.r.tree(budget);
+        let cs = &t.compartments;
+        let node_ids: Vec<u32> = model
+            .node_point
+            .iter()
+            .map(|&p| t.point_compartment.get(p as usize).copied().unwrap_or(NONE))
+            .collect();
+        let col =
+            |f: &dyn Fn(&crate::reduce::Compartment) -> f64| cs.iter().map(f).collect::<Vec<f64>>();
+        RTree::from_records(
+            &cs.iter().map(|c| c.id).collect::<Vec<_>>(),
+            &cs.iter().map(|c| c.parent).collect::<Vec<_>>(),
+            &col(&|c| c.g_axial_ns),
+            &col(&|c| c.g_leak_ns),
+            &col(&|c| c.capacitance_pf),
+            &cs.iter().map(|c| c.position_um).collect::<Vec<_>>(),
+            &col(&|c| c.membrane_area_um2),
+            &cs.iter().map(|c| c.site_count).collect::<Vec<_>>(),
+            &cs.iter().map(|c| c.depth).collect::<Vec<_>>(),
+            &node_ids,
+            model,
+            path_distance,
+        )
+    }
+
+    fn error_curve(&self) -> Vec<(usize, f64)> {
+        self.r.error_curve()
+    }
+
+    fn export_json(&self, budget: usize) -> anyhow::Result<String> {
+        let t = self.r.tree(budget);
+        let v = serde_json::json!({
+            "format": "pollard reduced tree",
+            "compartments_requested": t.requested,
+            "compartment_count": t.compartments.len(),
+            "params": t.params,
+            "units": {"g_axial_ns": "nS", "g_leak_ns": "nS", "capacitance_pf": "pF",
+                      "position_um": "µm", "membrane_area_um2": "µm²"},
+            "compartments": t.compartments,
+        });
+        Ok(serde_json::to_string_pretty(&v)? + "\n")
+    }
+
+    fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
+        let t = self.r.tree(budget);
+        let points: Vec<crate::swc::SwcPoint> = t
+            .compartments
+            .iter()
+            .enumerate()
+            .map(|(i, c)| crate::swc::SwcPoint {
+                id: c.id as i64 + 1,
+                kind: c.swc_type,
+                pos: c.position_um,
+                // radius of a sphere with the compartment's membrane area
+                radius: Some(
+                    (c.membrane_area_um2 / (4.0 * std::f64::consts::PI))
+                        .sqrt()
+                        .max(1e-3),
+                ),
+                parent: c.parent.map(|p| p as i64 + 1).unwrap_or(-1),
+                line: i + 1,
+            })
+            .collect();
+        let header = vec![
+            format!(" reduced tree: {} compartments", t.compartments.len()),
+            " positions are the points each compartment is named after; radius gives the compartment's membrane area as a sphere".to_string(),
+        ];
+        Ok(crate::swc::write_string(&points, &header))
+    }
+}
+
+/// The electrical model: the main tree restricted to the kept neurite types.
+#[derive(Debug, Clone)]
+pub struct Model {
+    pub flat: Flat,
+    /// Whole-tree node → model node (NONE if dropped).
+    pub of_full: Vec<u32>,
+    /// Model node → whole-tree node.
+    pub full: Vec<u32>,
+    /// Path distance of each model node (µm).
+    pub path_distance: Vec<f64>,
+}
+
+impl Model {
+    /// Keeps node 0 and every node whose type is kept and whose parent is kept.
+    pub fn new(cell: &Cell, keep: &dyn Fn(i32) -> bool) -> Model {
+        let f = &cell.flat;
+        let n = f.len();
+        let mut of_full = vec![NONE; n];
+        let mut full = Vec::with_capacity(n);
+        let mut m = Flat {
+            soma_area_um2: f.soma_area_um2,
+            point_node: vec![NONE; f.point_node.len()],
+            ..Default::default()
+        };
+        for k in 0..n {
+            let ok = k == 0 || (keep(f.kind[k]) && of_full[f.parent[k] as usize] != NONE);
+            if !ok {
+                continue;
+            }
+            let new = m.parent.len() as u32;
+            of_full[k] = new;
+            full.push(k as u32);
+            m.parent.push(if k == 0 {
+                NONE
+            } else {
+                of_full[f.parent[k] as usize]
+            });
+            m.length_um.push(f.length_um[k]);
+            m.r_prox_um.push(f.r_prox_um[k]);
+            m.r_dist_um.push(f.r_dist_um[k]);
+            m.kind.push(f.kind[k]);
+            m.pos.push(f.pos[k]);
+            m.node_point.push(f.node_point[k]);
+            m.line.push(f.line[k]);
+        }
+        for (p, &node) in f.point_node.iter().enumerate() {
+            if node != NONE {
+                m.point_node[p] = of_full[node as usize];
+            }
+        }
+        let path_distance = full
+            .iter()
+            .map(|&k| cell.morph.path_distance[f.node_point[k as usize] as usize])
+            .collect();
+        Model {
+            flat: m,
+            of_full,
+            full,
+            path_distance,
+        }
+    }
+}
+
+/// Per-node electrical maps of the model at one parameter set and frequency.
+#[derive(Debug, Clone)]
+pub struct Electrical {
+    pub net: Network,
+    pub maps: Maps,
+    /// |Z_kk| (MΩ) per model node.
+    pub input_mohm: Vec<f64>,
+    /// ln|V_soma / V_k| for a current at k, per model node (≤ 0).
+    pub ln_to_soma: Vec<f64>,
+}
+
+impl Electrical {
+    pub fn new(flat: &Flat, params: &Params, freq_hz: f64) -> anyhow::Result<Electrical> {
+        let net = Network::build(flat, params, freq_hz)?;
+        let maps = Maps::new(&net);
+        let zs = maps.soma_transfer(&net.parent);
+        let n = net.len();
+        let mut input_mohm = Vec::with_capacity(n);
+        let mut ln_to_soma = Vec::with_capacity(n);
+        for (k, z0) in zs.iter().enumerate() {
+            let zkk = maps.input_impedance(k);
+            input_mohm.push(zkk.norm() * 1e-6);
+            // V_soma/V_k for a current at k = Z_k0 / Z_kk (reciprocity; Koch 1999 ch. 3)
+            ln_to_soma.push((z0 / zkk).norm().ln());
+        }
+        Ok(Electrical {
+            net,
+            maps,
+            input_mohm,
+            ln_to_soma,
+        })
+    }
+
+    /// ln|V_k / V_site| for a current at `site` (model node).
+    pub fn ln_from_site(&self, site: usize) -> Vec<f64> {
+        self.maps
+            .site_ratio(&self.net, site)
+            .iter()
+            .map(|v| v.norm().ln())
+            .collect()
+    }
+}
+
+/// The reduced tree at the current budget with its own maps.
+#[derive(Clone)]
+pub struct Reduced {
+    pub tree: RTree,
+    pub net: Network,
+    pub maps: Maps,
+    pub input_mohm: Vec<f64>,
+    pub ln_to_soma: Vec<f64>,
+    /// ln|V_c / V_site| for the current site (injected at the site's compartment).
+    pub ln_from_site: Vec<f64>,
+    /// The compartment the site maps to.
+    pub site_comp: Option<usize>,
+}
+
+impl Reduced {
+    fn new(tree: RTree, params: &Params, freq_hz: f64) -> Reduced {
+        let net = tree.network(params, freq_hz);
+        let maps = Maps::new(&net);
+        let zs = maps.soma_transfer(&net.parent);
+        let mut input_mohm = Vec::with_capacity(tree.len());
+        let mut ln_to_soma = Vec::with_capacity(tree.len());
+        for (c, z0) in zs.iter().enumerate() {
+            let z = maps.input_impedance(c);
+            input_mohm.push(z.norm() * 1e-6);
+            ln_to_soma.push((z0 / z).norm().ln());
+        }
+        Reduced {
+            tree,
+            net,
+            maps,
+            input_mohm,
+            ln_to_soma,
+            ln_from_site: Vec::new(),
+            site_comp: None,
+        }
+    }
+
+    fn set_site(&mut self, site_model_node: Option<usize>) {
+        self.site_comp = site_model_node
+            .and_then(|k| self.tree.node_comp.get(k).copied())
+            .filter(|&c| c != NONE)
+            .map(|c| c as usize);
+        self.ln_from_site = match self.site_comp {
+            Some(c) => self
+                .maps
+                .site_ratio(&self.net, c)
+                .iter()
+                .map(|v| v.norm().ln())
+                .collect(),
+            None => vec![f64::NAN; self.tree.len()],
+        };
+    }
+}
+
+/// Everything the app shows about the current cell, independent of egui.
+pub struct CellState {
+    pub cell: Arc<Cell>,
+    pub params: Params,
+    pub freq_hz: f64,
+    /// Neurite types kept in the model (type code → kept).
+    pub kept: BTreeMap<i32, bool>,
+    pub model: Model,
+    pub elec: Electrical,
+    /// The synapse site: a whole-tree node.
+    pub site: Option<usize>,
+    /// ln|V/V_site| per model node for the current site.
+    pub ln_from_site: Vec<f64>,
+    pub colour_by: ColourBy,
+    pub unit: LogUnit,
+    /// The reduction of the current model (None while it is being built or if unavailable).
+    pub reduction: Option<Arc<dyn Reduction>>,
+    /// Why there is no reduction (shown in place of the reduced tree).
+    pub reduction_note: String,
+    pub budget: usize,
+    pub reduced: Option<Reduced>,
+    /// Bumped whenever the model (and so the geometry drawn) changes.
+    pub geometry_version: u64,
+    /// Bumped whenever any colour may change.
+    pub colour_version: u64,
+}
+
+impl CellState {
+    /// Prepares the maps of a cell at the given parameters, with every type kept and the site
+    /// at the tip farthest from the soma.
+    pub fn new(cell: Arc<Cell>, params: Params, freq_hz: f64) -> anyhow::Result<CellState> {
+        let kept: BTreeMap<i32, bool> = cell.kinds.iter().map(|&k| (k, true)).collect();
+        let model = Model::new(&cell, &|_| true);
+        let elec = Electrical::new(&model.flat, &params, freq_hz)?;
+        let mut s = CellState {
+            cell,
+            params,
+            freq_hz,
+            kept,
+            model,
+            elec,
+            site: None,
+            ln_from_site: Vec::new(),
+            colour_by: ColourBy::FromSite,
+            unit: LogUnit::Decibel,
+            reduction: None,
+            reduction_note: "preparing the reduction…".into(),
+            budget: 16,
+            reduced: None,
+            geometry_version: 1,
+            colour_version: 1,
+        };
+        let far = s.farthest_tip();
+        s.set_site(far);
+        Ok(s)
+    }
+
+    /// The kept tip with the longest path to the soma (a whole-tree node).
+    pub fn farthest_tip(&self) -> Option<usize> {
+        let mut best = None;
+        let mut best_d = -1.0;
+        for (m, &d) in self.model.path_distance.iter().enumerate() {
+            if d > best_d {
+                best_d = d;
+                best = Some(self.model.full[m] as usize);
+            }
+        }
+        best
+    }
+
+    /// Makes a whole-tree node the synapse site (ignored if the node is not in the model).
+    pub fn set_site(&mut self, node: Option<usize>) {
+        let m = node
+            .and_then(|k| self.model.of_full.get(k).copied())
+            .filter(|&m| m != NONE);
+        self.site = m.map(|m| self.model.full[m as usize] as usize);
+        self.ln_from_site = match m {
+            Some(m) => self.elec.ln_from_site(m as usize),
+            None => vec![f64::NAN; self.model.flat.len()],
+        };
+        let mm = m.map(|m| m as usize);
+        if let Some(r) = &mut self.reduced {
+            r.set_site(mm);
+        }
+        self.colour_version += 1;
+    }
+
+    fn site_model(&self) -> Option<usize> {
+        self.site
+            .and_then(|k| self.model.of_full.get(k).copied())
+            .filter(|&m| m != NONE)
+            .map(|m| m as usize)
+    }
+
+    /// Changes Rm, Ra, Cm or the frequency: recomputes the maps (the reduction depends on the
+    /// parameters too; the caller rebuilds it).
+    pub fn set_electrical(&mut self, params: Params, freq_hz: f64) -> anyhow::Result<()> {
+        let elec = Electrical::new(&self.model.flat, &params, freq_hz)?;
+        let params_changed = params != self.params;
+        self.params = params;
+        self.freq_hz = freq_hz;
+        self.elec = elec;
+        let site = self.site;
+        if params_changed {
+            self.reduction = None;
+            self.reduced = None;
+            self.reduction_note = "updating the reduction…".into();
+        } else {
+            self.rebuild_reduced();
+        }
+        self.set_site(site);
+        Ok(())
+    }
+
+    /// Keeps or drops a neurite type: rebuilds the model and its maps; the reduction is
+    /// dropped (the caller rebuilds it).
+    pub fn set_kept(&mut self, kind_code: i32, keep: bool) -> anyhow::Result<()> {
+        let mut kept = self.kept.clone();
+        kept.insert(kind_code, keep);
+        let model = Model::new(&self.cell, &|k| kept.get(&k).copied().unwrap_or(true));
+        let elec = Electrical::new(&model.flat, &self.params, self.freq_hz)?;
+        self.kept = kept;
+        self.model = model;
+        self.elec = elec;
+        self.reduction = None;
+        self.reduced = None;
+        self.reduction_note = "updating the reduction…".into();
+        self.geometry_version += 1;
+        let site = if self.site_model().is_some() || self.site.is_none() {
+            self.site
+        } else {
+            None
+        };
+        let site = site.or_else(|| self.farthest_tip());
+        // the old site may have been dropped
+        let site = site
+            .filter(|&k| self.model.of_full[k] != NONE)
+            .or_else(|| self.farthest_tip());
+        self.set_site(site);
+        Ok(())
+    }
+
+    /// Installs a freshly built reduction (budget clamped to its range).
+    pub fn set_reduction(&mut self, r: Result<Arc<dyn Reduction>, String>) {
+        match r {
+            Ok(r) => {
+                self.budget = self
+                    .budget
+                    .clamp(r.min_compartments(), r.max_compartments().max(1));
+                self.reduction = Some(r);
+                self.reduction_note.clear();
+                self.rebuild_reduced();
+            }
+            Err(e) => {
+                self.reduction = None;
+                self.reduced = None;
+                self.reduction_note = e;
+            }
+        }
+        self.colour_version += 1;
+    }
+
+    /// Moves the budget: the reducer replays its collapse order, the reduced maps are solved.
+    pub fn set_budget(&mut self, budget: usize) {
+        self.budget = budget.max(1);
+        self.rebuild_reduced();
+    }
+
+    fn rebuild_reduced(&mut self) {
+        let tree = self.reduction.as_ref().and_then(|r| {
+            let b = self
+                .budget
+                .clamp(r.min_compartments(), r.max_compartments().max(1));
+            r.tree(b, &self.model.flat, &self.model.path_distance)
+        });
+        self.reduced = tree.map(|mut t| {
+            t.node_comp.resize(self.model.flat.len(), NONE);
+            Reduced::new(t, &self.params, self.freq_hz)
+        });
+        let mm = self.site_model();
+        if let Some(r) = &mut self.reduced {
+            r.set_site(mm);
+        }
+        self.colour_version += 1;
+    }
+
+    /// Installs a tree directly (used by the reduction and by tests).
+    pub fn set_reduced_tree(&mut self, tree: RTree) {
+        let mut r = Reduced::new(tree, &self.params, self.freq_hz);
+        r.set_site(self.site_model());
+        self.reduced = Some(r);
+        self.colour_version += 1;
+    }
+
+    /// The value that colours whole-tree node k (NaN when it is not in the model).
+    /// Attenuations are in the chosen log unit; input resistance in MΩ.
+    pub fn value_full(&self, k: usize) -> f64 {
+        let m = self.model.of_full[k];
+        if m == NONE {
+            return f64::NAN;
+        }
+        let m = m as usize;
+        match self.colour_by {
+            ColourBy::FromSite => self.unit.from_ln(self.ln_from_site[m]),
+            ColourBy::ToSoma => self.unit.from_ln(self.elec.ln_to_soma[m]),
+            ColourBy::InputResistance => self.elec.input_mohm[m],
+            ColourBy::Strahler => {
+                self.cell.morph.strahler[self.cell.flat.node_point[k] as usize] as f64
+            }
+            ColourBy::NeuriteType => self.cell.flat.kind[k] as f64,
+        }
+    }
+
+    /// The value that colours compartment c.
+    pub fn value_comp(&self, c: usize) -> f64 {
+        let Some(r) = &self.reduced else {
+            return f64::NAN;
+        };
+        match self.colour_by {
+            ColourBy::FromSite => self.unit.from_ln(r.ln_from_site[c]),
+            ColourBy::ToSoma => self.unit.from_ln(r.ln_to_soma[c]),
+            ColourBy::InputResistance => r.input_mohm[c],
+            ColourBy::Strahler => r.tree.strahler[c] as f64,
+            ColourBy::NeuriteType => r.tree.kind[c] as f64,
+        }
+    }
+
+    /// The shared colour range over both trees (finite values only).
+    pub fn value_range(&self) -> (f64, f64) {
+        let mut lo = f64::INFINITY;
+        let mut hi = f64::NEG_INFINITY;
+        for k in 0..self.cell.flat.len() {
+            let v = self.value_full(k);
+            if v.is_finite() {
+                lo = lo.min(v);
+                hi = hi.max(v);
+            }
+        }
+        if let Some(r) = &self.reduced {
+            for c in 0..r.tree.len() {
+                let v = self.value_comp(c);
+                if v.is_finite() {
+                    lo = lo.min(v);
+                    hi = hi.max(v);
+                }
+            }
+        }
+        if !lo.is_finite() {
+            return (0.0, 1.0);
+        }
+        if matches!(self.colour_by, ColourBy::FromSite | ColourBy::ToSoma) {
+            hi = 0.0;
+        }
+        if hi - lo < 1e-9 {
+            lo = hi - 1.0;
+        }
+        (lo, hi)
+    }
+
+    /// Human-readable description of the colour values.
+    pub fn value_label(&self) -> String {
+        match self.colour_by {
+            ColourBy::FromSite => format!("V / V at site, {}", self.unit.suffix()),
+            ColourBy::ToSoma => format!("V at soma / V at point, {}", self.unit.suffix()),
+            ColourBy::InputResistance => "input resistance, MΩ".into(),
+            ColourBy::Strahler => "Strahler order".into(),
+            ColourBy::NeuriteType => "neurite type".into(),
+        }
+    }
+
+    /// Facts about whole-tree node k for the hover box.
+    pub fn describe_node(&self, k: usize) -> String {
+        let f = &self.cell.flat;
+        let p = f.node_point[k] as usize;
+        let pt = &self.cell.morph.points[p];
+        let mut s = format!(
+            "point {} ({}), line {}\npath distance {:.1} µm",
+            if k == 0 {
+                "soma".to_string()
+            } else {
+                pt.id.to_string()
+            },
+            crate::morphology::kind_name(f.kind[k]),
+            f.line[k],
+            self.cell.morph.path_distance[p]
+        );
+        let m = self.model.of_full[k];
+        if m == NONE {
+            s.push_str("\nnot in the model (type switched off)");
+            return s;
+        }
+        let m = m as usize;
+        s.push_str(&format!(
+            "\ninput resistance {:.1} MΩ\nto the soma {:.2} {}",
+            self.elec.input_mohm[m],
+            self.unit.from_ln(self.elec.ln_to_soma[m]),
+            self.unit.suffix()
+        ));
+        if self.site.is_some() {
+            s.push_str(&format!(
+                "\nfrom the site {:.2} {}",
+                self.unit.from_ln(self.ln_from_site[m]),
+                self.unit.suffix()
+            ));
+        }
+        s
+    }
+
+    /// Facts about compartment c for the hover box.
+    pub fn describe_comp(&self, c: usize) -> String {
+        let Some(r) = &self.reduced else {
+            return String::new();
+        };
+        let t = &r.tree;
+        let mut s = format!(
+            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s)\ninput resistance {:.1} MΩ",
+            t.id[c],
+            t.g_axial_ns[c],
+            t.g_leak_ns[c],
+            t.capacitance_pf[c],
+            t.area_um2[c],
+            t.site_count[c],
+            r.input_mohm[c]
+        );
+        if t.parent[c] == NONE {
+            s = s.replacen(
+                &format!("axial conductance {:.3} nS\n", t.g_axial_ns[c]),
+                "",
+                1,
+            );
+        }
+        if r.site_comp.is_some() {
+            s.push_str(&format!(
+                "\nfrom the site {:.2} {}",
+                self.unit.from_ln(r.ln_from_site[c]),
+                self.unit.suffix()
+            ));
+        }
+        s
+    }
+
+    /// (path distance, attenuation) for every model node, in the current log unit, for the
+    /// current colouring choice of attenuation (from the site unless "to the soma" is chosen).
+    pub fn attenuation_profile(&self) -> (Vec<[f64; 2]>, Vec<[f64; 2]>) {
+        let to_soma = self.colour_by == ColourBy::ToSoma;
+        let orig = (0..self.model.flat.len())
+            .filter_map(|m| {
+                let v = if to_soma {
+                    self.elec.ln_to_soma[m]
+                } else {
+                    self.ln_from_site[m]
+                };
+                v.is_finite()
+                    .then(|| [self.model.path_distance[m], self.unit.from_ln(v)])
+            })
+            .collect();
+        let red = match &self.reduced {
+            Some(r) => (0..r.tree.len())
+                .filter_map(|c| {
+                    let v = if to_soma {
+                        r.ln_to_soma[c]
+                    } else {
+                        r.ln_from_site[c]
+                    };
+                    v.is_finite()
+                        .then(|| [r.tree.path_distance[c], self.unit.from_ln(v)])
+                })
+                .collect(),
+            None => Vec::new(),
+        };
+        (orig, red)
+    }
+}
+
+/// A whole-tree soma check used by the type list: true for type codes that are neurites.
+pub fn is_neurite(k: i32) -> bool {
+    k != kind::SOMA
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn y_cell() -> Arc<Cell> {
+        let text = "1 1 0 0 0 5 -1\n2 3 10 0 0 1 1\n3 3 20 0 0 1 2\n4 3 30 10 0 0.5 3\n5 3 30 -10 0 0.5 3\n6 2 -10 0 0 0.5 1\n";
+        let m = Morphology::parse(text, "y.swc").unwrap();
+        Arc::new(Cell::new("y".into(), None, m))
+    }
+
+    #[test]
+    fn site_voltage_ratio_is_one_at_the_site_and_falls_towards_the_soma() {
+        let s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
+        let site = s.site.unwrap();
+        let m = s.model.of_full[site] as usize;
+        assert!(s.ln_from_site[m].abs() < 1e-12);
+        // passive cable: voltage falls monotonically from the site towards the soma (Rall 1959)
+        assert!(s.ln_from_site[0] < 0.0);
+        assert!(s.ln_from_site.iter().all(|v| *v <= 1e-12));
+    }
+
+    #[test]
+    fn dropping_a_type_removes_its_nodes_and_keeps_the_site_valid() {
+        let mut s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
+        let n_all = s.model.flat.len();
+        s.set_kept(kind::AXON, false).unwrap();
+        assert_eq!(s.model.flat.len(), n_all - 1);
+        let site = s.site.unwrap();
+        assert_ne!(s.model.of_full[site], NONE);
+        let axon = (0..s.cell.flat.len())
+            .find(|&k| s.cell.flat.kind[k] == kind::AXON)
+            .unwrap();
+        assert!(s.value_full(axon).is_nan());
+        assert_eq!(s.model.of_full[axon], NONE);
+    }
+
+    #[test]
+    fn rtree_from_records_orders_parents_first_and_solves() {
+        // two compartments given child first
+        let s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
+        let n = s.model.flat.len();
+        let t = RTree::from_records(
+            &[7, 3],
+            &[Some(3), None],
+            &[2.0, 0.0],
+            &[0.5, 1.0],
+            &[1.0, 1.0],
+            &[[1.0, 0.0, 0.0], [0.0; 3]],
+            &[10.0, 10.0],
+            &[3, 2],
+            &[1, 0],
+            &vec![3; n],
+            &s.model.flat,
+            &s.model.path_distance,
+        )
+        .unwrap();
+        assert_eq!(t.id, vec![3, 7]);
+        assert_eq!(t.parent, vec![NONE, 0]);
+        // DC: voltage divider g_a/(g_a + g_leak) from the child to the root for a current at the
+        // child (Ohm's law, closed form)
+        let net = t.network(&Params::default(), 0.0);
+        let maps = Maps::new(&net);
+        let r = maps.site_ratio(&net, 1);
+        assert!((r[0].re - 2.0 / 3.0).abs() < 1e-12);
+    }
+}

@@ -1,0 +1,290 @@
+//! The desktop app driven through its real state and widgets (egui_kittest, no rendering): open
+//! cells, click a site, move the sliders, save files to a temporary folder.
+#![cfg(feature = "gui")]
+
+use eframe::egui::{self, Pos2, Vec2};
+use egui_kittest::Harness;
+use egui_kittest::kittest::Queryable;
+use pollard::app::files::{Dialogs, RecentFiles};
+use pollard::app::{PollardApp, Screen, Start};
+
+fn harness(app: PollardApp) -> Harness<'static, PollardApp> {
+    Harness::builder()
+        .with_size(Vec2::new(1500.0, 950.0))
+        .with_max_steps(200)
+        .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app)
+}
+
+fn app_with(answers: Vec<Option<std::path::PathBuf>>) -> PollardApp {
+    let mut app = PollardApp::new(
+        Start::Demo,
+        Dialogs::scripted(answers),
+        RecentFiles::in_memory(),
+    );
+    app.wait_idle();
+    app
+}
+
+/// Lets background work finish, then draws until the frame is settled.
+fn settle(h: &mut Harness<'static, PollardApp>) {
+    h.state_mut().wait_idle();
+    h.run_steps(3);
+    h.state_mut().wait_idle();
+    h.run_steps(2);
+}
+
+fn click_at(h: &mut Harness<'static, PollardApp>, p: Pos2) {
+    h.event(egui::Event::PointerMoved(p));
+    h.run_steps(1);
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton {
+            pos: p,
+            button: egui::PointerButton::Primary,
+            pressed,
+            modifiers: Default::default(),
+        });
+        h.run_steps(1);
+    }
+}
+
+#[test]
+fn opens_on_the_demo_cell_and_draws_both_canvases() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let app = h.state();
+    let s = app.state.as_ref().expect("a cell is loaded");
+    assert!(
+        s.cell.morph.len() > 100,
+        "demo cell has {} points",
+        s.cell.morph.len()
+    );
+    assert!(s.site.is_some(), "a default site is chosen");
+    assert!(app.left.tessellations >= 1);
+    h.get_by_label("Original arbor");
+    h.get_by_label("Reduced tree");
+}
+
+#[test]
+fn opening_a_sample_from_the_menu_replaces_the_cell() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let before = h.state().state.as_ref().unwrap().cell.morph.len();
+    h.get_by_label("Samples").click();
+    h.run_steps(2);
+    h.get_by_label_contains("Stellate").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert!(s.cell.name.contains("Stellate"), "{}", s.cell.name);
+    assert_ne!(s.cell.morph.len(), before);
+}
+
+#[test]
+fn clicking_a_point_makes_it_the_site_and_recolours_without_retessellating() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let (target, p, tess_before, colour_before) = {
+        let app = h.state();
+        let s = app.state.as_ref().unwrap();
+        let old = s.site.unwrap();
+        // a point well inside the canvas, not the current site
+        let rect = app.left.last_rect;
+        let k = (1..s.cell.flat.len())
+            .rev()
+            .find(|&k| {
+                k != old
+                    && app
+                        .left
+                        .screen_of(k)
+                        .is_some_and(|q| rect.shrink(30.0).contains(q))
+            })
+            .expect("a visible point");
+        (
+            k,
+            app.left.screen_of(k).unwrap(),
+            app.left.tessellations,
+            s.colour_version,
+        )
+    };
+    click_at(&mut h, p);
+    h.run_steps(1);
+    let app = h.state();
+    let s = app.state.as_ref().unwrap();
+    let site = s.site.expect("site set");
+    // the nearest drawn point to the click is the site
+    let q = app.left.screen_of(site).unwrap();
+    assert!(q.distance(p) <= app.left.screen_of(target).unwrap().distance(p) + 1e-3);
+    assert!(s.colour_version > colour_before);
+    // the voltage ratio is 1 (0 dB) at the site and below 1 everywhere else (passive cable)
+    let m = s.model.of_full[site] as usize;
+    assert!(s.ln_from_site[m].abs() < 1e-9);
+    assert!(s.ln_from_site.iter().all(|v| *v <= 1e-9));
+    assert_eq!(
+        app.left.tessellations, tess_before,
+        "a click only recolours"
+    );
+}
+
+#[test]
+fn frequency_slider_changes_the_maps() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let dc_soma = {
+        let s = h.state().state.as_ref().unwrap();
+        s.ln_from_site[0]
+    };
+    h.get_by_label("Frequency").set_value_accesskit(200.0);
+    h.run_steps(2);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert!((s.freq_hz - 200.0).abs() < 1.0, "{}", s.freq_hz);
+    // a passive cable filters: the soma sees less of the site's voltage at 200 Hz than at DC
+    // (Koch 1999 ch. 3, common knowledge)
+    assert!(
+        s.ln_from_site[0] < dc_soma,
+        "{} vs {}",
+        s.ln_from_site[0],
+        dc_soma
+    );
+}
+
+#[test]
+fn budget_slider_moves_the_reduced_tree() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    if h.state().state.as_ref().unwrap().reduction.is_none() {
+        // the reduction is not available in this build
+        h.get_by_label("Reduced tree");
+        return;
+    }
+    h.get_by_label("Compartments").set_value_accesskit(5.0);
+    h.run_steps(2);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.budget, 5);
+    let r = s.reduced.as_ref().expect("a reduced tree");
+    assert!(r.tree.len() <= 5 && !r.tree.is_empty());
+    h.get_by_label("Compartments").set_value_accesskit(12.0);
+    h.run_steps(2);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.budget, 12);
+    assert!(s.reduced.as_ref().unwrap().tree.len() > 5);
+}
+
+#[test]
+fn exports_a_figure_and_the_reduced_tree_to_a_folder() {
+    let dir = tempfile::tempdir().unwrap();
+    let svg = dir.path().join("figure.svg");
+    let json = dir.path().join("tree.json");
+    let swc = dir.path().join("tree.swc");
+    let mut h = harness(app_with(vec![
+        Some(svg.clone()),
+        Some(json.clone()),
+        Some(swc.clone()),
+    ]));
+    settle(&mut h);
+    h.get_by_label("Figure (SVG)…").click();
+    h.run_steps(2);
+    let text = std::fs::read_to_string(&svg).expect("figure written");
+    assert!(text.starts_with("<svg"));
+    assert!(text.trim_end().ends_with("</svg>"));
+    assert!(text.contains("id=\"original\"") && text.contains("id=\"reduced\""));
+    assert!(h.state().notice.as_deref().unwrap_or("").contains("Saved"));
+    if h.state().state.as_ref().unwrap().reduction.is_some() {
+        h.get_by_label("Reduced tree (JSON)…").click();
+        h.run_steps(2);
+        let j: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&json).expect("json written")).unwrap();
+        assert!(j.is_object() || j.is_array());
+        h.get_by_label("Reduced tree (SWC)…").click();
+        h.run_steps(2);
+        let t = std::fs::read_to_string(&swc).expect("swc written");
+        assert!(pollard::Morphology::parse(&t, "tree.swc").is_ok());
+    }
+}
+
+#[test]
+fn a_bad_file_shows_its_error_and_keeps_the_cell() {
+    let dir = tempfile::tempdir().unwrap();
+    let bad = dir.path().join("broken.swc");
+    std::fs::write(&bad, "1 1 0 0 0 5 -1\n2 3 10 0 0 1 1\n3 3 twenty 0 0 1 2\n").unwrap();
+    let mut h = harness(app_with(vec![Some(bad.clone())]));
+    settle(&mut h);
+    let before = h.state().state.as_ref().unwrap().cell.name.clone();
+    h.get_by_label("Open file…").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let app = h.state();
+    let e = app.error.as_deref().expect("an error is shown");
+    assert!(e.contains("broken.swc"), "{e}");
+    assert!(e.contains('3'), "names the line: {e}");
+    assert_eq!(app.state.as_ref().unwrap().cell.name, before);
+}
+
+#[test]
+fn a_file_with_warnings_lists_them() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = dir.path().join("two_trees.swc");
+    std::fs::write(
+        &f,
+        "1 1 0 0 0 5 -1\n2 3 10 0 0 1 1\n3 3 20 0 0 1 2\n10 3 100 0 0 1 -1\n11 3 110 0 0 1 10\n",
+    )
+    .unwrap();
+    let mut h = harness(app_with(vec![Some(f.clone())]));
+    h.get_by_label("Open file…").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.cell.name, "two_trees.swc");
+    assert!(!s.cell.warnings.is_empty());
+    h.get_by_label_contains("Warnings (");
+    assert_eq!(h.state().recent.list.len(), 1);
+}
+
+#[test]
+fn lab_toggle_switches_screens() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    h.get_by_label("Branching lab").click();
+    h.run_steps(2);
+    assert_eq!(h.state().screen, Screen::Lab);
+    h.get_by_label("Cell view").click();
+    h.run_steps(2);
+    assert_eq!(h.state().screen, Screen::Cell);
+    let app = PollardApp::new(
+        Start::Lab,
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    assert_eq!(app.screen, Screen::Lab);
+}
+
+#[test]
+fn colouring_choices_and_views_do_not_panic() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    for label in [
+        "Signal reaching the soma",
+        "Local input resistance",
+        "Strahler order",
+        "Neurite type",
+        "Signal spreading from the site",
+    ] {
+        h.get_by_label(label).click();
+        h.run_steps(2);
+    }
+    for label in [
+        "Side",
+        "Top",
+        "Front",
+        "Reset",
+        "as a dendrogram",
+        "in place",
+        "natural log",
+    ] {
+        h.get_by_label(label).click();
+        h.run_steps(2);
+    }
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.unit, pollard::app::state::LogUnit::Neper);
+}
