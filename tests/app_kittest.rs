@@ -133,7 +133,8 @@ fn frequency_slider_changes_the_maps() {
         let s = h.state().state.as_ref().unwrap();
         s.ln_from_site[0]
     };
-    h.get_by_label("Frequency").set_value_accesskit(200.0);
+    h.get_by_role_and_label(egui::Role::Slider, "Frequency")
+        .set_value_accesskit(200.0);
     h.run_steps(2);
     settle(&mut h);
     let s = h.state().state.as_ref().unwrap();
@@ -152,19 +153,20 @@ fn frequency_slider_changes_the_maps() {
 fn budget_slider_moves_the_reduced_tree() {
     let mut h = harness(app_with(vec![]));
     settle(&mut h);
-    if h.state().state.as_ref().unwrap().reduction.is_none() {
-        // the reduction is not available in this build
-        h.get_by_label("Reduced tree");
-        return;
-    }
-    h.get_by_label("Compartments").set_value_accesskit(5.0);
+    assert!(
+        h.state().state.as_ref().unwrap().reduction.is_some(),
+        "the reduction is built in the background"
+    );
+    h.get_by_role_and_label(egui::Role::Slider, "Compartments")
+        .set_value_accesskit(5.0);
     h.run_steps(2);
     settle(&mut h);
     let s = h.state().state.as_ref().unwrap();
     assert_eq!(s.budget, 5);
     let r = s.reduced.as_ref().expect("a reduced tree");
     assert!(r.tree.len() <= 5 && !r.tree.is_empty());
-    h.get_by_label("Compartments").set_value_accesskit(12.0);
+    h.get_by_role_and_label(egui::Role::Slider, "Compartments")
+        .set_value_accesskit(12.0);
     h.run_steps(2);
     let s = h.state().state.as_ref().unwrap();
     assert_eq!(s.budget, 12);
@@ -190,17 +192,26 @@ fn exports_a_figure_and_the_reduced_tree_to_a_folder() {
     assert!(text.trim_end().ends_with("</svg>"));
     assert!(text.contains("id=\"original\"") && text.contains("id=\"reduced\""));
     assert!(h.state().notice.as_deref().unwrap_or("").contains("Saved"));
-    if h.state().state.as_ref().unwrap().reduction.is_some() {
-        h.get_by_label("Reduced tree (JSON)…").click();
-        h.run_steps(2);
-        let j: serde_json::Value =
-            serde_json::from_str(&std::fs::read_to_string(&json).expect("json written")).unwrap();
-        assert!(j.is_object() || j.is_array());
-        h.get_by_label("Reduced tree (SWC)…").click();
-        h.run_steps(2);
-        let t = std::fs::read_to_string(&swc).expect("swc written");
-        assert!(pollard::Morphology::parse(&t, "tree.swc").is_ok());
-    }
+    h.get_by_label("Reduced tree (JSON)…").click();
+    h.run_steps(2);
+    let j: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).expect("json written")).unwrap();
+    let n = h
+        .state()
+        .state
+        .as_ref()
+        .unwrap()
+        .reduced
+        .as_ref()
+        .unwrap()
+        .tree
+        .len();
+    assert_eq!(j["compartments"].as_array().map(|a| a.len()), Some(n));
+    h.get_by_label("Reduced tree (SWC)…").click();
+    h.run_steps(2);
+    let t = std::fs::read_to_string(&swc).expect("swc written");
+    let m = pollard::Morphology::parse(&t, "tree.swc").expect("the saved SWC reads back");
+    assert_eq!(m.len(), n);
 }
 
 #[test]

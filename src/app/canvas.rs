@@ -582,7 +582,7 @@ impl ArborCanvas {
         painter.text(
             rect.right_bottom() - Vec2::new(8.0, 6.0),
             egui::Align2::RIGHT_BOTTOM,
-            "depth ↓   line width: axial conductance",
+            "depth grows downward; line width shows axial conductance",
             egui::FontId::proportional(12.0),
             Color32::from_gray(170),
         );

@@ -5,9 +5,9 @@ use super::state::{CellState, ColourBy};
 use eframe::egui::Color32;
 
 /// Colour of anything that is not part of the model (a switched-off neurite type).
-pub const OFF: Color32 = Color32::from_rgba_premultiplied(90, 90, 96, 90);
+pub const OFF: Color32 = Color32::from_rgb(72, 72, 80);
 /// Colour of the faint copy of the original arbor behind the reduced tree.
-pub const FAINT: Color32 = Color32::from_rgba_premultiplied(60, 60, 66, 60);
+pub const FAINT: Color32 = Color32::from_rgb(58, 58, 68);
 /// The mark of the synapse site and of its compartment.
 pub const SITE: Color32 = Color32::from_rgb(80, 220, 255);
 

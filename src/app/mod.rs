@@ -531,7 +531,7 @@ impl PollardApp {
         });
         if let Some(e) = self.error.clone() {
             ui.horizontal(|ui| {
-                ui.colored_label(Color32::from_rgb(255, 110, 100), format!("⚠ {e}"));
+                ui.colored_label(Color32::from_rgb(255, 110, 100), format!("Problem: {e}"));
                 if ui.button("Dismiss").clicked() {
                     self.error = None;
                 }

@@ -49,7 +49,7 @@ impl Default for ControlsPanel {
         ControlsPanel {
             params: Params::default(),
             freq_hz: 0.0,
-            budget: 16,
+            budget: 31,
             unsettled: false,
         }
     }
@@ -72,6 +72,7 @@ impl ControlsPanel {
         cam: &Camera,
         out: &mut Vec<Action>,
     ) {
+        ui.spacing_mut().slider_width = 150.0;
         ui.add_space(4.0);
         ui.strong("Cell");
         ui.horizontal_wrapped(|ui| {
@@ -182,20 +183,26 @@ impl ControlsPanel {
         ui.label(format!("Membrane time constant {:.1} ms", p.tau_ms()));
 
         ui.add_space(4.0);
-        ui.strong("Frequency");
         let mut f = self.freq_hz;
         let r = ui.add(
             egui::Slider::new(&mut f, 0.0..=1000.0)
                 .logarithmic(true)
                 .smallest_positive(1.0)
-                .suffix(" Hz")
                 .text("Frequency")
                 .custom_formatter(|v, _| {
                     if v < 0.5 {
-                        "0 (DC)".into()
+                        "0 Hz (DC)".into()
                     } else {
-                        format!("{v:.0}")
+                        format!("{v:.0} Hz")
                     }
+                })
+                .custom_parser(|t| {
+                    let t = t
+                        .trim()
+                        .trim_end_matches("(DC)")
+                        .trim()
+                        .trim_end_matches("Hz");
+                    t.trim().parse::<f64>().ok()
                 }),
         );
         let r = r.on_hover_text("0 is a steady current (DC); higher frequencies attenuate more");
@@ -217,7 +224,7 @@ impl ControlsPanel {
         }
 
         ui.separator();
-        ui.strong("Compartments");
+        ui.strong("Reduction");
         match &s.reduction {
             Some(r) => {
                 let (lo, hi) = (r.min_compartments(), r.max_compartments().max(1));
@@ -297,7 +304,7 @@ impl ControlsPanel {
         });
         ui.label("Drag to turn, right-drag or shift-drag to shift, scroll to zoom, double-click to reset.");
         ui.horizontal(|ui| {
-            ui.label("Reduced tree");
+            ui.label("Draw the reduction");
             for (l, name) in [
                 (ReducedLayout::InPlace, "in place"),
                 (ReducedLayout::Dendrogram, "as a dendrogram"),
@@ -342,26 +349,11 @@ fn capitalised(s: &str) -> String {
     }
 }
 
-/// Which plot is shown.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum PlotKind {
-    Attenuation,
-    Error,
-    Sholl,
-}
-
-/// The plots under the drawings.
-#[derive(Debug, Clone)]
+/// The three plots under the drawings, side by side.
+#[derive(Debug, Clone, Default)]
 pub struct PlotsPanel {
-    pub shown: PlotKind,
-}
-
-impl Default for PlotsPanel {
-    fn default() -> Self {
-        PlotsPanel {
-            shown: PlotKind::Attenuation,
-        }
-    }
+    /// Number of original points drawn in the attenuation plot last frame (after thinning).
+    pub points_drawn: usize,
 }
 
 /// At most this many original points go into the attenuation plot (evenly thinned).
@@ -369,81 +361,81 @@ const PLOT_POINTS: usize = 20_000;
 
 impl PlotsPanel {
     pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
-        ui.horizontal(|ui| {
-            ui.selectable_value(
-                &mut self.shown,
-                PlotKind::Attenuation,
-                "Attenuation vs distance",
-            );
-            ui.selectable_value(&mut self.shown, PlotKind::Error, "Error vs compartments");
-            ui.selectable_value(&mut self.shown, PlotKind::Sholl, "Sholl profile");
+        ui.columns(3, |cols| {
+            self.attenuation(&mut cols[0], s);
+            error_plot(&mut cols[1], s);
+            sholl_plot(&mut cols[2], s);
         });
-        match self.shown {
-            PlotKind::Attenuation => {
-                let (orig, red) = s.attenuation_profile();
-                let step = orig.len().div_ceil(PLOT_POINTS).max(1);
-                let thinned: Vec<[f64; 2]> = orig.iter().step_by(step).copied().collect();
-                let what = if s.colour_by == ColourBy::ToSoma {
-                    "reaching the soma"
-                } else {
-                    "from the site"
-                };
-                Plot::new("attenuation")
-                    .legend(Legend::default())
-                    .x_axis_label("path distance from the soma (µm)")
-                    .y_axis_label(format!("attenuation {what} ({})", s.unit.suffix()))
-                    .show(ui, |pu| {
-                        pu.points(
-                            Points::new("original points", thinned)
-                                .radius(1.2)
-                                .color(Color32::from_rgb(150, 150, 160)),
-                        );
-                        if !red.is_empty() {
-                            pu.points(
-                                Points::new("reduced compartments", red)
-                                    .radius(4.0)
-                                    .color(Color32::from_rgb(250, 170, 60)),
-                            );
-                        }
-                    });
-            }
-            PlotKind::Error => match &s.reduction {
-                Some(r) => {
-                    let curve: Vec<[f64; 2]> = r
-                        .error_curve()
-                        .into_iter()
-                        .filter(|(_, e)| e.is_finite())
-                        .map(|(b, e)| [b as f64, e])
-                        .collect();
-                    Plot::new("error")
-                        .legend(Legend::default())
-                        .x_axis_label("compartments")
-                        .y_axis_label("error")
-                        .show(ui, |pu| {
-                            pu.line(
-                                Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)),
-                            );
-                            pu.vline(
-                                VLine::new("current", s.budget as f64)
-                                    .color(Color32::from_rgb(250, 170, 60)),
-                            );
-                        });
+    }
+
+    fn attenuation(&mut self, ui: &mut egui::Ui, s: &CellState) {
+        let (orig, red) = s.attenuation_profile();
+        let step = orig.len().div_ceil(PLOT_POINTS).max(1);
+        let thinned: Vec<[f64; 2]> = orig.iter().step_by(step).copied().collect();
+        self.points_drawn = thinned.len();
+        let what = if s.colour_by == ColourBy::ToSoma {
+            "Signal reaching the soma"
+        } else {
+            "Signal from the site"
+        };
+        ui.label(format!("{what} vs path distance"));
+        Plot::new("attenuation")
+            .legend(Legend::default())
+            .x_axis_label("path distance from the soma (µm)")
+            .y_axis_label(s.unit.suffix())
+            .show(ui, |pu| {
+                pu.points(
+                    Points::new("original points", thinned)
+                        .radius(1.2)
+                        .color(Color32::from_rgb(150, 150, 160)),
+                );
+                if !red.is_empty() {
+                    pu.points(
+                        Points::new("reduced compartments", red)
+                            .radius(3.5)
+                            .color(Color32::from_rgb(250, 170, 60)),
+                    );
                 }
-                None => {
-                    ui.label(&s.reduction_note);
-                }
-            },
-            PlotKind::Sholl => {
-                let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
-                Plot::new("sholl")
-                    .x_axis_label("distance from the soma centre (µm)")
-                    .y_axis_label(format!("crossings (every {} µm)", s.cell.sholl_step))
-                    .show(ui, |pu| {
-                        pu.line(
-                            Line::new("crossings", pts).color(Color32::from_rgb(110, 215, 140)),
-                        );
-                    });
-            }
+            });
+    }
+}
+
+fn error_plot(ui: &mut egui::Ui, s: &CellState) {
+    ui.label("Error vs number of compartments");
+    match &s.reduction {
+        Some(r) => {
+            let curve: Vec<[f64; 2]> = r
+                .error_curve()
+                .into_iter()
+                .filter(|(_, e)| e.is_finite())
+                .map(|(b, e)| [b as f64, e])
+                .collect();
+            let current = s.reduced.as_ref().map(|t| t.tree.len()).unwrap_or(s.budget);
+            Plot::new("error")
+                .legend(Legend::default())
+                .x_axis_label("compartments")
+                .y_axis_label("RMS error of ln attenuation to the soma")
+                .show(ui, |pu| {
+                    pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
+                    pu.vline(
+                        VLine::new(format!("now: {current}"), current as f64)
+                            .color(Color32::from_rgb(250, 170, 60)),
+                    );
+                });
+        }
+        None => {
+            ui.label(&s.reduction_note);
         }
     }
+}
+
+fn sholl_plot(ui: &mut egui::Ui, s: &CellState) {
+    ui.label("Sholl profile");
+    let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
+    Plot::new("sholl")
+        .x_axis_label("distance from the soma centre (µm)")
+        .y_axis_label(format!("crossings, every {} µm", s.cell.sholl_step))
+        .show(ui, |pu| {
+            pu.line(Line::new("crossings", pts).color(Color32::from_rgb(110, 215, 140)));
+        });
 }

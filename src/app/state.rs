@@ -682,7 +682,7 @@ impl CellState {
             unit: LogUnit::Decibel,
             reduction: None,
             reduction_note: "preparing the reduction…".into(),
-            budget: 16,
+            budget: 31,
             reduced: None,
             geometry_version: 1,
             colour_version: 1,
