@@ -287,7 +287,8 @@ pub struct Cell {
     pub output: PathBuf,
     /// The record: `OUT/.pollard-batch/<rel>` with `.json` in place of `.swc`.
     pub record: PathBuf,
-    /// Set when another input maps to the same output name (`a.swc` and `a.SWC`).
+    /// Set when another input maps to the same output name (`a.swc` and `a.SWC`): the cell
+    /// fails with this message, has no outputs and is reported again on every run.
     pub clash: Option<String>,
 }
 
@@ -437,6 +438,9 @@ fn row_from_exact(mut v: serde_json::Value) -> Option<Row> {
 /// The row of a cell that is complete under `settings` (see the module doc), or `None` when the
 /// cell must be (re)done. With `retry_failed`, a recorded failure is not reused.
 pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Option<Row> {
+    if cell.clash.is_some() {
+        return None;
+    }
     let in_meta = std::fs::metadata(&cell.input).ok()?;
     let rec_meta = std::fs::metadata(&cell.record).ok()?;
     if in_meta.modified().ok()? > rec_meta.modified().ok()? {
@@ -552,21 +556,22 @@ fn remove_if_present(path: &Path) -> Result<(), String> {
 /// panic inside the computation is caught and reported as the cell's error. Returns the row.
 pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
     let t0 = Instant::now();
-    let result = match &cell.clash {
-        Some(msg) => Err(msg.clone()),
-        None => std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| compute(cell, settings)))
-            .unwrap_or_else(|p| {
-                let what = p
-                    .downcast_ref::<&str>()
-                    .map(|s| s.to_string())
-                    .or_else(|| p.downcast_ref::<String>().cloned())
-                    .unwrap_or_default();
-                Err(format!(
-                    "{}: internal error (a bug; please report it): {what}",
-                    cell.rel
-                ))
-            }),
-    };
+    if let Some(msg) = &cell.clash {
+        // no record: the record's name is the other file's
+        return Row::failed(&cell.rel, 0.0, msg.clone());
+    }
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| compute(cell, settings)))
+        .unwrap_or_else(|p| {
+            let what = p
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| p.downcast_ref::<String>().cloned())
+                .unwrap_or_default();
+            Err(format!(
+                "{}: internal error (a bug; please report it): {what}",
+                cell.rel
+            ))
+        });
     let inputs = [cell.input.as_path()];
     let written = (|| -> Result<Row, String> {
         let input_bytes = std::fs::metadata(&cell.input).map(|m| m.len()).unwrap_or(0);
@@ -579,9 +584,7 @@ pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row
             }
             Err(msg) => {
                 // a tree left from an earlier run with other settings must not look current
-                if cell.clash.is_none() {
-                    remove_if_present(&cell.output)?;
-                }
+                remove_if_present(&cell.output)?;
                 Row::failed(&cell.rel, 0.0, msg)
             }
         };

@@ -123,8 +123,11 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
         "--jobs",
         "2",
     ]);
-    // exit code 2: the batch ran, some cells failed (documented in `pollard batch --help`)
-    assert_eq!(code, 2, "{err}");
+    // exit code 3: the batch ran, some cells failed (documented in `pollard batch --help`)
+    assert_eq!(code, 3, "{err}");
+    // stderr is not a terminal here: plain progress lines, and one line per failure
+    assert!(err.contains("cells (100 %), 7 failed"), "{err}");
+    assert_eq!(err.matches("failed: ").count(), 7, "{err}");
 
     let rows = read_rows(&out.join("summary.jsonl"));
     let files: Vec<&str> = rows.iter().map(|r| r.file.as_str()).collect();
@@ -227,7 +230,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
         "--jobs",
         "2",
     ]);
-    assert_eq!(code2, 2);
+    assert_eq!(code2, 3);
     assert!(err2.contains(" 0 done in this run"), "{err2}");
     assert_eq!(snapshot(&out), before);
     // the summary is rebuilt from the records, byte for byte (times too: they are kept)
@@ -247,7 +250,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
         BUDGET,
         "--force",
     ]);
-    assert_eq!(code3, 2);
+    assert_eq!(code3, 3);
     assert!(err3.contains(" 0 reused"), "{err3}");
     let after = snapshot(&out);
     for rel in arch.good.keys() {
@@ -396,7 +399,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
         "--compartments",
         BUDGET,
     ]);
-    assert_eq!(code, 2);
+    assert_eq!(code, 3);
     let all = read_rows(&whole.join("summary.jsonl"));
 
     let k = 3;
@@ -415,7 +418,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
             "--jobs",
             "1",
         ]);
-        assert!(code == 0 || code == 2, "{err}");
+        assert!(code == 0 || code == 3, "{err}");
         let rows = read_rows(&split.join(format!("summary.shard-{i}-of-{k}.jsonl")));
         assert!(split.join(format!("summary.shard-{i}-of-{k}.csv")).exists());
         // the library's own split agrees with the command's
@@ -433,7 +436,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
     assert!(!split.join("summary.jsonl").exists());
 
     let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
-    assert_eq!(code, 2, "{err}");
+    assert_eq!(code, 3, "{err}");
     let merged = read_rows(&split.join("summary.jsonl"));
     let strip = |rs: &[Row]| -> Vec<Row> {
         rs.iter()
@@ -457,4 +460,109 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
     let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
     assert_eq!(code, 1);
     assert!(err.contains("shard(s) 2 of 3"), "{err}");
+}
+
+#[test]
+fn type_filter_is_a_setting_and_name_clashes_are_reported() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let out = tmp.path().join("out");
+    for (i, rel) in ["a.swc", "b.swc", "b.SWC"].iter().enumerate() {
+        let text = synth::to_swc(&synth::random_tree(150, 40 + i as u64), &[]);
+        write(&input, rel, text.as_bytes());
+    }
+    write(&input, "broken.swc", b"1 1 0 0 0 5 -1\n2 3 0 0 0 1 99\n");
+    let cells = batch::plan(&input, &out, Shard::ALL).unwrap();
+    assert_eq!(cells.len(), 4);
+    let st = settings();
+    let (rows, _) = run_lib(&cells, &st, false);
+    let failed: Vec<&str> = rows
+        .iter()
+        .filter(|r| r.status == Status::Failed)
+        .map(|r| r.file.as_str())
+        .collect();
+    // "b.SWC" sorts before "b.swc" (byte order) and takes the name b.json first
+    assert_eq!(failed, ["b.swc", "broken.swc"]);
+    let clash = rows.iter().find(|r| r.file == "b.swc").unwrap();
+    assert!(clash.error.as_deref().unwrap().contains("b.SWC"));
+
+    // keeping only the soma and the basal dendrites (types 1 and 3) is another setting: nothing
+    // is reused, and with the axon and apical dendrites left out the cell's membrane shrinks,
+    // so its soma input resistance grows (input conductance is a sum over the branches; Rall 1959)
+    let mut st2 = st.clone();
+    st2.types = Some(vec![1, 3]);
+    let (rows2, reused) = run_lib(&cells, &st2, false);
+    assert_eq!(reused, 0);
+    for (r1, r2) in rows.iter().zip(&rows2) {
+        if r1.status == Status::Ok {
+            assert!(r2.soma_rin_full_mohm.unwrap() > r1.soma_rin_full_mohm.unwrap());
+        }
+    }
+    // everything is reused but the clash, which has no record of its own
+    let (rows3, reused) = run_lib(&cells, &st2, false);
+    assert_eq!(reused, 3);
+    assert_eq!(
+        rows3,
+        rows2
+            .iter()
+            .map(|r| Row {
+                seconds: if r.file == "b.swc" {
+                    rows3[2].seconds
+                } else {
+                    r.seconds
+                },
+                ..r.clone()
+            })
+            .collect::<Vec<_>>()
+    );
+    // --retry-failed redoes the failed cell too
+    let opts = RunOptions {
+        jobs: 1,
+        force: false,
+        retry_failed: true,
+    };
+    let (_, reused) = batch::run(&cells, &st2, &opts, &|_, _| {}).unwrap();
+    assert_eq!(reused, 2);
+}
+
+#[test]
+fn flags_out_of_range_stop_before_any_work() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    write(
+        &input,
+        "a.swc",
+        synth::to_swc(&synth::random_tree(50, 1), &[]).as_bytes(),
+    );
+    let out = tmp.path().join("out");
+    for bad in [
+        vec!["--rm", "0"],
+        vec!["--shard", "0/3"],
+        vec!["--shard", "4/3"],
+        vec!["--scale", "0"],
+    ] {
+        let mut args = vec![
+            "batch",
+            s(&input),
+            "--out",
+            s(&out),
+            "--compartments",
+            BUDGET,
+        ];
+        args.extend(bad.iter().copied());
+        let (code, err) = pollard(&args);
+        // 1: the batch could not run; 2: clap's usage error (not 3, "some cells failed")
+        assert!(code == 1 || code == 2, "{bad:?}: {code} {err}");
+        assert!(!out.join("a.json").exists());
+    }
+    // a folder that is not there
+    let (code, _) = pollard(&[
+        "batch",
+        s(&tmp.path().join("nope")),
+        "--out",
+        s(&out),
+        "--compartments",
+        "5",
+    ]);
+    assert_eq!(code, 1);
 }

@@ -11,15 +11,17 @@ use std::process::ExitCode;
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
-/// Exit code when the batch ran but at least one cell failed (1 means the batch could not run).
-const SOME_FAILED: u8 = 2;
+/// Exit code when the batch ran but at least one cell failed (1: the batch could not run;
+/// 2: the command line is wrong, as for every command).
+const SOME_FAILED: u8 = 3;
 
 #[derive(clap::Args, Debug)]
 #[command(after_help = "\
 Outputs: OUT_DIR/<same folders>/<name>.json per cell, OUT_DIR/summary.csv and summary.jsonl
 (one row per input file; with --shard I/K: summary.shard-I-of-K.csv/.jsonl).
 A second run skips the cells already done with the same flags; --force redoes them.
-Exit code: 0 all cells reduced, 2 some cells failed (see the summary), 1 the batch could not run.")]
+Exit code: 0 all cells reduced; 3 some cells failed (see the summary); 1 the batch could not run;
+2 the command line is wrong.")]
 pub struct Args {
     /// The folder to search for .swc files (all subfolders too).
     #[arg(required_unless_present = "merge_summaries")]
