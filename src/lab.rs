@@ -437,8 +437,7 @@ impl LabTree {
             }
         }
         // joints: the daughter's own cylinder (ideal tree)
-        for k in 1..n {
-            let s = node_section[k];
+        for (k, &s) in node_section.iter().enumerate().skip(1) {
             if s != NONE {
                 let r = secs[s as usize].piece.diam_um / 2.0;
                 flat.r_prox_um[k] = r;
