@@ -86,15 +86,14 @@ fn check_sealed_cylinder(p: &Params, f: f64, d: f64, l: f64, m: usize) {
     assert!(rel(got, zin) < 1e-6, "f {f}: R_in {got} vs {zin}");
     // current at x = 0: V(X)/V(0) both from the soma transfer and from the site map
     let site = maps.site_ratio(0).unwrap();
-    for k in 0..fl.len() {
+    for (k, &site_k) in site.iter().enumerate() {
         let x = qq * (k as f64 * l / m as f64 / lambda_um(p, d));
         let want = (big_l - x).cosh() / big_l.cosh();
         let got = maps.z_soma(k) / maps.z_soma(0);
         assert!(rel(got, want) < 1e-6, "f {f} node {k}: {got} vs {want}");
         assert!(
-            rel(site[k], want) < 1e-6,
-            "f {f} node {k}: {} vs {want}",
-            site[k]
+            rel(site_k, want) < 1e-6,
+            "f {f} node {k}: {site_k} vs {want}"
         );
     }
     // input impedance at the sealed tip: Z∞·coth(L) as well (the cable is symmetric)

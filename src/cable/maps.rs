@@ -251,17 +251,15 @@ mod tests {
         let net = toy();
         let m = Maps::new(&net);
         let z = dense_inverse(&net);
-        for k in 0..4 {
-            assert!((m.input_impedance(k).re - z[k][k]).abs() < 1e-12);
-        }
         let zs = m.soma_transfer(&net.parent);
-        for k in 0..4 {
-            assert!((zs[k].re - z[k][0]).abs() < 1e-12);
+        for (k, row) in z.iter().enumerate() {
+            assert!((m.input_impedance(k).re - row[k]).abs() < 1e-12);
+            assert!((zs[k].re - row[0]).abs() < 1e-12);
         }
         for j in 0..4 {
             let r = m.site_ratio(&net, j);
-            for k in 0..4 {
-                assert!((r[k].re - z[k][j] / z[j][j]).abs() < 1e-12, "j {j} k {k}");
+            for (k, row) in z.iter().enumerate() {
+                assert!((r[k].re - row[j] / z[j][j]).abs() < 1e-12, "j {j} k {k}");
             }
         }
     }

@@ -2,8 +2,8 @@
 //! from the soma, optionally the voltage map from one site) and whole-cell numbers.
 
 use anyhow::Context;
-use pollard::Morphology;
-use pollard::cable::{CellMaps, Params, PrepOptions, Summary, prepare};
+use pollard::cable::prep::{CableInput, cable_input};
+use pollard::cable::{CellMaps, Params, PrepOptions, Summary};
 use serde::ser::{SerializeMap, SerializeSeq};
 use serde::{Serialize, Serializer};
 use std::io::Write;
@@ -69,7 +69,7 @@ pub struct Args {
 
 /// Every SWC point's maps, streamed into the JSON without building a tree of values.
 struct Points<'a> {
-    m: &'a Morphology,
+    ids: &'a [i64],
     maps: &'a CellMaps,
     site: Option<&'a [f64]>,
 }
@@ -109,10 +109,10 @@ impl Serialize for OnePoint<'_> {
 
 impl Serialize for Points<'_> {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        let mut seq = s.serialize_seq(Some(self.m.len()))?;
-        for (i, p) in self.m.points.iter().enumerate() {
+        let mut seq = s.serialize_seq(Some(self.ids.len()))?;
+        for (i, &id) in self.ids.iter().enumerate() {
             seq.serialize_element(&OnePoint {
-                id: p.id,
+                id,
                 i,
                 maps: self.maps,
                 site: self.site,
@@ -150,11 +150,11 @@ struct Output<'a> {
     points: Points<'a>,
 }
 
-fn tips(m: &Morphology, s: &Summary) -> Vec<Tip> {
+fn tips(ids: &[i64], s: &Summary) -> Vec<Tip> {
     s.tips
         .iter()
         .map(|t| Tip {
-            id: m.points[t.point].id,
+            id: ids[t.point],
             electrotonic_length: t.electrotonic_length,
             path_length_um: t.path_length_um,
         })
@@ -168,21 +168,26 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         cm_uf_cm2: a.cm,
     };
     params.validate(a.freq)?;
-    let m = Morphology::read(&a.cell)?;
     let opts = PrepOptions {
         default_diameter_um: a.default_diameter,
         scale: a.scale,
     };
-    let flat = prepare(&m, &opts).with_context(|| a.cell.display().to_string())?;
+    let file = pollard::swc::read_path(&a.cell)?;
+    let input = cable_input(file, &opts)?;
+    let CableInput {
+        ids,
+        warnings,
+        flat,
+        ..
+    } = &input;
     let maps =
-        CellMaps::compute(&flat, &params, a.freq).with_context(|| a.cell.display().to_string())?;
+        CellMaps::compute(flat, &params, a.freq).with_context(|| a.cell.display().to_string())?;
     let site_node = match a.site {
         None => None,
         Some(id) => {
-            let i = m
-                .points
+            let i = ids
                 .iter()
-                .position(|p| p.id == id)
+                .position(|&p| p == id)
                 .with_context(|| format!("--site {id}: no point with that id in the file"))?;
             let k = maps.node_of_point(i).with_context(|| {
                 format!("--site {id}: that point is not connected to the cell's main tree")
@@ -191,7 +196,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
     };
     let site = site_node.and_then(|k| maps.site_ratio_abs(k));
-    let summary = maps.summary(&flat);
+    let summary = maps.summary(flat);
 
     let mut out: Vec<u8> = Vec::new();
     let mut sink: Box<dyn Write> = match a.output {
@@ -216,10 +221,10 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             max_attenuation_to_soma: summary.max_attenuation_to_soma,
             max_attenuation_from_soma: summary.max_attenuation_from_soma,
             site: a.site,
-            warnings: &m.warnings,
-            tips: tips(&m, &summary),
+            warnings,
+            tips: tips(ids, &summary),
             points: Points {
-                m: &m,
+                ids,
                 maps: &maps,
                 site: site.as_deref(),
             },
@@ -232,7 +237,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         write_text(
             &mut sink,
             &a,
-            &m,
+            (ids, warnings),
             &maps,
             &summary,
             site_node,
@@ -260,7 +265,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
 fn write_text(
     w: &mut dyn Write,
     a: &Args,
-    m: &Morphology,
+    (ids, warnings): (&[i64], &[pollard::Warning]),
     maps: &CellMaps,
     s: &Summary,
     site_node: Option<usize>,
@@ -317,7 +322,7 @@ fn write_text(
             writeln!(
                 w,
                 "    {:>9}: {:.3}, {:.1}, {:.1}, {:.3} / {:.3}",
-                m.points[t.point].id,
+                ids[t.point],
                 t.electrotonic_length,
                 t.path_length_um,
                 p.input_resistance_mohm,
@@ -335,9 +340,9 @@ fn write_text(
             v.iter().cloned().fold(f64::INFINITY, f64::min)
         )?;
     }
-    if !m.warnings.is_empty() {
+    if !warnings.is_empty() {
         writeln!(w, "  warnings:")?;
-        for x in &m.warnings {
+        for x in warnings {
             writeln!(w, "    - {x}")?;
         }
     }
