@@ -139,6 +139,60 @@ impl Segment {
     }
 }
 
+/// Point ids → file index. Ids that fill a compact range 0..=max (the usual case: 1..n) use a
+/// plain table, which is several times faster than hashing for a million points; others use a
+/// hash map.
+enum IdIndex {
+    Dense(Vec<u32>),
+    Sparse(HashMap<i64, u32>),
+}
+
+impl IdIndex {
+    fn new(raw: &[SwcPoint]) -> IdIndex {
+        let n = raw.len();
+        let (lo, hi) = raw.iter().fold((i64::MAX, i64::MIN), |(lo, hi), p| {
+            (lo.min(p.id), hi.max(p.id))
+        });
+        if lo >= 0 && (hi as u64) < 4 * n as u64 + 1024 {
+            IdIndex::Dense(vec![NONE; hi as usize + 1])
+        } else {
+            IdIndex::Sparse(HashMap::with_capacity(n))
+        }
+    }
+
+    /// Records `id` at `index`; returns the earlier index if the id was seen before.
+    fn insert(&mut self, id: i64, index: u32) -> Option<u32> {
+        match self {
+            IdIndex::Dense(t) => {
+                let slot = &mut t[id as usize];
+                if *slot != NONE {
+                    return Some(*slot);
+                }
+                *slot = index;
+                None
+            }
+            IdIndex::Sparse(m) => match m.entry(id) {
+                std::collections::hash_map::Entry::Occupied(e) => Some(*e.get()),
+                std::collections::hash_map::Entry::Vacant(e) => {
+                    e.insert(index);
+                    None
+                }
+            },
+        }
+    }
+
+    fn get(&self, id: i64) -> Option<u32> {
+        match self {
+            IdIndex::Dense(t) => usize::try_from(id)
+                .ok()
+                .and_then(|i| t.get(i))
+                .copied()
+                .filter(|&j| j != NONE),
+            IdIndex::Sparse(m) => m.get(&id).copied(),
+        }
+    }
+}
+
 fn dist(a: &[f64; 3], b: &[f64; 3]) -> f64 {
     ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2)).sqrt()
 }
@@ -171,9 +225,9 @@ impl Morphology {
             });
         }
         // ids → file index
-        let mut by_id: HashMap<i64, u32> = HashMap::with_capacity(n);
+        let mut by_id = IdIndex::new(&raw);
         for (i, p) in raw.iter().enumerate() {
-            if let Some(&first) = by_id.get(&p.id) {
+            if let Some(first) = by_id.insert(p.id, i as u32) {
                 return Err(err(
                     p.line,
                     Fault::DuplicateId {
@@ -182,7 +236,6 @@ impl Morphology {
                     },
                 ));
             }
-            by_id.insert(p.id, i as u32);
         }
         // parent links and the petgraph in file order
         let mut graph: DiGraph<u32, ()> = DiGraph::with_capacity(n, n);
@@ -194,8 +247,8 @@ impl Morphology {
             if p.parent == -1 {
                 continue;
             }
-            match by_id.get(&p.parent) {
-                Some(&j) => {
+            match by_id.get(p.parent) {
+                Some(j) => {
                     file_parent[i] = j;
                     graph.add_edge(NodeIndex::new(j as usize), NodeIndex::new(i), ());
                 }
@@ -240,6 +293,8 @@ impl Morphology {
             }
         }
         let neighbours = |i: u32| &adj[start[i as usize] as usize..start[i as usize + 1] as usize];
+        // soma flags in file order (a compact array: the searches below jump around)
+        let soma_kind: Vec<bool> = raw.iter().map(|p| p.kind == kind::SOMA).collect();
         // connected trees in file order
         let mut tree_of = vec![NONE; n];
         let mut tree_sizes: Vec<usize> = Vec::new();
@@ -256,7 +311,7 @@ impl Morphology {
             stack.push(s as u32);
             while let Some(k) = stack.pop() {
                 tree_sizes[t as usize] += 1;
-                if raw[k as usize].kind == kind::SOMA {
+                if soma_kind[k as usize] {
                     tree_soma[t as usize] += 1;
                 }
                 for &m in neighbours(k) {
@@ -309,7 +364,7 @@ impl Morphology {
             while let Some(k) = stack.pop() {
                 soma_file.push(k);
                 for &m in neighbours(k) {
-                    if !in_soma[m as usize] && raw[m as usize].kind == kind::SOMA {
+                    if !in_soma[m as usize] && soma_kind[m as usize] {
                         in_soma[m as usize] = true;
                         stack.push(m);
                     }
@@ -442,9 +497,9 @@ impl Morphology {
         let mut points: Vec<SwcPoint> = Vec::with_capacity(n);
         let mut parent = vec![NONE; n];
         let mut is_soma = vec![false; n];
-        let mut raw_opt: Vec<Option<SwcPoint>> = raw.into_iter().map(Some).collect();
         for (ni, &fi) in order.iter().enumerate() {
-            let mut p = raw_opt[fi as usize].take().expect("each point placed once");
+            // a plain copy (SwcPoint holds no heap data); cheaper than moving out of the vector
+            let mut p = raw[fi as usize].clone();
             let pf = new_parent_file[fi as usize];
             if pf != NONE {
                 parent[ni] = new_index[pf as usize];
@@ -460,7 +515,7 @@ impl Morphology {
                 points[i].parent = points[parent[i] as usize].id;
             }
         }
-        drop(raw_opt);
+        drop(raw);
         let mut graph2: DiGraph<u32, ()> = DiGraph::with_capacity(n, n);
         for i in 0..n {
             graph2.add_node(i as u32);

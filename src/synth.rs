@@ -520,21 +520,18 @@ fn fork_radii(rng: &mut Rng, r: f64, k: usize, noise: f64, min_r: f64) -> Vec<f6
         .collect()
 }
 
-/// Grows a branching neurite from point `parent` (at `start`) along unit `dir`, first radius
-/// `r`, with the habit `h`, adding at most `budget` points. Sections wait on a stack (depth
+/// Where a neurite starts: (parent point, its position, unit direction, first radius).
+struct Sprout(i64, [f64; 3], [f64; 3], f64);
+
+/// A section waiting to be drawn: (parent point, start, direction, radius, order or type).
+type Section = (i64, [f64; 3], [f64; 3], f64, u32);
+
+/// Grows a branching neurite from `from` with the habit `h`, adding at most `budget` points. Sections wait on a stack (depth
 /// first, no recursion). Returns the number of points added.
-fn grow(
-    c: &mut Cell,
-    rng: &mut Rng,
-    parent: i64,
-    start: [f64; 3],
-    dir: [f64; 3],
-    r: f64,
-    h: &Habit,
-    budget: usize,
-) -> usize {
+fn grow(c: &mut Cell, rng: &mut Rng, from: Sprout, h: &Habit, budget: usize) -> usize {
     let before = c.pts.len();
-    let mut stack: Vec<(i64, [f64; 3], [f64; 3], f64, u32)> = vec![(parent, start, dir, r, 0)];
+    let Sprout(parent, start, dir, r) = from;
+    let mut stack: Vec<Section> = vec![(parent, start, dir, r, 0)];
     while let Some((mut at, mut pos, mut d, mut r, order)) = stack.pop() {
         let len = rng.range(h.section.0, h.section.1);
         let mut done = 0.0;
@@ -646,7 +643,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
             let od = turn(d, side, rng.range(0.1, 0.45));
             let or = (r * rng.range(0.3, 0.45)).max(0.3);
             let budget = cap.saturating_sub(c.pts.len()) / 4;
-            grow(&mut c, &mut rng, at, pos, od, or, &oblique, budget);
+            grow(&mut c, &mut rng, Sprout(at, pos, od, or), &oblique, budget);
         }
     }
     // tuft
@@ -673,7 +670,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         let side = normalize(add(side, scale(rng.unit_vector(), 0.5)));
         let td = turn(d, normalize(side), rng.range(0.55, 0.8));
         let budget = cap.saturating_sub(c.pts.len()) / 2;
-        grow(&mut c, &mut rng, at, pos, td, tr, &tuft, budget);
+        grow(&mut c, &mut rng, Sprout(at, pos, td, tr), &tuft, budget);
     }
     // basal dendrites
     let n_basal = 4 + rng.below(3) as usize;
@@ -689,7 +686,13 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         let start = scale(bd, soma_r);
         let first = c.push(3, start, br, soma);
         let budget = cap.saturating_sub(c.pts.len()) / (n_basal - i).max(1);
-        grow(&mut c, &mut rng, first, start, bd, br, &basal, budget);
+        grow(
+            &mut c,
+            &mut rng,
+            Sprout(first, start, bd, br),
+            &basal,
+            budget,
+        );
     }
     // axon
     let axon = Habit {
@@ -709,16 +712,8 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
     };
     let start = [0.0, -soma_r, 0.0];
     let first = c.push(2, start, 0.6, soma);
-    grow(
-        &mut c,
-        &mut rng,
-        first,
-        start,
-        [0.0, -1.0, 0.0],
-        0.5,
-        &axon,
-        400,
-    );
+    let from = Sprout(first, start, [0.0, -1.0, 0.0], 0.5);
+    grow(&mut c, &mut rng, from, &axon, 400);
     c.pts
 }
 
@@ -758,7 +753,13 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
         let start = scale(dd, soma_r);
         let first = c.push(3, start, dr, soma);
         let budget = cap.saturating_sub(c.pts.len()) / (n_dend - i).max(1);
-        grow(&mut c, &mut rng, first, start, dd, dr, &habit, budget);
+        grow(
+            &mut c,
+            &mut rng,
+            Sprout(first, start, dd, dr),
+            &habit,
+            budget,
+        );
     }
     let axon = Habit {
         kind: 2,
@@ -778,7 +779,7 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
     let ad = rng.unit_vector();
     let start = scale(ad, soma_r);
     let first = c.push(2, start, 0.5, soma);
-    grow(&mut c, &mut rng, first, start, ad, 0.45, &axon, 300);
+    grow(&mut c, &mut rng, Sprout(first, start, ad, 0.45), &axon, 300);
     c.pts
 }
 
@@ -795,7 +796,7 @@ pub fn big_cell(n_points: usize, seed: u64) -> Vec<SwcPoint> {
     let soma_r = rng.range(7.0, 11.0);
     let soma = c.push(1, [0.0; 3], soma_r, -1);
     // (parent, start, dir, radius, kind)
-    let mut queue: VecDeque<(i64, [f64; 3], [f64; 3], f64, i32)> = VecDeque::new();
+    let mut queue: VecDeque<Section> = VecDeque::new();
     let stems = 4 + rng.below(5) as usize;
     for s in 0..stems {
         let kind = match s {
@@ -813,7 +814,7 @@ pub fn big_cell(n_points: usize, seed: u64) -> Vec<SwcPoint> {
         } else {
             rng.range(0.6, 1.5)
         };
-        queue.push_back((soma, scale(d, soma_r), d, r, kind));
+        queue.push_back((soma, scale(d, soma_r), d, r, kind as u32));
     }
     while c.pts.len() < n {
         let Some((parent, start, mut d, mut r, kind)) = queue.pop_front() else {
@@ -826,9 +827,10 @@ pub fn big_cell(n_points: usize, seed: u64) -> Vec<SwcPoint> {
             let p = &c.pts[j];
             let kind = if p.kind == 1 { 3 } else { p.kind };
             let r = p.radius.unwrap_or(0.5).min(0.5);
-            queue.push_back((p.id, p.pos, rng.unit_vector(), r, kind));
+            queue.push_back((p.id, p.pos, rng.unit_vector(), r, kind as u32));
             continue;
         };
+        let kind = kind as i32;
         let segs = 8 + rng.below(33) as usize;
         let mut at = parent;
         let mut pos = start;
@@ -859,7 +861,7 @@ pub fn big_cell(n_points: usize, seed: u64) -> Vec<SwcPoint> {
             for &cr in &radii {
                 let perp = random_perp(&mut rng, d);
                 let nd = turn(d, perp, rng.range(0.6, 0.9));
-                queue.push_back((at, pos, nd, cr, kind));
+                queue.push_back((at, pos, nd, cr, kind as u32));
             }
         }
     }
