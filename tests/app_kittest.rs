@@ -299,3 +299,31 @@ fn colouring_choices_and_views_do_not_panic() {
     let s = h.state().state.as_ref().unwrap();
     assert_eq!(s.unit, pollard::app::state::LogUnit::Neper);
 }
+
+#[test]
+fn a_file_without_radii_still_opens_and_says_so() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = dir.path().join("skeleton.swc");
+    std::fs::write(
+        &f,
+        "1 1 0 0 0 0 -1\n2 3 10 0 0 0 1\n3 3 20 5 0 0 2\n4 3 20 -5 0 0 2\n",
+    )
+    .unwrap();
+    let mut h = harness(app_with(vec![Some(f.clone())]));
+    h.get_by_label("Open file…").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let app = h.state();
+    assert!(app.error.is_none(), "{:?}", app.error);
+    let s = app.state.as_ref().unwrap();
+    assert_eq!(s.cell.name, "skeleton.swc");
+    assert!(
+        s.cell
+            .warnings
+            .iter()
+            .any(|w| w.contains("no usable radius")),
+        "{:?}",
+        s.cell.warnings
+    );
+    assert!(s.elec.input_mohm.iter().all(|r| r.is_finite() && *r > 0.0));
+}

@@ -34,8 +34,24 @@ pub enum Start {
     Lab,
 }
 
+/// Choices applied once the first cell has loaded (from `pollard view` options).
+#[derive(Debug, Clone, Default)]
+pub struct StartOptions {
+    pub budget: Option<usize>,
+    /// SWC id of the synapse site.
+    pub site_id: Option<i64>,
+    pub freq_hz: Option<f64>,
+    pub colour_by: Option<state::ColourBy>,
+    pub dendrogram: bool,
+}
+
 /// Opens the window.
 pub fn run(start: Start) -> anyhow::Result<()> {
+    run_with(start, StartOptions::default())
+}
+
+/// Opens the window and applies `opts` once the cell has loaded.
+pub fn run_with(start: Start, opts: StartOptions) -> anyhow::Result<()> {
     let options = eframe::NativeOptions {
         viewport: egui::ViewportBuilder::default()
             .with_inner_size([1560.0, 960.0])
@@ -50,6 +66,7 @@ pub fn run(start: Start) -> anyhow::Result<()> {
         Box::new(move |cc| {
             let mut app = PollardApp::new(start, Dialogs::Native, RecentFiles::from_config());
             app.ctx = Some(cc.egui_ctx.clone());
+            app.start_options = Some(opts);
             Ok(Box::new(app))
         }),
     )
@@ -100,6 +117,8 @@ pub struct PollardApp {
     /// The rect of the figure (canvases and colour bar) last drawn.
     figure_rect: egui::Rect,
     ctx: Option<egui::Context>,
+    /// Applied when the next cell finishes loading.
+    pub start_options: Option<StartOptions>,
 }
 
 impl PollardApp {
@@ -129,6 +148,7 @@ impl PollardApp {
             pending_png: None,
             figure_rect: egui::Rect::NOTHING,
             ctx: None,
+            start_options: None,
         };
         match start {
             Start::Demo => app.open_demo(),
@@ -239,8 +259,12 @@ impl PollardApp {
                     self.camera = Camera::default();
                     self.error = None;
                     self.start_reduction();
+                    if self.state.as_ref().is_some_and(|s| s.cell.path.is_some()) {
+                        self.apply_start_options();
+                    }
                 }
                 Err(e) => {
+                    self.start_options = None;
                     self.error = Some(format!(
                         "Could not open {}: {e}",
                         what.trim_start_matches("opening ")
@@ -271,6 +295,45 @@ impl PollardApp {
         if let Some(lab_tree) = self.lab.take_send_to_main() {
             self.open_morphology(lab_tree.0, lab_tree.1);
             self.screen = Screen::Cell;
+        }
+    }
+
+    fn apply_start_options(&mut self) {
+        let Some(o) = self.start_options.take() else {
+            return;
+        };
+        if o.dendrogram {
+            self.layout = ReducedLayout::Dendrogram;
+        }
+        let Some(s) = &mut self.state else { return };
+        if let Some(f) = o.freq_hz {
+            let p = s.params;
+            if let Err(e) = s.set_electrical(p, f) {
+                self.error = Some(format!("{e:#}"));
+            }
+            self.controls.freq_hz = s.freq_hz;
+        }
+        if let Some(c) = o.colour_by {
+            s.colour_by = c;
+            s.colour_version += 1;
+        }
+        if let Some(id) = o.site_id {
+            let node = s
+                .cell
+                .morph
+                .points
+                .iter()
+                .position(|p| p.id == id)
+                .map(|i| s.cell.flat.point_node[i])
+                .filter(|&k| k != crate::morphology::NONE);
+            match node {
+                Some(k) => s.set_site(Some(k as usize)),
+                None => self.error = Some(format!("there is no point with id {id} in the cell")),
+            }
+        }
+        if let Some(b) = o.budget {
+            s.budget = b.max(1);
+            self.controls.budget = s.budget;
         }
     }
 

@@ -49,7 +49,7 @@ impl Default for ControlsPanel {
         ControlsPanel {
             params: Params::default(),
             freq_hz: 0.0,
-            budget: 31,
+            budget: 63,
             unsettled: false,
         }
     }
@@ -380,7 +380,7 @@ impl PlotsPanel {
         };
         ui.label(format!("{what} vs path distance"));
         Plot::new("attenuation")
-            .legend(Legend::default())
+            .legend(Legend::default().position(egui_plot::Corner::RightBottom))
             .x_axis_label("path distance from the soma (µm)")
             .y_axis_label(s.unit.suffix())
             .show(ui, |pu| {
@@ -414,7 +414,7 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
             Plot::new("error")
                 .legend(Legend::default())
                 .x_axis_label("compartments")
-                .y_axis_label("RMS error of ln attenuation to the soma")
+                .y_axis_label("RMS error, ln units")
                 .show(ui, |pu| {
                     pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
                     pu.vline(

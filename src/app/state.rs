@@ -7,6 +7,9 @@ use crate::morphology::{Flat, Morphology, NONE, kind};
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
+/// Diameter given to points whose radius is zero or unknown (µm); common practice, no source.
+pub const DEFAULT_DIAMETER_UM: f64 = 1.0;
+
 /// A cell as read from disk (or built in), with the things computed once per file.
 #[derive(Debug, Clone)]
 pub struct Cell {
@@ -34,8 +37,14 @@ pub struct Cell {
 impl Cell {
     /// Computes the per-file things from a morphology.
     pub fn new(name: String, path: Option<std::path::PathBuf>, morph: Morphology) -> Cell {
-        let flat = morph.flatten();
-        let warnings = morph.warnings.iter().map(|w| w.to_string()).collect();
+        let mut flat = morph.flatten();
+        let mut warnings: Vec<String> = morph.warnings.iter().map(|w| w.to_string()).collect();
+        let filled = crate::cable::prep::fill_radii(&mut flat, DEFAULT_DIAMETER_UM);
+        if filled > 0 {
+            warnings.push(format!(
+                "{filled} segment end(s) have no usable radius (zero or unknown); they are drawn and computed with a {DEFAULT_DIAMETER_UM} µm diameter"
+            ));
+        }
         let mut lo = [f64::INFINITY; 3];
         let mut hi = [f64::NEG_INFINITY; 3];
         for p in &flat.pos {
@@ -682,7 +691,7 @@ impl CellState {
             unit: LogUnit::Decibel,
             reduction: None,
             reduction_note: "preparing the reduction…".into(),
-            budget: 31,
+            budget: 63,
             reduced: None,
             geometry_version: 1,
             colour_version: 1,

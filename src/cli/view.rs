@@ -3,15 +3,59 @@
 use std::path::PathBuf;
 use std::process::ExitCode;
 
+/// What the arbors are coloured by when the window opens.
+#[derive(clap::ValueEnum, Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ColourBy {
+    /// Voltage spreading from the synapse site.
+    FromSite,
+    /// Voltage reaching the soma from each point.
+    ToSoma,
+    /// Local input resistance.
+    InputResistance,
+    /// Strahler order.
+    Strahler,
+    /// Neurite type.
+    Type,
+}
+
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// The SWC file to open.
     pub cell: PathBuf,
+    /// Start with this many compartments in the reduced tree.
+    #[arg(long, value_name = "N")]
+    pub budget: Option<usize>,
+    /// Start with the synapse site at the point with this SWC id.
+    #[arg(long, value_name = "ID")]
+    pub site: Option<i64>,
+    /// Start at this frequency (Hz, 0 = DC).
+    #[arg(long, value_name = "HZ")]
+    pub freq: Option<f64>,
+    /// What colours the arbors at the start.
+    #[arg(long, value_enum, value_name = "WHAT")]
+    pub colour_by: Option<ColourBy>,
+    /// Draw the reduced tree as a dendrogram rather than in place.
+    #[arg(long)]
+    pub dendrogram: bool,
 }
 
 #[cfg(feature = "gui")]
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    pollard::app::run(pollard::app::Start::File(a.cell))?;
+    use pollard::app::state::ColourBy as C;
+    let opts = pollard::app::StartOptions {
+        budget: a.budget,
+        site_id: a.site,
+        freq_hz: a.freq,
+        colour_by: a.colour_by.map(|c| match c {
+            ColourBy::FromSite => C::FromSite,
+            ColourBy::ToSoma => C::ToSoma,
+            ColourBy::InputResistance => C::InputResistance,
+            ColourBy::Strahler => C::Strahler,
+            ColourBy::Type => C::NeuriteType,
+        }),
+        dendrogram: a.dendrogram,
+    };
+    pollard::app::run_with(pollard::app::Start::File(a.cell), opts)?;
     Ok(ExitCode::SUCCESS)
 }
 
