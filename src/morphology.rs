@@ -193,6 +193,44 @@ impl IdIndex {
     }
 }
 
+/// The first point (in file order) of a cycle of parent links, if there is one. Every point has
+/// at most one parent, so walking up from each point either reaches a root, a point already
+/// known to lead to a root, or comes back to the current walk: a cycle. Each point is walked
+/// once: O(n), no recursion.
+fn find_cycle(parent: &[u32]) -> Option<usize> {
+    const NEW: u8 = 0;
+    const WALKING: u8 = 1;
+    const DONE: u8 = 2;
+    let mut state = vec![NEW; parent.len()];
+    let mut path: Vec<usize> = Vec::new();
+    for s in 0..parent.len() {
+        let mut j = s;
+        while state[j] == NEW {
+            state[j] = WALKING;
+            path.push(j);
+            match parent[j] {
+                NONE => break,
+                p => j = p as usize,
+            }
+        }
+        if state[j] == WALKING && parent[j] != NONE {
+            // j is on the cycle; go round it once for its first point in file order
+            let mut first = j;
+            let mut k = parent[j] as usize;
+            while k != j {
+                first = first.min(k);
+                k = parent[k] as usize;
+            }
+            return Some(first);
+        }
+        for &k in &path {
+            state[k] = DONE;
+        }
+        path.clear();
+    }
+    None
+}
+
 fn dist(a: &[f64; 3], b: &[f64; 3]) -> f64 {
     ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2)).sqrt()
 }
@@ -237,11 +275,7 @@ impl Morphology {
                 ));
             }
         }
-        // parent links and the petgraph in file order
-        let mut graph: DiGraph<u32, ()> = DiGraph::with_capacity(n, n);
-        for i in 0..n {
-            graph.add_node(i as u32);
-        }
+        // parent links in file order
         let mut file_parent = vec![NONE; n];
         for (i, p) in raw.iter().enumerate() {
             if p.parent == -1 {
@@ -250,7 +284,6 @@ impl Morphology {
             match by_id.get(p.parent) {
                 Some(j) => {
                     file_parent[i] = j;
-                    graph.add_edge(NodeIndex::new(j as usize), NodeIndex::new(i), ());
                 }
                 None => {
                     return Err(err(
@@ -264,10 +297,8 @@ impl Morphology {
             }
         }
         drop(by_id);
-        // Each point has at most one parent, so the links are a forest unless there is a cycle;
-        // petgraph's topological sort finds one (iteratively).
-        if let Err(cycle) = petgraph::algo::toposort(&graph, None) {
-            let i = cycle.node_id().index();
+        // Each point has at most one parent, so the links are a forest unless there is a cycle.
+        if let Some(i) = find_cycle(&file_parent) {
             return Err(err(raw[i].line, Fault::Cycle(raw[i].id)));
         }
         // undirected adjacency (CSR) for re-rooting and ordering
@@ -525,7 +556,6 @@ impl Morphology {
                 graph2.add_edge(NodeIndex::new(parent[i] as usize), NodeIndex::new(i), ());
             }
         }
-        drop(graph);
         let soma: Vec<u32> = (0..main_len as u32)
             .filter(|&i| is_soma[i as usize])
             .collect();
