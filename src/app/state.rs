@@ -1088,4 +1088,36 @@ mod tests {
         let r = maps.site_ratio(&net, 1);
         assert!((r[0].re - 2.0 / 3.0).abs() < 1e-12);
     }
+
+    #[test]
+    fn reduced_maps_match_the_reducers_own_dc_site_ratio() {
+        // the app re-solves the reduced tree through the cable sweeps; the reducer has its own
+        // DC solve (site_ratio_dc). Both must agree compartment by compartment, which also checks
+        // the id and ordering bookkeeping of the adapter.
+        let cell = Arc::new(Cell::demo());
+        let mut s = CellState::new(cell, Params::default(), 0.0).unwrap();
+        s.set_reduction(build_reduction(&s.model.flat, &s.params));
+        for budget in [1, 7, 31] {
+            s.set_budget(budget);
+            let red = s.reduced.as_ref().expect("reduced tree");
+            let sc = red.site_comp.expect("the site maps to a compartment");
+            let r = crate::reduce::Reducer::new(
+                &s.model.flat,
+                &s.params,
+                &crate::reduce::ReduceOptions::default(),
+            )
+            .unwrap();
+            let t = r.tree(budget);
+            let id = red.tree.id[sc] as usize;
+            let theirs = t.site_ratio_dc(id);
+            for c in 0..red.tree.len() {
+                let mine = red.ln_from_site[c];
+                let other = theirs[red.tree.id[c] as usize].ln();
+                assert!(
+                    (mine - other).abs() < 1e-9,
+                    "budget {budget} c {c}: {mine} vs {other}"
+                );
+            }
+        }
+    }
 }
