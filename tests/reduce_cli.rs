@@ -1,0 +1,186 @@
+//! `pollard reduce` as a user meets it: files written, the report printed, the JSON layout of
+//! assets/reduced-tree.schema.json, budgets rounded, types and site lists, one-line errors.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn pollard(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_pollard"))
+        .args(args)
+        .output()
+        .expect("the pollard binary runs")
+}
+
+fn manifest(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+#[test]
+fn reduce_writes_json_and_swc_and_prints_the_report() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("tree.json");
+    let swc = dir.path().join("tree.swc");
+    let cell = manifest("sample_cells/practice_pyramidal.swc");
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "--compartments",
+        "16",
+        "--out",
+        out.to_str().unwrap(),
+        "--swc",
+        swc.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let stdout = text(&o.stdout);
+    assert!(stdout.contains("reduced to 15 compartments"), "{stdout}");
+    assert!(stdout.contains("rounded down"), "{stdout}");
+    assert!(stdout.contains("soma input resistance, DC"), "{stdout}");
+    assert!(stdout.contains("95th percentile"), "{stdout}");
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    assert_eq!(v["format"], "pollard.reduced-tree");
+    assert_eq!(v["schema_version"], 1);
+    let comps = v["compartments"].as_array().unwrap();
+    assert_eq!(comps.len(), 15);
+    // the schema's required fields are present in every compartment
+    let schema: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(manifest("assets/reduced-tree.schema.json")).unwrap(),
+    )
+    .unwrap();
+    let req = schema["properties"]["compartments"]["items"]["required"]
+        .as_array()
+        .unwrap();
+    for c in comps {
+        for k in req {
+            assert!(c.get(k.as_str().unwrap()).is_some(), "missing {k} in {c}");
+        }
+        let kids = c["children"].as_array().unwrap().len();
+        assert!(kids == 0 || kids == 2);
+    }
+    for k in schema["required"].as_array().unwrap() {
+        assert!(
+            v.get(k.as_str().unwrap()).is_some(),
+            "missing top-level {k}"
+        );
+    }
+    for k in schema["properties"]["report"]["required"]
+        .as_array()
+        .unwrap()
+    {
+        assert!(
+            v["report"].get(k.as_str().unwrap()).is_some(),
+            "missing report {k}"
+        );
+    }
+    assert_eq!(v["feed_forward"]["w"][0], serde_json::Value::Null);
+    assert_eq!(v["compartments"][0]["parent"], serde_json::Value::Null);
+    // the SWC has one point per compartment, the root first
+    let swc_text = std::fs::read_to_string(&swc).unwrap();
+    let lines: Vec<&str> = swc_text.lines().filter(|l| !l.starts_with('#')).collect();
+    assert_eq!(lines.len(), 15);
+    assert!(lines[0].ends_with(" -1"));
+    let m = pollard::Morphology::parse(&swc_text, "tree.swc").unwrap();
+    assert_eq!(m.len(), 15);
+    // strict binary: 8 leaves (points that are nobody's parent), every other point 2 children
+    let leaves = m.n_children.iter().filter(|&&c| c == 0).count();
+    assert_eq!(leaves, 8);
+    assert!(m.n_children.iter().all(|&c| c == 0 || c == 2));
+}
+
+#[test]
+fn reduce_takes_types_and_a_site_list() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("tree.json");
+    let cell = manifest("sample_cells/practice_pyramidal.swc");
+    let m = pollard::Morphology::read(&cell).unwrap();
+    // three sites: two SWC ids (one twice) on dendrites
+    let dend: Vec<i64> = m
+        .points
+        .iter()
+        .filter(|p| p.kind == 3)
+        .map(|p| p.id)
+        .take(2)
+        .collect();
+    let sites = dir.path().join("sites.csv");
+    std::fs::write(
+        &sites,
+        format!("swc_id\n{}\n{}\n{}\n", dend[0], dend[1], dend[1]),
+    )
+    .unwrap();
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "-n",
+        "7",
+        "--types",
+        "1,3,4",
+        "--sites",
+        sites.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--json",
+    ]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let rep: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(rep["sites"], 3);
+    assert_eq!(rep["compartments"], 7);
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    let total: u64 = v["compartments"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| c["site_count"].as_u64().unwrap())
+        .sum();
+    assert_eq!(total, 3);
+    assert_eq!(v["parameters"]["types_kept"], serde_json::json!([1, 3, 4]));
+    // axon points (type 2) are mapped to no compartment
+    let ids = v["site_map"]["points"]["swc_id"].as_array().unwrap();
+    let comp = v["site_map"]["points"]["compartment"].as_array().unwrap();
+    for (i, p) in m.points.iter().enumerate() {
+        assert_eq!(ids[i], p.id);
+        if p.kind == 2 {
+            assert!(comp[i].is_null(), "axon point {} mapped", p.id);
+        }
+    }
+}
+
+#[test]
+fn reduce_errors_are_one_line_and_name_the_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("tree.json");
+    let cell = manifest("sample_cells/y_junction.swc");
+    let sites = dir.path().join("bad.csv");
+    std::fs::write(&sites, "12345678\n").unwrap();
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "-n",
+        "3",
+        "--sites",
+        sites.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    let err = text(&o.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(err.contains("bad.csv") && err.contains("line 1"), "{err}");
+    assert!(!out.exists());
+    // refusing to overwrite the input
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "-n",
+        "3",
+        "--out",
+        cell.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(text(&o.stderr).contains("refusing to overwrite"));
+}
