@@ -198,3 +198,38 @@ fn export_as_swc_writes_a_file_that_reads_back() {
     assert_eq!(want, 7);
     assert_eq!(m.metrics().tips, 4);
 }
+
+#[test]
+fn the_app_opens_a_sent_lab_tree_in_the_cell_view() {
+    use pollard::app::files::{Dialogs, RecentFiles};
+    use pollard::app::{PollardApp, Screen, Start};
+    let mut app = PollardApp::new(
+        Start::Lab,
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    app.wait_idle();
+    assert_eq!(app.screen, Screen::Lab);
+    let mut h = Harness::builder()
+        .with_size(egui::Vec2::new(1560.0, 960.0))
+        .with_max_steps(200)
+        .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app);
+    h.run_steps(2);
+    h.get_by_label(Preset::ThinTwig.label()).click();
+    h.run_steps(2);
+    h.get_by_label("Send to main view").click();
+    h.run_steps(2);
+    h.state_mut().wait_idle();
+    h.run_steps(2);
+    let app = h.state();
+    assert_eq!(app.screen, Screen::Cell);
+    let cell = &app.state.as_ref().unwrap().cell;
+    assert!(cell.name.contains("thin twig"), "{}", cell.name);
+    // the asymmetric tree of the lesson: 4 tips, 7 sections of 150–200 µm
+    assert_eq!(cell.morph.metrics().tips, 4);
+    let total = cell.morph.metrics().total_length_um;
+    assert!(
+        (total - (4.0 * 150.0 + 3.0 * 200.0)).abs() < 1e-6,
+        "{total}"
+    );
+}

@@ -10,7 +10,7 @@ use super::colour::Scale;
 use crate::Morphology;
 use crate::lab::{End, Equivalent, LabResult, MAX_LEVELS, PathSeries, Piece, Shape, TreeSpec};
 use eframe::egui::{self, Color32, Pos2, RichText, Sense, Stroke, Vec2};
-use egui_plot::{Corner, Legend, Line, LineStyle, Plot, VLine};
+use egui_plot::{AxisHints, Corner, Legend, Line, LineStyle, Plot, VLine};
 use std::path::PathBuf;
 use std::sync::mpsc::Receiver;
 
@@ -57,10 +57,12 @@ impl Preset {
                  ratio is."
             }
             Preset::ThickDaughters => {
-                "The reverse mismatch: a thin trunk ends on two thick daughters. Seen from the trunk \
+                "The reverse mismatch: a thin trunk ends on two thick daughters, and seen from the trunk \
                  the fork is a heavy load, almost a short to rest, so the voltage from the soma \
-                 sinks along the trunk as if towards a killed end. The 3/2 ratio is far above 1; \
-                 drag the daughter diameter down and watch the soma-side curve straighten."
+                 sinks along the trunk as if towards a killed end. Here even the one-sidedness turns \
+                 round: the thick tip has a lower input resistance than the start of the thin trunk, \
+                 so the tip's signal reaches the soma better than the soma's reaches the tip. Drag \
+                 the daughter diameter down and watch the 3/2 ratio come towards 1."
             }
             Preset::RallTree => {
                 "When the daughters' d^3/2 add up to the parent's at every fork, the daughters \
@@ -965,7 +967,7 @@ impl LabView {
                 Plot::new("lab_voltage")
                     .height(height)
                     .legend(Legend::default().position(Corner::RightTop))
-                    .x_axis_label(x_label)
+                    .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("V / V at the injection site")
                     .include_y(0.0)
                     .include_y(1.35)
@@ -1006,7 +1008,7 @@ impl LabView {
                 Plot::new("lab_rin")
                     .height(height)
                     .legend(Legend::default().position(Corner::LeftTop))
-                    .x_axis_label(x_label)
+                    .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("|Z_in| (MΩ)")
                     .include_y(0.0)
                     .show(ui, |pu| {
@@ -1034,7 +1036,7 @@ impl LabView {
                 Plot::new("lab_melec")
                     .height(height)
                     .legend(Legend::default().position(Corner::LeftTop))
-                    .x_axis_label(x_label)
+                    .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("ln(attenuation) to or from the soma")
                     .include_y(0.0)
                     .show(ui, |pu| {
@@ -1218,4 +1220,12 @@ fn slider<'a, N: egui::emath::Numeric>(
     range: std::ops::RangeInclusive<N>,
 ) -> egui::Slider<'a> {
     egui::Slider::new(value, range).clamping(egui::SliderClamping::Edits)
+}
+
+/// The x axis of the lab's plots: tick labels allowed closer together than the default, so that
+/// narrow plots keep their numbers.
+fn x_axis(label: &str) -> AxisHints<'static> {
+    AxisHints::new_x()
+        .label(label.to_string())
+        .label_spacing(32.0..=48.0)
 }
