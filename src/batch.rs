@@ -287,9 +287,10 @@ pub struct Cell {
     pub output: PathBuf,
     /// The record: `OUT/.pollard-batch/<rel>` with `.json` in place of `.swc`.
     pub record: PathBuf,
-    /// Set when another input maps to the same output name (`a.swc` and `a.SWC`): the cell
-    /// fails with this message, has no outputs and is reported again on every run.
-    pub clash: Option<String>,
+    /// Set for a folder that cannot be read, or when another input maps to the same output
+    /// name (`a.swc` and `a.SWC`): the cell fails with this message, has no outputs and is
+    /// reported again on every run.
+    pub fault: Option<String>,
 }
 
 fn rel_text(rel: &Path) -> String {
@@ -299,15 +300,27 @@ fn rel_text(rel: &Path) -> String {
         .join("/")
 }
 
+/// One find of [`discover`]: an SWC file, or a folder that could not be read.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Found {
+    /// Path relative to the input folder, `/` between folders (a folder's ends in `/`).
+    pub rel: String,
+    pub path: PathBuf,
+    /// Why a folder could not be read (its files are unknown; it becomes a failed row).
+    pub fault: Option<String>,
+}
+
 /// Every `.swc` file below `input` (any case of the extension), sorted by relative path. Folders
 /// are walked with an explicit stack; symbolic links to folders are not followed; `skip` (the
-/// output folder, if it lies inside) is left out.
-pub fn discover(input: &Path, skip: Option<&Path>) -> Result<Vec<(String, PathBuf)>, BatchError> {
+/// output folder, if it lies inside) is left out. A subfolder that cannot be read is listed with
+/// its fault, so that one locked folder does not stop an archive; the input folder itself must
+/// be readable.
+pub fn discover(input: &Path, skip: Option<&Path>) -> Result<Vec<Found>, BatchError> {
     if !input.is_dir() {
         return Err(BatchError::NotAFolder(input.to_path_buf()));
     }
     let skip = skip.and_then(|s| std::fs::canonicalize(s).ok());
-    let mut found: Vec<(String, PathBuf)> = Vec::new();
+    let mut found: Vec<Found> = Vec::new();
     let mut stack: Vec<PathBuf> = vec![PathBuf::new()];
     while let Some(rel_dir) = stack.pop() {
         let dir = input.join(&rel_dir);
@@ -316,15 +329,24 @@ pub fn discover(input: &Path, skip: Option<&Path>) -> Result<Vec<(String, PathBu
         {
             continue;
         }
-        let entries = std::fs::read_dir(&dir).map_err(|source| BatchError::ReadDir {
-            path: dir.clone(),
-            source,
-        })?;
+        let listed: Result<Vec<std::fs::DirEntry>, std::io::Error> =
+            std::fs::read_dir(&dir).and_then(|it| it.collect());
+        let entries = match listed {
+            Ok(e) => e,
+            Err(source) if rel_dir.as_os_str().is_empty() => {
+                return Err(BatchError::ReadDir { path: dir, source });
+            }
+            Err(e) => {
+                let rel = format!("{}/", rel_text(&rel_dir));
+                found.push(Found {
+                    fault: Some(format!("{rel}: cannot read the folder: {e}")),
+                    rel,
+                    path: dir,
+                });
+                continue;
+            }
+        };
         for e in entries {
-            let e = e.map_err(|source| BatchError::ReadDir {
-                path: dir.clone(),
-                source,
-            })?;
             let rel = rel_dir.join(e.file_name());
             let Ok(ft) = e.file_type() else { continue };
             if ft.is_dir() {
@@ -337,11 +359,15 @@ pub fn discover(input: &Path, skip: Option<&Path>) -> Result<Vec<(String, PathBu
             // a link counts when it leads to a file
             let is_file = ft.is_file() || (ft.is_symlink() && input.join(&rel).is_file());
             if is_swc && is_file {
-                found.push((rel_text(&rel), input.join(&rel)));
+                found.push(Found {
+                    rel: rel_text(&rel),
+                    path: input.join(&rel),
+                    fault: None,
+                });
             }
         }
     }
-    found.sort_by(|a, b| a.0.cmp(&b.0));
+    found.sort_by(|a, b| a.rel.cmp(&b.rel));
     Ok(found)
 }
 
@@ -362,27 +388,29 @@ pub fn plan(input: &Path, out: &Path, shard: Shard) -> Result<Vec<Cell>, BatchEr
     let found = discover(input, Some(out))?;
     let mut first_of: std::collections::HashMap<PathBuf, String> = Default::default();
     let mut cells = Vec::new();
-    for (rel, path) in found {
-        let rel_json = Path::new(&rel).with_extension("json");
-        let clash = match first_of.get(&rel_json) {
-            Some(other) => Some(format!(
-                "its output name {} is taken by {other}; rename one of the two files",
+    for f in found {
+        let rel_json = Path::new(&f.rel).with_extension("json");
+        let fault = match (f.fault, first_of.get(&rel_json)) {
+            (Some(e), _) => Some(e),
+            (None, Some(other)) => Some(format!(
+                "{}: its output name {} is taken by {other}; rename one of the two files",
+                f.rel,
                 rel_text(&rel_json)
             )),
-            None => {
-                first_of.insert(rel_json.clone(), rel.clone());
+            (None, None) => {
+                first_of.insert(rel_json.clone(), f.rel.clone());
                 None
             }
         };
-        if !shard.contains(&rel) {
+        if !shard.contains(&f.rel) {
             continue;
         }
         cells.push(Cell {
             output: out.join(&rel_json),
             record: out.join(RECORD_DIR).join(&rel_json),
-            rel,
-            input: path,
-            clash,
+            rel: f.rel,
+            input: f.path,
+            fault,
         });
     }
     Ok(cells)
@@ -438,7 +466,7 @@ fn row_from_exact(mut v: serde_json::Value) -> Option<Row> {
 /// The row of a cell that is complete under `settings` (see the module doc), or `None` when the
 /// cell must be (re)done. With `retry_failed`, a recorded failure is not reused.
 pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Option<Row> {
-    if cell.clash.is_some() {
+    if cell.fault.is_some() {
         return None;
     }
     let in_meta = std::fs::metadata(&cell.input).ok()?;
@@ -556,8 +584,8 @@ fn remove_if_present(path: &Path) -> Result<(), String> {
 /// panic inside the computation is caught and reported as the cell's error. Returns the row.
 pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
     let t0 = Instant::now();
-    if let Some(msg) = &cell.clash {
-        // no record: the record's name is the other file's
+    if let Some(msg) = &cell.fault {
+        // no record: a clash's record name is the other file's; a folder has none
         return Row::failed(&cell.rel, 0.0, msg.clone());
     }
     let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| compute(cell, settings)))
