@@ -547,9 +547,11 @@ impl PollardApp {
         egui::Panel::bottom("plots")
             .resizable(true)
             .default_size(250.0)
-            .show(ui, |ui| {
-                if let Some(s) = &self.state {
-                    self.plots.ui(ui, s);
+            .min_size(160.0)
+            .show(ui, |ui| match &self.state {
+                Some(s) => self.plots.ui(ui, s),
+                None => {
+                    ui.allocate_space(ui.available_size());
                 }
             });
 
@@ -574,12 +576,12 @@ impl PollardApp {
             ui.selectable_value(&mut self.screen, Screen::Cell, "Cell view");
             ui.selectable_value(&mut self.screen, Screen::Lab, "Branching lab");
             ui.separator();
-            if let Some(s) = &self.state {
+            if let Some(s) = self.state.as_ref().filter(|_| self.screen == Screen::Cell) {
                 ui.label(format!(
-                    "{} — {} points, {} in the model",
+                    "{} — {} points, {} in the electrical model",
                     s.cell.name,
                     s.cell.morph.len(),
-                    s.model.flat.len()
+                    s.model.points
                 ));
             }
             let busy: Option<String> = self

@@ -422,7 +422,7 @@ impl Reduction for LibReduction {
             .collect();
         let col =
             |f: &dyn Fn(&crate::reduce::Compartment) -> f64| cs.iter().map(f).collect::<Vec<f64>>();
-        RTree::from_records(
+        let mut tree = RTree::from_records(
             &cs.iter().map(|c| c.id).collect::<Vec<_>>(),
             &cs.iter().map(|c| c.parent).collect::<Vec<_>>(),
             &col(&|c| c.g_axial_ns),
@@ -435,7 +435,14 @@ impl Reduction for LibReduction {
             &node_ids,
             model,
             path_distance,
-        )
+        )?;
+        // each compartment's type is that of the point it is named after
+        for (c, id) in tree.id.iter().enumerate() {
+            if let Some(x) = cs.get(*id as usize).filter(|x| x.id == *id) {
+                tree.kind[c] = x.swc_type;
+            }
+        }
+        Some(tree)
     }
 
     fn error_curve(&self) -> Vec<(usize, f64)> {
@@ -494,6 +501,8 @@ pub struct Model {
     pub full: Vec<u32>,
     /// Path distance of each model node (µm).
     pub path_distance: Vec<f64>,
+    /// Number of morphology points in the model.
+    pub points: usize,
 }
 
 impl Model {
@@ -538,7 +547,9 @@ impl Model {
             .iter()
             .map(|&k| cell.morph.path_distance[f.node_point[k as usize] as usize])
             .collect();
+        let points = m.point_node.iter().filter(|&&k| k != NONE).count();
         Model {
+            points,
             flat: m,
             of_full,
             full,
@@ -701,11 +712,22 @@ impl CellState {
         Ok(s)
     }
 
-    /// The kept tip with the longest path to the soma (a whole-tree node).
+    /// The kept point with the longest path to the soma (a whole-tree node), on a dendrite if
+    /// the model has one (a synapse site is usually on a dendrite).
     pub fn farthest_tip(&self) -> Option<usize> {
         let mut best = None;
         let mut best_d = -1.0;
+        let has_dendrite = self
+            .model
+            .flat
+            .kind
+            .iter()
+            .skip(1)
+            .any(|&k| k != kind::AXON);
         for (m, &d) in self.model.path_distance.iter().enumerate() {
+            if has_dendrite && self.model.flat.kind[m] == kind::AXON {
+                continue;
+            }
             if d > best_d {
                 best_d = d;
                 best = Some(self.model.full[m] as usize);
