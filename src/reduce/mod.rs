@@ -336,24 +336,29 @@ impl Ord for Key {
     }
 }
 
-/// Real DC sweep of a parents-first tree: subtree admittances D and the admittance P at each
-/// node's parent without its branch (Hines 1984; Koch & Poggio 1985).
+/// Real DC sweep of a parents-first tree: subtree admittances D, the admittance P at each
+/// node's parent without its branch, and U = g·P/(g + P) (Hines 1984; Koch & Poggio 1985).
+/// P_k = S_p + U_p + Σ_{siblings c} t_c is summed from its terms, never as D_p − t_k, so nothing
+/// cancels: when the upward sweep (k descending) reaches k, D_p holds S_p and the branches of
+/// k's later siblings; the downward sweep adds the earlier siblings and U_p.
 fn dc_sweep(parent: &[u32], g: &[f64], shunt: &[f64]) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
     let n = parent.len();
     let mut d = shunt.to_vec();
-    for k in (1..n).rev() {
-        let t = g[k] * d[k] / (g[k] + d[k]);
-        d[parent[k] as usize] += t;
-    }
-    // P_k = D_p − t_k + U_p (real, positive terms; the difference loses at most a few ulps of
-    // D_p, which only feeds the collapse cost)
-    let mut u = vec![0.0; n];
     let mut p = vec![0.0; n];
+    let mut t = vec![0.0; n];
+    for k in (1..n).rev() {
+        let q = parent[k] as usize;
+        t[k] = g[k] * d[k] / (g[k] + d[k]);
+        p[k] = d[q];
+        d[q] += t[k];
+    }
+    let mut pre = vec![0.0; n];
+    let mut u = vec![0.0; n];
     for k in 1..n {
         let q = parent[k] as usize;
-        let t = g[k] * d[k] / (g[k] + d[k]);
-        let pk = (d[q] - t).max(0.0) + u[q];
+        let pk = p[k] + pre[q] + u[q];
         p[k] = pk;
+        pre[q] += t[k];
         u[k] = g[k] * pk / (g[k] + pk);
     }
     (d, p, u)
@@ -735,8 +740,8 @@ impl Reducer {
         let mut heap = BinaryHeap::new();
         let is_leaf = |leaf: &[bool], c: usize| -> bool { leaf[c] };
         let mut leaf: Vec<bool> = kids.iter().map(|k| k.is_none()).collect();
-        for c in 0..nm {
-            if let Some([x, y]) = kids[c]
+        for (c, kc) in kids.iter().enumerate() {
+            if let Some([x, y]) = *kc
                 && leaf[x as usize]
                 && leaf[y as usize]
             {
@@ -822,7 +827,7 @@ impl Reducer {
     /// The budget actually used for a request: odd, between 1 and the maximum.
     pub fn effective_budget(&self, requested: usize) -> usize {
         let b = requested.clamp(1, self.max_compartments());
-        if b % 2 == 0 { b - 1 } else { b }
+        if b.is_multiple_of(2) { b - 1 } else { b }
     }
 
     /// The predicted error for every odd budget, ascending: (compartments, weighted RMS of the
@@ -948,7 +953,7 @@ impl Reducer {
             point_compartment: self.point_max.iter().map(|&m| map(m)).collect(),
             site_compartment: self.site_max.iter().map(|&m| map(m)).collect(),
             requested: budget,
-            rounded_down: budget % 2 == 0 && budget <= nm && budget >= 1,
+            rounded_down: budget.is_multiple_of(2) && budget <= nm && budget >= 1,
             clamped: budget == 0 || budget > nm,
             params: self.params,
         }
