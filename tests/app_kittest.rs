@@ -327,3 +327,39 @@ fn a_file_without_radii_still_opens_and_says_so() {
     );
     assert!(s.elec.input_mohm.iter().all(|r| r.is_finite() && *r > 0.0));
 }
+
+#[test]
+fn hovering_shows_facts_about_points_and_compartments() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let (p, q) = {
+        let app = h.state();
+        let s = app.state.as_ref().unwrap();
+        let rect = app.left.last_rect.shrink(30.0);
+        let k = (1..s.cell.flat.len())
+            .find(|&k| app.left.screen_of(k).is_some_and(|q| rect.contains(q)))
+            .unwrap();
+        (
+            app.left.screen_of(k).unwrap(),
+            app.right.screen_of_comp(0).unwrap(),
+        )
+    };
+    h.event(egui::Event::PointerMoved(p));
+    h.run_steps(2);
+    let hovered = h.state().left.hovered.expect("a point under the pointer");
+    let text = h.state().state.as_ref().unwrap().describe_node(hovered);
+    for word in ["path distance", "input resistance", "to the soma"] {
+        assert!(text.contains(word), "{text}");
+    }
+    h.event(egui::Event::PointerMoved(q));
+    h.run_steps(2);
+    let c = h
+        .state()
+        .right
+        .hovered
+        .expect("a compartment under the pointer");
+    let text = h.state().state.as_ref().unwrap().describe_comp(c);
+    for word in ["leak conductance", "capacitance", "area", "stands for"] {
+        assert!(text.contains(word), "{text}");
+    }
+}

@@ -180,9 +180,8 @@ pub fn recolour(mesh: &mut Mesh, n_nodes: usize, colours: &[Color32]) {
     if n_nodes == 0 {
         return;
     }
-    for k in 1..n_nodes {
-        let c = colours[k];
-        for v in &mut mesh.vertices[4 * (k - 1)..4 * k] {
+    for (quad, &c) in mesh.vertices.chunks_exact_mut(4).zip(&colours[1..n_nodes]) {
+        for v in quad {
             v.color = c;
         }
     }
@@ -462,7 +461,7 @@ impl ArborCanvas {
 
     fn scale_bar(&self, painter: &egui::Painter, state: &CellState, cam: &Camera, rect: Rect) {
         let proj = Projector::new(cam, rect, state.cell.centre, state.cell.extent_radius_um);
-        if !(proj.scale > 0.0) {
+        if proj.scale.is_nan() || proj.scale <= 0.0 {
             return;
         }
         let um = nice_step(0.18 * rect.width() as f64 / proj.scale as f64);
@@ -602,7 +601,7 @@ fn edge_width(t: &super::state::RTree, c: usize) -> f32 {
         }
     }
     let g = t.g_axial_ns[c];
-    if !(g > 0.0) || !lo.is_finite() || hi - lo < 1e-9 {
+    if g.is_nan() || g <= 0.0 || !lo.is_finite() || hi - lo < 1e-9 {
         return 3.0;
     }
     1.0 + 6.0 * ((g.ln() - lo) / (hi - lo)) as f32

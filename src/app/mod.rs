@@ -457,10 +457,8 @@ impl PollardApp {
                                 self.controls.unsettled = true;
                             }
                         }
-                        Action::Settle => {
-                            if s.reduction.is_none() && self.reduce_job.is_none() {
-                                rebuild_reduction = true;
-                            }
+                        Action::Settle if s.reduction.is_none() && self.reduce_job.is_none() => {
+                            rebuild_reduction = true;
                         }
                         Action::Budget(b) => s.set_budget(b),
                         Action::Kept(k, on) => {

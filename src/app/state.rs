@@ -115,7 +115,7 @@ impl Cell {
 
 /// 1, 2 or 5 times a power of ten, at least `x`.
 pub fn nice_step(x: f64) -> f64 {
-    if !(x > 0.0) || !x.is_finite() {
+    if x.is_nan() || x <= 0.0 || !x.is_finite() {
         return 1.0;
     }
     let p = 10f64.powf(x.log10().floor());
