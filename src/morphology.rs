@@ -551,9 +551,9 @@ impl Morphology {
         for i in 0..n {
             graph2.add_node(i as u32);
         }
-        for i in 0..n {
-            if parent[i] != NONE {
-                graph2.add_edge(NodeIndex::new(parent[i] as usize), NodeIndex::new(i), ());
+        for (i, &p) in parent.iter().enumerate() {
+            if p != NONE {
+                graph2.add_edge(NodeIndex::new(p as usize), NodeIndex::new(i), ());
             }
         }
         let soma: Vec<u32> = (0..main_len as u32)
@@ -774,11 +774,15 @@ impl Morphology {
 
     fn geometry_warnings(&mut self) {
         let mut zero_r = (0usize, None);
+        let mut zero_neurite = 0usize;
         let mut zero_len = (0usize, None);
         for i in 0..self.len() {
             if self.points[i].radius == Some(0.0) {
                 zero_r.0 += 1;
                 zero_r.1.get_or_insert(self.points[i].line);
+                if !self.is_soma[i] {
+                    zero_neurite += 1;
+                }
             }
             if let Some(seg) = self.segment(i)
                 && seg.length == 0.0
@@ -806,7 +810,8 @@ impl Morphology {
                 ),
             ));
         }
-        if zero_r.0 > 0 && zero_r.0 + self.soma.len() >= self.len() {
+        // every neurite point (not only every point but the soma's) has radius 0
+        if zero_neurite > 0 && zero_neurite + self.soma.len() >= self.len() {
             self.warnings.push(Warning::new(
                 "all-radii-zero",
                 zero_r.1,
@@ -911,7 +916,7 @@ impl Morphology {
     /// Sholl analysis: number of neurite segments crossing each sphere of radius `step`, 2·`step`,
     /// … around the soma centre. Returns (radius µm, intersections).
     pub fn sholl(&self, step: f64) -> Vec<(f64, usize)> {
-        if !(step > 0.0) || self.is_empty() {
+        if step.is_nan() || step <= 0.0 || self.is_empty() {
             return Vec::new();
         }
         let c = self.soma_centre();

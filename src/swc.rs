@@ -155,10 +155,16 @@ pub fn parse_bytes(bytes: &[u8], source: &str) -> Result<SwcFile, SwcError> {
 
 /// Parses SWC text; `source` names the file in messages.
 pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
+    // A byte-order mark (as some Windows editors write) is not part of the first line.
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let mut out = SwcFile {
         source: source.to_string(),
         ..Default::default()
     };
+    // one point per line at most: reserving once avoids copying a large file's points as the
+    // vector grows (the count is a fast byte scan)
+    out.points
+        .reserve(text.bytes().filter(|&b| b == b'\n').count() + 1);
     let mut extra_columns: Option<(usize, usize)> = None; // (first line, count of lines)
     let mut float_ids: Option<usize> = None;
     let err = |line: usize, fault: Fault| SwcError {
@@ -276,7 +282,11 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
     }
     let na = out.points.iter().filter(|p| p.radius.is_none()).count();
     if na > 0 {
-        let first = out.points.iter().find(|p| p.radius.is_none()).map(|p| p.line);
+        let first = out
+            .points
+            .iter()
+            .find(|p| p.radius.is_none())
+            .map(|p| p.line);
         out.warnings.push(Warning::new(
             "radius-unknown",
             first,

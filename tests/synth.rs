@@ -80,10 +80,10 @@ fn rall_tree_obeys_the_three_halves_rule_at_every_fork() {
         }
     }
     let mut forks = 0;
-    for i in 0..m.len() {
+    for (i, sum) in sums.iter().enumerate() {
         if m.n_children[i] >= 2 && !m.is_soma[i] {
             forks += 1;
-            let ratio = sums[i] / diam(&m, i).powf(1.5);
+            let ratio = sum / diam(&m, i).powf(1.5);
             assert!(
                 (ratio - 1.0).abs() < 1e-12,
                 "fork at line {}: {ratio}",
