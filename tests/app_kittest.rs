@@ -363,3 +363,29 @@ fn hovering_shows_facts_about_points_and_compartments() {
         assert!(text.contains(word), "{text}");
     }
 }
+
+#[test]
+fn switching_off_the_axon_rebuilds_model_and_reduction_without_it() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let n_before = h.state().state.as_ref().unwrap().model.points;
+    h.get_by_label("Axon").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.kept.get(&2), Some(&false));
+    assert!(s.model.points < n_before);
+    assert!(
+        s.model.flat.kind.iter().all(|&k| k != 2),
+        "no axon node in the model"
+    );
+    let r = s.reduced.as_ref().expect("the reduction is rebuilt");
+    assert!(r.tree.kind.iter().all(|&k| k != 2), "no axon compartment");
+    // every model node maps to a compartment of the rebuilt tree
+    assert!(
+        r.tree
+            .node_comp
+            .iter()
+            .all(|&c| (c as usize) < r.tree.len())
+    );
+}

@@ -213,14 +213,15 @@ impl PollardApp {
     fn start_reduction(&mut self) {
         let Some(s) = &self.state else { return };
         self.reduce_generation += 1;
-        let flat = s.model.flat.clone();
+        let cell = s.cell.clone();
+        let kept = s.kept_types();
         let params = s.params;
         let job = Job::spawn(
             "building the reduction".into(),
             self.ctx.clone(),
             move |p| {
                 p.set("building the collapse order");
-                state::build_reduction(&flat, &params).map_err(|e| anyhow::anyhow!(e))
+                state::build_reduction(&cell, kept, &params).map_err(|e| anyhow::anyhow!(e))
             },
         );
         self.reduce_job = Some((self.reduce_generation, job));

@@ -393,11 +393,24 @@ pub trait Reduction: Send + Sync {
     fn export_swc(&self, budget: usize) -> anyhow::Result<String>;
 }
 
-/// Builds the reduction of a model (every point of the model kept), or says why it cannot.
-pub fn build_reduction(model: &Flat, params: &Params) -> Result<Arc<dyn Reduction>, String> {
-    let opts = crate::reduce::ReduceOptions::default();
-    match crate::reduce::Reducer::new(model, params, &opts) {
-        Ok(r) => Ok(Arc::new(LibReduction { r })),
+/// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), or says why
+/// it cannot.
+pub fn build_reduction(
+    cell: &Cell,
+    kept: Option<Vec<i32>>,
+    params: &Params,
+) -> Result<Arc<dyn Reduction>, String> {
+    let opts = crate::reduce::ReduceOptions {
+        types: kept,
+        ..Default::default()
+    };
+    match crate::reduce::Reducer::new(&cell.flat, params, &opts) {
+        Ok(r) => Ok(Arc::new(LibReduction {
+            r,
+            source: cell.name.clone(),
+            ids: cell.morph.points.iter().map(|p| p.id).collect(),
+            pos: cell.morph.points.iter().map(|p| p.pos).collect(),
+        })),
         Err(e) => Err(format!("no reduction: {e}")),
     }
 }
@@ -405,6 +418,9 @@ pub fn build_reduction(model: &Flat, params: &Params) -> Result<Arc<dyn Reductio
 /// [`Reduction`] over the library's reducer.
 struct LibReduction {
     r: crate::reduce::Reducer,
+    source: String,
+    ids: Vec<i64>,
+    pos: Vec<[f64; 3]>,
 }
 
 impl Reduction for LibReduction {
@@ -451,43 +467,24 @@ impl Reduction for LibReduction {
 
     fn export_json(&self, budget: usize) -> anyhow::Result<String> {
         let t = self.r.tree(budget);
-        let v = serde_json::json!({
-            "format": "pollard reduced tree",
-            "compartments_requested": t.requested,
-            "compartment_count": t.compartments.len(),
-            "params": t.params,
-            "units": {"g_axial_ns": "nS", "g_leak_ns": "nS", "capacitance_pf": "pF",
-                      "position_um": "µm", "membrane_area_um2": "µm²"},
-            "compartments": t.compartments,
-        });
-        Ok(serde_json::to_string_pretty(&v)? + "\n")
+        let report = self.r.report(&t)?;
+        let src = crate::export::TreeSource {
+            source: &self.source,
+            point_ids: &self.ids,
+            point_pos: &self.pos,
+        };
+        Ok(crate::export::reduced_tree_json(
+            &src, &self.r, &t, &report,
+        )?)
     }
 
     fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
         let t = self.r.tree(budget);
-        let points: Vec<crate::swc::SwcPoint> = t
-            .compartments
-            .iter()
-            .enumerate()
-            .map(|(i, c)| crate::swc::SwcPoint {
-                id: c.id as i64 + 1,
-                kind: c.swc_type,
-                pos: c.position_um,
-                // radius of a sphere with the compartment's membrane area
-                radius: Some(
-                    (c.membrane_area_um2 / (4.0 * std::f64::consts::PI))
-                        .sqrt()
-                        .max(1e-3),
-                ),
-                parent: c.parent.map(|p| p as i64 + 1).unwrap_or(-1),
-                line: i + 1,
-            })
-            .collect();
         let header = vec![
-            format!(" reduced tree: {} compartments", t.compartments.len()),
-            " positions are the points each compartment is named after; radius gives the compartment's membrane area as a sphere".to_string(),
+            format!("reduced tree of {}: {} compartments", self.source, t.len()),
+            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
         ];
-        Ok(crate::swc::write_string(&points, &header))
+        Ok(crate::export::reduced_tree_swc(&t, &header))
     }
 }
 
@@ -852,6 +849,22 @@ impl CellState {
         self.colour_version += 1;
     }
 
+    /// The kept neurite types for the reducer (None when every type is kept).
+    pub fn kept_types(&self) -> Option<Vec<i32>> {
+        if self.kept.values().all(|&on| on) {
+            None
+        } else {
+            let mut v: Vec<i32> = self
+                .kept
+                .iter()
+                .filter(|(_, on)| **on)
+                .map(|(k, _)| *k)
+                .collect();
+            v.push(kind::SOMA);
+            Some(v)
+        }
+    }
+
     /// Installs a tree directly (used by the reduction and by tests).
     pub fn set_reduced_tree(&mut self, tree: RTree) {
         let mut r = Reduced::new(tree, &self.params, self.freq_hz);
@@ -1118,7 +1131,7 @@ mod tests {
         // the id and ordering bookkeeping of the adapter.
         let cell = Arc::new(Cell::demo());
         let mut s = CellState::new(cell, Params::default(), 0.0).unwrap();
-        s.set_reduction(build_reduction(&s.model.flat, &s.params));
+        s.set_reduction(build_reduction(&s.cell, None, &s.params));
         for budget in [1, 7, 31] {
             s.set_budget(budget);
             let red = s.reduced.as_ref().expect("reduced tree");
