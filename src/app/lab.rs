@@ -10,7 +10,7 @@ use super::colour::Scale;
 use crate::Morphology;
 use crate::lab::{End, Equivalent, LabResult, MAX_LEVELS, PathSeries, Piece, Shape, TreeSpec};
 use eframe::egui::{self, Color32, Pos2, RichText, Sense, Stroke, Vec2};
-use egui_plot::{AxisHints, Corner, Legend, Line, LineStyle, Plot, VLine};
+use egui_plot::{AxisHints, Line, LineStyle, Plot, VLine};
 use std::path::PathBuf;
 use std::sync::mpsc::Receiver;
 
@@ -812,8 +812,12 @@ impl LabView {
         }
         let inj = to_screen(&t.flat.pos[r.path.nodes[r.path.inject_at]]);
         painter.circle_stroke(inj, 7.0, Stroke::new(2.0, super::colour::SITE));
-        // section names at mid-branch
+        // section names at mid-branch (on a big tree only the chosen branch's)
+        let all_names = t.sections.len() <= 15;
         for (s, sec) in t.sections.iter().enumerate() {
+            if !all_names && s != self.chosen {
+                continue;
+            }
             let end = t.section_end_node[s] as usize;
             let start = match sec.parent {
                 Some(p) => t.section_end_node[p] as usize,
@@ -821,6 +825,10 @@ impl LabView {
             };
             let a = to_screen(&t.flat.pos[start]);
             let b = to_screen(&t.flat.pos[end]);
+            // a name needs room: short branches stay unnamed unless chosen
+            if s != self.chosen && (b - a).length() < 12.0 * sec.name.len() as f32 {
+                continue;
+            }
             let mid = a + (b - a) * 0.5 + Vec2::new(0.0, -10.0);
             let col = if s == self.chosen {
                 Color32::from_rgb(255, 230, 120)
@@ -950,10 +958,12 @@ impl LabView {
                     .collect(),
             )
         };
+        // below the plots' titles and keys (about 50 points)
+        let height = (ui.available_height() - 56.0).max(120.0);
         let tip_col = Color32::from_rgb(250, 170, 60);
         let soma_col = Color32::from_rgb(120, 200, 235);
         let fork_col = Color32::from_rgb(190, 110, 230);
-        let height = (ui.available_height() - 24.0).max(140.0);
+        let rin_col = Color32::from_rgb(110, 215, 140);
         let width = (ui.available_width() - 24.0) / 3.0;
         let freq = if self.spec.freq_hz > 0.0 {
             format!(" at {:.0} Hz", self.spec.freq_hz)
@@ -964,13 +974,21 @@ impl LabView {
             ui.vertical(|ui| {
                 ui.set_width(width);
                 ui.label(RichText::new(format!("Voltage along the path{freq}")).strong());
+                key(
+                    ui,
+                    &[
+                        (tip_col, "current at the tip"),
+                        (soma_col, "current at the soma"),
+                        (fork_col, "forks"),
+                    ],
+                    dc.is_some(),
+                );
                 Plot::new("lab_voltage")
                     .height(height)
-                    .legend(Legend::default().position(Corner::RightTop))
                     .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("V / V at the injection site")
                     .include_y(0.0)
-                    .include_y(1.35)
+                    .include_y(1.05)
                     .show(ui, |pu| {
                         pu.line(
                             Line::new("current at the tip", pts(&s.v_from_tip))
@@ -1005,22 +1023,26 @@ impl LabView {
             ui.vertical(|ui| {
                 ui.set_width(width);
                 ui.label(RichText::new(format!("Local input resistance{freq}")).strong());
+                key(
+                    ui,
+                    &[(rin_col, "input resistance"), (fork_col, "forks")],
+                    dc.is_some(),
+                );
                 Plot::new("lab_rin")
                     .height(height)
-                    .legend(Legend::default().position(Corner::LeftTop))
                     .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("|Z_in| (MΩ)")
                     .include_y(0.0)
                     .show(ui, |pu| {
                         pu.line(
                             Line::new("input resistance", pts(&s.rin_mohm))
-                                .color(Color32::from_rgb(110, 215, 140))
+                                .color(rin_col)
                                 .width(2.0),
                         );
                         if let Some(p) = dc_pts(|d| &d.rin_mohm) {
                             pu.line(
                                 Line::new("steady current", p)
-                                    .color(Color32::from_rgb(110, 215, 140))
+                                    .color(rin_col)
                                     .style(LineStyle::dashed_loose()),
                             );
                         }
@@ -1032,10 +1054,18 @@ impl LabView {
             });
             ui.vertical(|ui| {
                 ui.set_width(width);
-                ui.label(RichText::new("Morphoelectrotonic distance").strong());
+                ui.label(RichText::new(format!("Morphoelectrotonic distance{freq}")).strong());
+                key(
+                    ui,
+                    &[
+                        (tip_col, "towards the soma"),
+                        (soma_col, "away from the soma"),
+                        (fork_col, "forks"),
+                    ],
+                    false,
+                );
                 Plot::new("lab_melec")
                     .height(height)
-                    .legend(Legend::default().position(Corner::LeftTop))
                     .custom_x_axes(vec![x_axis(x_label)])
                     .y_axis_label("ln(attenuation) to or from the soma")
                     .include_y(0.0)
@@ -1227,5 +1257,17 @@ fn slider<'a, N: egui::emath::Numeric>(
 fn x_axis(label: &str) -> AxisHints<'static> {
     AxisHints::new_x()
         .label(label.to_string())
-        .label_spacing(32.0..=48.0)
+        .label_spacing(24.0..=40.0)
+}
+
+/// The key of a plot: a coloured dash and a name per curve, and a note on the dashed curves.
+fn key(ui: &mut egui::Ui, entries: &[(Color32, &str)], dashed: bool) {
+    ui.horizontal_wrapped(|ui| {
+        for (c, name) in entries {
+            ui.colored_label(*c, RichText::new(format!("— {name}")).small());
+        }
+        if dashed {
+            ui.label(RichText::new("(dashed: steady current)").small());
+        }
+    });
 }
