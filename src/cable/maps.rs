@@ -26,15 +26,11 @@ pub struct Maps {
     pub down: Vec<C64>,
 }
 
-/// Everything the two sweeps give, in any [`Scalar`] (`f64` at DC, `C64` at f > 0).
+/// What the two sweeps give, in any [`Scalar`] (`f64` at DC, `C64` at f > 0).
 #[derive(Debug, Clone, Default)]
 pub struct Sweep<T> {
-    /// Subtree admittance D_k (S).
-    pub d: Vec<T>,
     /// P_k: admittance at k's parent of everything except k's branch (S); P_0 = 0.
     pub p: Vec<T>,
-    /// U_k = g_k·P_k/(g_k + P_k) (S); U_0 = 0.
-    pub u: Vec<T>,
     /// g_k/(g_k + D_k): voltage ratio V_k/V_parent for current entering from the parent side.
     pub down: Vec<T>,
     /// Input impedance Z_kk = 1/(D_k + U_k) (Ω).
@@ -43,64 +39,74 @@ pub struct Sweep<T> {
     pub z_soma: Vec<T>,
 }
 
+/// Upward sweep (k = n−1 … 1; Hines 1984): on entry `d` holds the shunts S_k, on return the
+/// subtree admittances D_k = S_k + Σ_c g_c·D_c/(g_c + D_c). Also fills `down[k]` =
+/// g_k/(g_k + D_k) and `p[k]` = S_p + the branches of k's later siblings (the part of P_k known
+/// when k is reached).
+fn upward<T: Scalar>(parent: &[u32], g: &[T], d: &mut [T], down: &mut [T], p: &mut [T]) {
+    for k in (1..parent.len()).rev() {
+        let pk = parent[k] as usize;
+        let dk = d[k];
+        let w = g[k] / (g[k] + dk);
+        down[k] = w;
+        p[k] = d[pk];
+        d[pk] += w * dk;
+    }
+}
+
+/// Downward sweep (k = 1 … n−1): completes P_k = S_p + U_p + Σ_{c≠k} t_c in `p` (summed from
+/// its terms: no subtraction, nothing cancels), turns `d` (D_k on entry) into Z_kk = 1/(D_k + U_k)
+/// with U_k = g_k·P_k/(g_k + P_k), and returns Z_k0 (V_k for unit current at the soma:
+/// V_0 = 1/D_0, V_k = V_p·g_k/(g_k + D_k)).
+fn downward<T: Scalar>(parent: &[u32], g: &[T], d: &mut [T], down: &[T], p: &mut [T]) -> Vec<T> {
+    let n = parent.len();
+    let zero = T::real(0.0);
+    let one = T::real(1.0);
+    // acc[q]: U_q plus the branches of q's children met so far
+    let mut acc = vec![zero; n];
+    let mut z_soma = vec![zero; n];
+    d[0] = one / d[0];
+    z_soma[0] = d[0];
+    for k in 1..n {
+        let pk = parent[k] as usize;
+        let pp = p[k] + acc[pk];
+        p[k] = pp;
+        let dk = d[k];
+        acc[pk] += down[k] * dk;
+        let uk = g[k] * pp / (g[k] + pp);
+        acc[k] = uk;
+        d[k] = one / (dk + uk);
+        z_soma[k] = z_soma[pk] * down[k];
+    }
+    z_soma
+}
+
 /// The two sweeps over a parents-first tree (`parent[k] < k`, node 0 the root) with series
-/// admittances `g` and shunts `shunt` (tree elimination: Hines 1984; Koch & Poggio 1985).
-///
-/// Upward (k = n−1 … 1): D_k = S_k + Σ_c g_c·D_c/(g_c + D_c). When node k is reached, its
-/// parent's running sum holds S_p plus the branches of k's later siblings, which is kept as the
-/// first part of P_k. Downward (k = 1 … n−1): the earlier siblings' branches and U_p are added,
-/// so P_k = S_p + U_p + Σ_{c≠k} t_c is summed from its terms (no subtraction, nothing cancels)
-/// without building child lists.
+/// admittances `g` and shunts `shunt` (tree elimination: Hines 1984; Koch & Poggio 1985): Z_kk
+/// and Z_k0 at every node in O(N), without child lists. When node k is reached on the way up,
+/// its parent's running sum holds S_p plus the branches of k's later siblings; on the way down
+/// the earlier siblings' branches and U_p are added.
 pub fn sweep<T: Scalar>(parent: &[u32], g: &[T], shunt: &[T]) -> Sweep<T> {
     let n = parent.len();
     assert!(g.len() == n && shunt.len() == n, "array lengths differ");
-    let zero = T::real(0.0);
     if n == 0 {
         return Sweep {
-            d: vec![],
             p: vec![],
-            u: vec![],
             down: vec![],
             z_in: vec![],
             z_soma: vec![],
         };
     }
-    let mut d = shunt.to_vec();
+    let zero = T::real(0.0);
+    let mut z = shunt.to_vec();
     let mut down = vec![zero; n];
     let mut p = vec![zero; n];
-    for k in (1..n).rev() {
-        let pk = parent[k] as usize;
-        let w = g[k] / (g[k] + d[k]);
-        down[k] = w;
-        p[k] = d[pk];
-        let t = w * d[k];
-        d[pk] += t;
-    }
-    // `pre[q]`: running sum of the branches of q's children met so far
-    let mut pre = vec![zero; n];
-    let mut u = vec![zero; n];
-    let mut z_in = vec![zero; n];
-    let mut z_soma = vec![zero; n];
-    let one = T::real(1.0);
-    z_in[0] = one / d[0];
-    z_soma[0] = z_in[0];
-    for k in 1..n {
-        let pk = parent[k] as usize;
-        let pp = p[k] + pre[pk] + u[pk];
-        p[k] = pp;
-        let t = down[k] * d[k];
-        pre[pk] += t;
-        let uk = g[k] * pp / (g[k] + pp);
-        u[k] = uk;
-        z_in[k] = one / (d[k] + uk);
-        z_soma[k] = z_soma[pk] * down[k];
-    }
+    upward(parent, g, &mut z, &mut down, &mut p);
+    let z_soma = downward(parent, g, &mut z, &down, &mut p);
     Sweep {
-        d,
         p,
-        u,
         down,
-        z_in,
+        z_in: z,
         z_soma,
     }
 }
@@ -142,13 +148,21 @@ pub fn site_ratio_t<T: Scalar>(
 impl Maps {
     /// Both sweeps (see [`sweep`]).
     pub fn new(net: &Network) -> Maps {
-        let s = sweep(&net.parent, &net.g, &net.shunt);
-        Maps {
-            d: s.d,
-            p: s.p,
-            u: s.u,
-            down: s.down,
+        let n = net.len();
+        let zero = C64::new(0.0, 0.0);
+        let mut d = net.shunt.clone();
+        let mut down = vec![zero; n];
+        let mut p = vec![zero; n];
+        let mut u = vec![zero; n];
+        if n > 0 {
+            upward(&net.parent, &net.g, &mut d, &mut down, &mut p);
+            let mut z = d.clone();
+            downward(&net.parent, &net.g, &mut z, &down, &mut p);
+            for k in 1..n {
+                u[k] = net.g[k] * p[k] / (net.g[k] + p[k]);
+            }
         }
+        Maps { d, p, u, down }
     }
 
     pub fn len(&self) -> usize {

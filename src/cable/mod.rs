@@ -237,8 +237,14 @@ pub fn uniform_pi_t<T: Scalar>(y0: T, l: T) -> (T, T) {
 
 /// How many pieces a frustum of end radii a, b is cut into, so that each piece's radius ratio is
 /// within about 2 % of 1 (each piece keeps its axial resistance and membrane area exactly).
+#[inline]
 fn frustum_pieces(a: f64, b: f64) -> usize {
-    let ratio = (a.max(b) / a.min(b)).ln();
+    let (lo, hi) = if a < b { (a, b) } else { (b, a) };
+    // e^0.02: one piece (the common case) without a logarithm
+    if hi <= lo * 1.020_201_340_026_755_8 {
+        return 1;
+    }
+    let ratio = (hi / lo).ln();
     ((ratio / 0.02).ceil() as usize).clamp(1, 64)
 }
 
@@ -271,13 +277,14 @@ pub fn segment_pi_t<T: Scalar>(
         let t1 = (i + 1) as f64 / pieces as f64;
         let ra = a_um + (b_um - a_um) * t0;
         let rb = a_um + (b_um - a_um) * t1;
-        let slant = hp.hypot(rb - ra);
+        let slant = (hp * hp + (rb - ra) * (rb - ra)).sqrt();
         let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM); // Ω/cm
         let y_mem = ym * (std::f64::consts::PI * (ra + rb) * UM * slant / hp); // S/cm
         // Y0 = √(y/r_a), L = √(y·r_a)·h (Rall; Koch 1999 ch. 2)
         let root = y_mem.sqrt();
-        let y0 = root * (1.0 / r_axial.sqrt());
-        let l = root * (r_axial.sqrt() * hp * UM);
+        let sr = r_axial.sqrt();
+        let y0 = root * (1.0 / sr);
+        let l = root * (sr * hp * UM);
         let (s, p) = uniform_pi_t(y0, l);
         // Membrane split of a tapered piece: in the resistance coordinate s(t) = t·rb/r(t) of a
         // linear taper, the first moment of the membrane (∝ r) puts rb/(ra+rb) of it at the
@@ -319,7 +326,7 @@ pub fn segment_electrotonic_length(params: &Params, h_um: f64, a_um: f64, b_um: 
         if hp <= 0.0 {
             continue;
         }
-        let slant = hp.hypot(rb - ra);
+        let slant = (hp * hp + (rb - ra) * (rb - ra)).sqrt();
         let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM);
         let g_mem = std::f64::consts::PI * (ra + rb) * UM * slant / hp / params.rm_ohm_cm2;
         x += (r_axial * g_mem).sqrt() * hp * UM;

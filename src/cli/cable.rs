@@ -4,8 +4,7 @@
 use anyhow::Context;
 use pollard::cable::prep::{CableInput, cable_input};
 use pollard::cable::{CellMaps, Params, PrepOptions, Summary};
-use serde::ser::{SerializeMap, SerializeSeq};
-use serde::{Serialize, Serializer};
+use serde::Serialize;
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -67,59 +66,71 @@ pub struct Args {
     pub output: Option<PathBuf>,
 }
 
-/// Every SWC point's maps, streamed into the JSON without building a tree of values.
-struct Points<'a> {
-    ids: &'a [i64],
-    maps: &'a CellMaps,
-    site: Option<&'a [f64]>,
+/// A JSON number, or null when not finite (serde_json's rules: shortest round-trip digits).
+fn push_f64(buf: &mut Vec<u8>, x: f64) {
+    // writing into a Vec cannot fail
+    let _ = serde_json::to_writer(&mut *buf, &x);
 }
 
-struct OnePoint<'a> {
-    id: i64,
-    i: usize,
-    maps: &'a CellMaps,
-    site: Option<&'a [f64]>,
-}
-
-impl Serialize for OnePoint<'_> {
-    fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        let mut m = s.serialize_map(Some(if self.site.is_some() { 5 } else { 4 }))?;
-        m.serialize_entry("id", &self.id)?;
-        // points outside the main tree: null (serde_json writes NaN as null)
-        let node = self.maps.node_of_point(self.i);
+/// The JSON objects of points `range` (comma-separated, with a leading comma unless the range
+/// starts at point 0). Points outside the main tree get nulls.
+fn push_points(
+    buf: &mut Vec<u8>,
+    ids: &[i64],
+    maps: &CellMaps,
+    site: Option<&[f64]>,
+    range: std::ops::Range<usize>,
+) {
+    for i in range {
+        if i > 0 {
+            buf.push(b',');
+        }
+        buf.extend_from_slice(b"{\"id\":");
+        let _ = serde_json::to_writer(&mut *buf, &ids[i]);
+        let node = maps.node_of_point(i);
         let val = |f: &dyn Fn(usize) -> f64| node.map(f).unwrap_or(f64::NAN);
-        m.serialize_entry(
-            "input_resistance_mohm",
-            &val(&|k| self.maps.input_resistance_mohm(k)),
-        )?;
-        m.serialize_entry(
-            "attenuation_to_soma",
-            &val(&|k| self.maps.attenuation_to_soma(k)),
-        )?;
-        m.serialize_entry(
-            "attenuation_from_soma",
-            &val(&|k| self.maps.attenuation_from_soma(k)),
-        )?;
-        if let Some(v) = self.site {
-            m.serialize_entry("site_ratio", &val(&|k| v[k]))?;
+        buf.extend_from_slice(b",\"input_resistance_mohm\":");
+        push_f64(buf, val(&|k| maps.input_resistance_mohm(k)));
+        buf.extend_from_slice(b",\"attenuation_to_soma\":");
+        push_f64(buf, val(&|k| maps.attenuation_to_soma(k)));
+        buf.extend_from_slice(b",\"attenuation_from_soma\":");
+        push_f64(buf, val(&|k| maps.attenuation_from_soma(k)));
+        if let Some(v) = site {
+            buf.extend_from_slice(b",\"site_ratio\":");
+            push_f64(buf, val(&|k| v[k]));
         }
-        m.end()
+        buf.push(b'}');
     }
 }
 
-impl Serialize for Points<'_> {
-    fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        let mut seq = s.serialize_seq(Some(self.ids.len()))?;
-        for (i, &id) in self.ids.iter().enumerate() {
-            seq.serialize_element(&OnePoint {
-                id,
-                i,
-                maps: self.maps,
-                site: self.site,
-            })?;
+/// Writes the `points` array: chunks of points are formatted in parallel (rayon), a wave at a
+/// time into reused buffers, and written in order.
+fn write_points(
+    w: &mut dyn Write,
+    ids: &[i64],
+    maps: &CellMaps,
+    site: Option<&[f64]>,
+) -> std::io::Result<()> {
+    use rayon::prelude::*;
+    const CHUNK: usize = 16_384;
+    let threads = rayon::current_num_threads().max(1);
+    let mut bufs: Vec<Vec<u8>> = vec![Vec::new(); threads * 2];
+    let n = ids.len();
+    let mut start = 0;
+    w.write_all(b"[")?;
+    while start < n {
+        bufs.par_iter_mut().enumerate().for_each(|(c, buf)| {
+            buf.clear();
+            let a = (start + c * CHUNK).min(n);
+            let b = (a + CHUNK).min(n);
+            push_points(buf, ids, maps, site, a..b);
+        });
+        for buf in &bufs {
+            w.write_all(buf)?;
         }
-        seq.end()
+        start += bufs.len() * CHUNK;
     }
+    w.write_all(b"]")
 }
 
 #[derive(Serialize)]
@@ -147,7 +158,6 @@ struct Output<'a> {
     site: Option<i64>,
     warnings: &'a [pollard::Warning],
     tips: Vec<Tip>,
-    points: Points<'a>,
 }
 
 fn tips(ids: &[i64], s: &Summary) -> Vec<Tip> {
@@ -223,15 +233,14 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             site: a.site,
             warnings,
             tips: tips(ids, &summary),
-            points: Points {
-                ids,
-                maps: &maps,
-                site: site.as_deref(),
-            },
         };
-        serde_json::to_writer(&mut sink, &o)
-            .map_err(std::io::Error::from)
-            .and_then(|_| writeln!(sink))
+        // the summary object, then the points array spliced in before its closing brace
+        let mut head = serde_json::to_vec(&o)?;
+        head.pop();
+        sink.write_all(&head)
+            .and_then(|_| sink.write_all(b",\"points\":"))
+            .and_then(|_| write_points(&mut sink, ids, &maps, site.as_deref()))
+            .and_then(|_| writeln!(sink, "}}"))
             .map_err(anyhow::Error::from)
     } else {
         write_text(
