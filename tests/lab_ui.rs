@@ -16,7 +16,8 @@ fn harness() -> Harness<'static, LabView> {
 }
 
 fn choose(h: &mut Harness<'static, LabView>, p: Preset) {
-    h.get_by_label(p.label()).click();
+    // the lesson list comes first; the chosen lesson's title repeats the label
+    h.get_all_by_label(p.label()).next().unwrap().click();
     h.run();
     assert_eq!(h.state().preset, Some(p));
     assert!(h.state().error().is_none(), "{:?}", h.state().error());
@@ -232,4 +233,61 @@ fn the_app_opens_a_sent_lab_tree_in_the_cell_view() {
         (total - (4.0 * 150.0 + 3.0 * 200.0)).abs() < 1e-6,
         "{total}"
     );
+}
+
+#[test]
+fn clicking_a_branch_in_the_drawing_chooses_it() {
+    let mut h = harness();
+    choose(&mut h, Preset::ThinDaughters);
+    h.run_steps(2);
+    let secs = &h.state().result().unwrap().tree.sections;
+    let other = secs.iter().position(|s| s.name == "1.2").unwrap();
+    let before = h.state().series().unwrap().tip_section;
+    assert_ne!(before, other);
+    let p = h.state().branch_screen_pos(other).unwrap();
+    h.event(egui::Event::PointerMoved(p));
+    h.run_steps(1);
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton {
+            pos: p,
+            button: egui::PointerButton::Primary,
+            pressed,
+            modifiers: egui::Modifiers::default(),
+        });
+        h.run_steps(1);
+    }
+    h.run();
+    assert_eq!(h.state().chosen, other);
+    assert_eq!(h.state().series().unwrap().tip_section, other);
+}
+
+#[test]
+fn killing_one_tip_lowers_the_soma_input_resistance() {
+    // a killed end draws more current than a sealed one (Y0·coth L > Y0·tanh L; Rall 1959)
+    let mut h = harness();
+    choose(&mut h, Preset::ThinDaughters);
+    let sealed = h.state().series().unwrap().rin_mohm[0];
+    h.get_by_label("This tip's end").click();
+    h.run();
+    h.get_by_label("killed").click();
+    h.run();
+    let lab = h.state();
+    assert_eq!(lab.spec.end_overrides.get(&lab.chosen), Some(&End::Killed));
+    let s = lab.series().unwrap();
+    assert!(s.rin_mohm[0] < sealed);
+    assert_eq!(*s.v_from_soma.last().unwrap(), 0.0);
+}
+
+#[test]
+fn the_plots_can_run_against_electrotonic_distance() {
+    let mut h = harness();
+    choose(&mut h, Preset::SealedKilled);
+    h.get_by_label("electrotonic distance X (in λ, at DC)")
+        .click();
+    h.run();
+    assert_eq!(h.state().x_axis, pollard::app::lab::XAxis::Electrotonic);
+    // X at the tip is ℓ/λ for the lesson's 600 µm × 1 µm cable (Johnston & Wu 1995 eq. 4.25)
+    let x = *h.state().series().unwrap().x.last().unwrap();
+    let lambda = (20_000.0f64 * 1e-4 / (4.0 * 150.0)).sqrt() * 1e4;
+    assert!((x - 600.0 / lambda).abs() < 1e-9);
 }

@@ -232,6 +232,8 @@ pub struct LabView {
     error: Option<String>,
     computed: Option<(TreeSpec, usize)>,
     pending_export: Option<Receiver<Option<PathBuf>>>,
+    /// Where the middle of each branch was drawn last frame (screen points).
+    branch_mids: Vec<Pos2>,
     /// Frames drawn so far (the first few are repainted so that plots settle their axes).
     frames: u32,
     send: Option<(String, Morphology)>,
@@ -261,6 +263,7 @@ impl LabView {
             computed: None,
             pending_export: None,
             frames: 0,
+            branch_mids: Vec::new(),
             send: None,
             scale: Scale::new(),
         };
@@ -296,6 +299,11 @@ impl LabView {
     /// The same tree at DC (only when the frequency is above 0).
     pub fn series_dc(&self) -> Option<&PathSeries> {
         self.result_dc.as_ref().map(|r| &r.path)
+    }
+
+    /// Where the middle of branch `s` was drawn in the last frame (for clicking it in tests).
+    pub fn branch_screen_pos(&self, s: usize) -> Option<Pos2> {
+        self.branch_mids.get(s).copied()
     }
 
     /// Why the parameters were refused, if they were.
@@ -546,6 +554,13 @@ impl LabView {
             "A sphere of this diameter at the root, in parallel with the tree. At 0 the tree is \
              seen bare from its root (a pure cable seen from its end).",
         );
+        ui.label(
+            RichText::new(
+                "A sphere at the root, in parallel with the tree; 0 = no soma membrane, the tree \
+                 seen bare from its root.",
+            )
+            .small(),
+        );
         ui.separator();
         ui.label(RichText::new("Membrane").strong());
         let p = &mut self.spec.params;
@@ -676,7 +691,9 @@ impl LabView {
                             }
                         });
                 });
-                clicked = self.drawing(ui, r, Vec2::new(draw_w, top_h - 30.0));
+                let (c, mids) = self.drawing(ui, r, Vec2::new(draw_w, top_h - 30.0));
+                clicked = c;
+                self.branch_mids = mids;
             });
             ui.separator();
             ui.vertical(|ui| {
@@ -709,7 +726,7 @@ impl LabView {
     }
 
     /// The tree drawing; returns the section clicked, if any.
-    fn drawing(&self, ui: &mut egui::Ui, r: &LabResult, size: Vec2) -> Option<usize> {
+    fn drawing(&self, ui: &mut egui::Ui, r: &LabResult, size: Vec2) -> (Option<usize>, Vec<Pos2>) {
         let (rect, response) = ui.allocate_exact_size(size, Sense::click());
         let painter = ui.painter_at(rect);
         painter.rect_filled(rect, 4.0, Color32::from_rgb(18, 18, 22));
@@ -875,6 +892,21 @@ impl LabView {
             egui::FontId::proportional(11.0),
             Color32::from_gray(200),
         );
+        // the middle of every branch on screen
+        let mids: Vec<Pos2> = t
+            .sections
+            .iter()
+            .enumerate()
+            .map(|(s, sec)| {
+                let start = match sec.parent {
+                    Some(p) => t.section_end_node[p] as usize,
+                    None => 0,
+                };
+                let a = to_screen(&t.flat.pos[start]);
+                let b = to_screen(&t.flat.pos[t.section_end_node[s] as usize]);
+                a + (b - a) * 0.5
+            })
+            .collect();
         // click: the nearest segment's section
         if response.clicked()
             && let Some(pos) = response.interact_pointer_pos()
@@ -893,11 +925,11 @@ impl LabView {
             {
                 let s = t.node_section[q];
                 if s != crate::morphology::NONE {
-                    return Some(s as usize);
+                    return (Some(s as usize), mids);
                 }
             }
         }
-        None
+        (None, mids)
     }
 
     /// Per-node values of the drawing, their range, and whether the scale is logarithmic.
