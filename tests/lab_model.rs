@@ -310,3 +310,44 @@ fn bad_numbers_are_errors_not_panics() {
     let s = TreeSpec::default();
     assert!(LabResult::compute(&s, 99).is_err());
 }
+
+/// |Z_in| at the soma of a cell given as SWC points, through the engine (Ω).
+fn engine_rin(points: Vec<pollard::swc::SwcPoint>, p: &Params) -> f64 {
+    let m = pollard::Morphology::from_swc(pollard::swc::SwcFile {
+        source: "synth".into(),
+        points,
+        header: Vec::new(),
+        warnings: Vec::new(),
+    })
+    .unwrap();
+    let net = pollard::cable::Network::build(&m.flatten(), p, 0.0).unwrap();
+    pollard::cable::Maps::new(&net).input_impedance(0).re
+}
+
+#[test]
+fn lab_trees_agree_with_the_generated_cells() {
+    // the generators' single cable is the same ideal cylinder
+    let s = cable(600.0, 1.0, End::Sealed);
+    let lab = LabTree::build(&s).unwrap().input_impedance(0).re;
+    let gen_ = engine_rin(pollard::synth::cylinder(600.0, 1.0, 24), &s.params);
+    assert!(rel(gen_, lab) < 1e-9);
+    // the generators' Y junction tapers each daughter's first segment from the parent's radius;
+    // as the segments shorten it tends to the lab's ideal Y (which has no taper)
+    let mut y = TreeSpec {
+        shape: Shape::YJunction,
+        ..TreeSpec::default()
+    };
+    y.level[0] = Piece::new(300.0, 2.0);
+    y.level[1] = Piece::new(200.0, 1.0);
+    let lab = LabTree::build(&y).unwrap().input_impedance(0).re;
+    let coarse = engine_rin(
+        pollard::synth::y_junction(300.0, 2.0, 200.0, 1.0, 4),
+        &y.params,
+    );
+    let fine = engine_rin(
+        pollard::synth::y_junction(300.0, 2.0, 200.0, 1.0, 400),
+        &y.params,
+    );
+    assert!((fine - lab).abs() < (coarse - lab).abs());
+    assert!(rel(fine, lab) < 1e-3, "{fine} vs {lab}");
+}
