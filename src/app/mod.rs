@@ -43,6 +43,8 @@ pub struct StartOptions {
     pub freq_hz: Option<f64>,
     pub colour_by: Option<state::ColourBy>,
     pub dendrogram: bool,
+    /// Save a PNG of the figure once the reduced tree is drawn.
+    pub save_png: Option<PathBuf>,
 }
 
 /// Opens the window.
@@ -119,6 +121,8 @@ pub struct PollardApp {
     ctx: Option<egui::Context>,
     /// Applied when the next cell finishes loading.
     pub start_options: Option<StartOptions>,
+    /// A PNG to save once the reduced tree has been drawn for a few frames.
+    png_when_ready: Option<(PathBuf, u32)>,
 }
 
 impl PollardApp {
@@ -149,6 +153,7 @@ impl PollardApp {
             figure_rect: egui::Rect::NOTHING,
             ctx: None,
             start_options: None,
+            png_when_ready: None,
         };
         match start {
             Start::Demo => app.open_demo(),
@@ -306,6 +311,7 @@ impl PollardApp {
         if o.dendrogram {
             self.layout = ReducedLayout::Dendrogram;
         }
+        self.png_when_ready = o.save_png.map(|p| (p, 0));
         let Some(s) = &mut self.state else { return };
         if let Some(f) = o.freq_hz {
             let p = s.params;
@@ -561,6 +567,17 @@ impl PollardApp {
         for a in actions {
             self.apply(a);
         }
+        if let Some((path, frames)) = self.png_when_ready.take() {
+            let ready = self.load_job.is_none()
+                && self.reduce_job.is_none()
+                && self.state.as_ref().is_some_and(|s| s.reduced.is_some());
+            if ready && frames >= 3 {
+                self.dialog_answered(Purpose::SavePng, path);
+            } else {
+                self.png_when_ready = Some((path, if ready { frames + 1 } else { 0 }));
+                ui.ctx().request_repaint();
+            }
+        }
         if self.busy()
             && let Some(ctx) = &self.ctx
         {
@@ -642,7 +659,7 @@ impl PollardApp {
                 Vec2::new(w, h),
             );
         });
-        self.figure_rect = egui::Rect::from_min_max(top, self.right.last_rect.max);
+        self.figure_rect = egui::Rect::from_min_max(top, self.right.last_rect.max).expand(4.0);
         self.colours = Some(colours);
         if let Some(k) = clicked {
             self.click_site(k);

@@ -37,6 +37,10 @@ pub struct Args {
     /// Draw the reduced tree as a dendrogram rather than in place.
     #[arg(long)]
     pub dendrogram: bool,
+    /// Once both drawings are ready, save them with the colour bar as a PNG picture (the
+    /// window stays open).
+    #[arg(long, value_name = "FIGURE.png")]
+    pub save_png: Option<PathBuf>,
 }
 
 #[cfg(feature = "gui")]
@@ -54,6 +58,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             ColourBy::Type => C::NeuriteType,
         }),
         dendrogram: a.dendrogram,
+        save_png: a.save_png,
     };
     pollard::app::run_with(pollard::app::Start::File(a.cell), opts)?;
     Ok(ExitCode::SUCCESS)
