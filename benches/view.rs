@@ -1,7 +1,7 @@
 //! The desktop view's CPU work after a click on a 100,000-point cell: solve the voltage map from
 //! the new site, colour every point and compartment, and rewrite the cached mesh's colours
 //! (goal: well inside one 60 Hz frame, 16.7 ms). Also the full tessellation after a camera
-//! change, and the budget slider's step.
+//! change, the budget slider's step and a membrane-parameter change.
 
 #[cfg(feature = "gui")]
 mod gui {
@@ -29,6 +29,9 @@ mod gui {
 
     pub fn view(c: &mut Criterion) {
         let mut s = big_state(100_000);
+        let red = pollard::app::state::build_reduction(&s.cell, None, &s.params);
+        s.set_reduction(red);
+        s.set_budget(255);
         let scale = Scale::new();
         let rect = Rect::from_min_size(Pos2::ZERO, Vec2::new(900.0, 800.0));
         let mut cam = Camera::default();
@@ -60,6 +63,31 @@ mod gui {
                 black_box(canvas.tessellations);
             })
         });
+        g.bench_function(
+            "budget slider step, 100k points (replay + reduced maps)",
+            |b| {
+                let mut k = 0;
+                b.iter(|| {
+                    k += 1;
+                    s.set_budget(if k % 2 == 0 { 255 } else { 127 });
+                    black_box(s.reduced.as_ref().map(|r| r.tree.len()));
+                })
+            },
+        );
+        let p0 = s.params;
+        g.bench_function(
+            "membrane resistance change, 100k points (maps rebuilt)",
+            |b| {
+                let mut k = 0;
+                b.iter(|| {
+                    k += 1;
+                    let mut p = p0;
+                    p.rm_ohm_cm2 += (k % 2) as f64 * 100.0;
+                    s.set_electrical(p, 0.0).expect("valid parameters");
+                    black_box(s.elec.input_mohm[0]);
+                })
+            },
+        );
         g.finish();
     }
 }

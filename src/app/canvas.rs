@@ -275,7 +275,7 @@ impl ArborCanvas {
         min_px: f32,
     ) {
         let key = GeomKey {
-            geometry: state.geometry_version ^ ((Arc::as_ptr(&state.cell) as usize as u64) << 20),
+            geometry: state.geometry_version,
             cam: *cam,
             rect,
             min_px,

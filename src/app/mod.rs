@@ -503,7 +503,7 @@ impl PollardApp {
 
     fn colours(&mut self) -> Option<&colour::Colours> {
         let s = self.state.as_ref()?;
-        let key = (s.colour_version, Arc::as_ptr(&s.cell) as usize);
+        let key = (s.colour_version, s.geometry_version as usize);
         if self.colours.is_none() || self.colours_version != key {
             self.colours = Some(colour::colours(s, &self.scale));
             self.colours_version = key;

@@ -652,6 +652,13 @@ impl Reduced {
     }
 }
 
+/// A version number no other state has used: each new state starts a million above the last,
+/// so caches keyed on versions never mistake one cell for another.
+fn fresh_version() -> u64 {
+    static NEXT: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(1);
+    NEXT.fetch_add(1 << 20, std::sync::atomic::Ordering::Relaxed)
+}
+
 /// Everything the app shows about the current cell, independent of egui.
 pub struct CellState {
     pub cell: Arc<Cell>,
@@ -701,8 +708,8 @@ impl CellState {
             reduction_note: "preparing the reduction…".into(),
             budget: 63,
             reduced: None,
-            geometry_version: 1,
-            colour_version: 1,
+            geometry_version: fresh_version(),
+            colour_version: fresh_version(),
         };
         let far = s.farthest_tip();
         s.set_site(far);
