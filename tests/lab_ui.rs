@@ -92,6 +92,11 @@ fn killed_end_drains_and_sealed_end_holds() {
     assert_eq!(h.state().spec.end, End::Killed);
     let killed = h.state().series().unwrap().clone();
     assert_eq!(*killed.v_from_soma.last().unwrap(), 0.0);
+    // the dashed comparison is the same cable sealed: V(L)/V(0) = 1/cosh L (Rall 1959)
+    let (what, other) = h.state().series_compare().unwrap();
+    assert_eq!(what, "sealed end");
+    let big_l = *other.x.last().unwrap();
+    assert!((other.v_from_soma.last().unwrap() - 1.0 / big_l.cosh()).abs() < 1e-9);
     h.get_by_label("Sealed").click();
     h.run();
     assert_eq!(h.state().spec.end, End::Sealed);

@@ -75,7 +75,7 @@ impl Preset {
                 "A sealed end lets no current out: charge piles up and the profile flattens near \
                  the tip. A killed end (cut open, or clamped to rest) holds the tip at 0 and drains \
                  current, so the voltage falls all the way to zero and the input resistance drops. \
-                 Switch the end condition and compare."
+                 The dashed curves show the other end condition; switch it to swap them."
             }
             Preset::SlowFast => {
                 "The membrane is a resistor and a capacitor side by side. For a fast signal the \
@@ -225,8 +225,9 @@ pub struct LabView {
     /// The last thing done or the last failure, shown under the buttons.
     pub notice: Option<String>,
     result: Option<LabResult>,
-    /// The same tree at DC, when the frequency is above 0 (the dashed curves).
-    result_dc: Option<LabResult>,
+    /// The dashed curves: the same tree at DC when the frequency is above 0, or, in the
+    /// sealed-versus-killed lesson, with the other end condition; with their name.
+    compare: Option<(&'static str, LabResult)>,
     /// The equivalent cylinder through the engine, when the tree qualifies.
     cylinder: Option<LabResult>,
     error: Option<String>,
@@ -257,7 +258,7 @@ impl LabView {
             export_to: None,
             notice: None,
             result: None,
-            result_dc: None,
+            compare: None,
             cylinder: None,
             error: None,
             computed: None,
@@ -298,7 +299,16 @@ impl LabView {
 
     /// The same tree at DC (only when the frequency is above 0).
     pub fn series_dc(&self) -> Option<&PathSeries> {
-        self.result_dc.as_ref().map(|r| &r.path)
+        if self.spec.freq_hz > 0.0 {
+            self.compare.as_ref().map(|(_, r)| &r.path)
+        } else {
+            None
+        }
+    }
+
+    /// The dashed comparison curves and what they show, if any.
+    pub fn series_compare(&self) -> Option<(&'static str, &PathSeries)> {
+        self.compare.as_ref().map(|(what, r)| (*what, &r.path))
     }
 
     /// Where the middle of branch `s` was drawn in the last frame (for clicking it in tests).
@@ -324,10 +334,28 @@ impl LabView {
         self.computed = Some(key);
         match LabResult::compute(&self.spec, self.chosen) {
             Ok(r) => {
-                self.result_dc = if self.spec.freq_hz > 0.0 {
+                self.compare = if self.spec.freq_hz > 0.0 {
                     let mut dc = self.spec.clone();
                     dc.freq_hz = 0.0;
-                    LabResult::compute(&dc, self.chosen).ok()
+                    LabResult::compute(&dc, self.chosen)
+                        .ok()
+                        .map(|r| ("steady current", r))
+                } else if self.preset == Some(Preset::SealedKilled) {
+                    let mut other = self.spec.clone();
+                    other.end_overrides.clear();
+                    let what = match self.spec.end {
+                        End::Sealed => {
+                            other.end = End::Killed;
+                            "killed end"
+                        }
+                        End::Killed => {
+                            other.end = End::Sealed;
+                            "sealed end"
+                        }
+                    };
+                    LabResult::compute(&other, self.chosen)
+                        .ok()
+                        .map(|r| (what, r))
                 } else {
                     None
                 };
@@ -975,7 +1003,8 @@ impl LabView {
                 Some((j.name.clone(), xs[i]))
             })
             .collect();
-        let dc = self.result_dc.as_ref().map(|d| &d.path);
+        let dc = self.compare.as_ref().map(|(_, d)| &d.path);
+        let dashed = self.compare.as_ref().map(|(what, _)| *what);
         let dc_pts = |f: fn(&PathSeries) -> &Vec<f64>| -> Option<Vec<[f64; 2]>> {
             let d = dc?;
             let dxs: &[f64] = match self.x_axis {
@@ -1013,12 +1042,12 @@ impl LabView {
                         (soma_col, "current at the soma"),
                         (fork_col, "forks"),
                     ],
-                    dc.is_some(),
+                    dashed,
                 );
                 Plot::new("lab_voltage")
                     .height(height)
                     .custom_x_axes(vec![x_axis(x_label)])
-                    .y_axis_label("V / V at the injection site")
+                    .custom_y_axes(vec![y_axis("V / V at the injection site")])
                     .include_y(0.0)
                     .include_y(1.05)
                     .show(ui, |pu| {
@@ -1034,14 +1063,14 @@ impl LabView {
                         );
                         if let Some(p) = dc_pts(|d| &d.v_from_tip) {
                             pu.line(
-                                Line::new("tip, steady current", p)
+                                Line::new("tip, compared", p)
                                     .color(tip_col)
                                     .style(LineStyle::dashed_loose()),
                             );
                         }
                         if let Some(p) = dc_pts(|d| &d.v_from_soma) {
                             pu.line(
-                                Line::new("soma, steady current", p)
+                                Line::new("soma, compared", p)
                                     .color(soma_col)
                                     .style(LineStyle::dashed_loose()),
                             );
@@ -1058,12 +1087,12 @@ impl LabView {
                 key(
                     ui,
                     &[(rin_col, "input resistance"), (fork_col, "forks")],
-                    dc.is_some(),
+                    dashed,
                 );
                 Plot::new("lab_rin")
                     .height(height)
                     .custom_x_axes(vec![x_axis(x_label)])
-                    .y_axis_label("|Z_in| (MΩ)")
+                    .custom_y_axes(vec![y_axis("|Z_in| (MΩ)")])
                     .include_y(0.0)
                     .show(ui, |pu| {
                         pu.line(
@@ -1073,7 +1102,7 @@ impl LabView {
                         );
                         if let Some(p) = dc_pts(|d| &d.rin_mohm) {
                             pu.line(
-                                Line::new("steady current", p)
+                                Line::new("compared", p)
                                     .color(rin_col)
                                     .style(LineStyle::dashed_loose()),
                             );
@@ -1094,12 +1123,12 @@ impl LabView {
                         (soma_col, "away from the soma"),
                         (fork_col, "forks"),
                     ],
-                    false,
+                    None,
                 );
                 Plot::new("lab_melec")
                     .height(height)
                     .custom_x_axes(vec![x_axis(x_label)])
-                    .y_axis_label("ln(attenuation) to or from the soma")
+                    .custom_y_axes(vec![y_axis("ln(attenuation) to or from the soma")])
                     .include_y(0.0)
                     .show(ui, |pu| {
                         pu.line(
@@ -1293,13 +1322,20 @@ fn x_axis(label: &str) -> AxisHints<'static> {
 }
 
 /// The key of a plot: a coloured dash and a name per curve, and a note on the dashed curves.
-fn key(ui: &mut egui::Ui, entries: &[(Color32, &str)], dashed: bool) {
+fn key(ui: &mut egui::Ui, entries: &[(Color32, &str)], dashed: Option<&str>) {
     ui.horizontal_wrapped(|ui| {
         for (c, name) in entries {
             ui.colored_label(*c, RichText::new(format!("— {name}")).small());
         }
-        if dashed {
-            ui.label(RichText::new("(dashed: steady current)").small());
+        if let Some(what) = dashed {
+            ui.label(RichText::new(format!("(dashed: {what})")).small());
         }
     });
+}
+
+/// The y axis of the lab's plots, with tick labels a little closer than the default.
+fn y_axis(label: &str) -> AxisHints<'static> {
+    AxisHints::new_y()
+        .label(label.to_string())
+        .label_spacing(14.0..=24.0)
 }
