@@ -18,8 +18,11 @@
 //!    through m − 2 *junction* compartments: the child presenting the largest admittance stays
 //!    on the node, the others go down the cascade. A soma with a single stem gets a second
 //!    child, a *soma leaf*. Junction links have the axial conductance of a cylinder of the
-//!    node's radius (soma: the radius of a sphere of the soma's area) and length
-//!    [`ReduceOptions::junction_length_fraction`] × radius, g = π·r/(Ra·fraction). Each junction
+//!    node's radius (the thickest segment end meeting there; soma: the radius of a sphere of
+//!    the soma's area, or the thickest stem without a soma area) and length
+//!    [`ReduceOptions::junction_length_fraction`] × radius, g = π·r/(Ra·fraction), shared out
+//!    over the m − 2 links of a cascade (each link is 1/(m − 2) of that length, so the whole
+//!    cascade adds no more series resistance than one such piece). Each junction
 //!    (and the soma leaf) takes an equal share of its node's leak and membrane area, so the
 //!    total leak is unchanged. This is the only inexact step; its effect on the soma's DC input
 //!    resistance is measured and reported ([`Report::junction_effect_relative`]).
@@ -560,14 +563,17 @@ impl Reducer {
                     .max(1.0)
             }
         };
+        // the radius of a branch point: the thickest process meeting there (its own segment's
+        // distal end, or a child segment's proximal end)
+        let mut node_r = kept.r_dist_um.clone();
+        for k in 1..n {
+            let q = kept.parent[k] as usize;
+            node_r[q] = node_r[q].max(kept.r_prox_um[k]);
+        }
         let junction_g = |k: usize| -> f64 {
             // cylinder of radius r and length fraction·r: π r²/(Ra·fraction·r) (Ohm's law for
             // a uniform core conductor)
-            let r_um = if k == 0 {
-                soma_radius_um
-            } else {
-                kept.r_dist_um[k]
-            };
+            let r_um = if k == 0 { soma_radius_um } else { node_r[k] };
             std::f64::consts::PI * r_um * crate::cable::UM / (params.ra_ohm_cm * fr)
         };
         let mut kids_ret: Vec<Vec<u32>> = vec![Vec::new(); n];
@@ -644,7 +650,9 @@ impl Reducer {
                             .total_cmp(&branch_adm(x as usize))
                             .then(x.cmp(&y))
                     });
-                    let gj = junction_g(k);
+                    // the m − 2 links of the cascade together make one piece of length
+                    // fraction·r, so a long cascade adds no more series resistance than one link
+                    let gj = junction_g(k) * (m - 2) as f64;
                     let share_sh = t.shunt[me as usize] / (m - 1) as f64;
                     let share_area = t.area[me as usize] / (m - 1) as f64;
                     t.shunt[me as usize] = share_sh;
