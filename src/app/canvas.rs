@@ -503,6 +503,7 @@ impl ArborCanvas {
         let cell = &state.cell;
         let proj = Projector::new(cam, rect, cell.centre, cell.extent_radius_um);
         let t = &r.tree;
+        let widths = edge_widths(t);
         for c in 0..t.len() {
             let p = proj.project(t.pos[c]);
             let rad = ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * proj.scale)
@@ -514,7 +515,7 @@ impl ArborCanvas {
             if p == NONE {
                 continue;
             }
-            let w = edge_width(t, c);
+            let w = widths[c];
             painter.line_segment(
                 [self.comp_screen[p as usize].0, self.comp_screen[c].0],
                 Stroke::new(w, colours.comps[c]),
@@ -547,6 +548,7 @@ impl ArborCanvas {
             return;
         };
         let t = &r.tree;
+        let widths = edge_widths(t);
         let xy = dendrogram_layout(&t.parent);
         let inner = rect.shrink2(Vec2::new(24.0, 34.0));
         for &(x, y) in &xy {
@@ -563,7 +565,7 @@ impl ArborCanvas {
             }
             let a = self.comp_screen[p as usize].0;
             let b = self.comp_screen[c].0;
-            let w = edge_width(t, c);
+            let w = widths[c];
             let col = colours.comps[c];
             painter.line_segment(
                 [Pos2::new(a.x, a.y), Pos2::new(b.x, a.y)],
@@ -588,9 +590,9 @@ impl ArborCanvas {
     }
 }
 
-/// Line width of the edge to compartment c: 1–7 points on the log of its axial conductance
-/// relative to the tree's range.
-fn edge_width(t: &super::state::RTree, c: usize) -> f32 {
+/// Line width of the edge to each compartment: 1–7 points on the log of its axial conductance
+/// relative to the tree's range (3 where there is no range).
+pub fn edge_widths(t: &super::state::RTree) -> Vec<f32> {
     let mut lo = f64::INFINITY;
     let mut hi = f64::NEG_INFINITY;
     for k in 1..t.len() {
@@ -600,11 +602,16 @@ fn edge_width(t: &super::state::RTree, c: usize) -> f32 {
             hi = hi.max(g.ln());
         }
     }
-    let g = t.g_axial_ns[c];
-    if g.is_nan() || g <= 0.0 || !lo.is_finite() || hi - lo < 1e-9 {
-        return 3.0;
-    }
-    1.0 + 6.0 * ((g.ln() - lo) / (hi - lo)) as f32
+    t.g_axial_ns
+        .iter()
+        .map(|&g| {
+            if g.is_nan() || g <= 0.0 || !lo.is_finite() || hi - lo < 1e-9 {
+                3.0
+            } else {
+                1.0 + 6.0 * ((g.ln() - lo) / (hi - lo)) as f32
+            }
+        })
+        .collect()
 }
 
 /// Dendrogram positions in [0, 1]²: leaves spread evenly left to right in depth-first order,

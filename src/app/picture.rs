@@ -1,7 +1,7 @@
 //! Pictures for figures: an SVG of both drawings with the colour bar (drawn from the data, so it
 //! scales cleanly), and a PNG cut from a screenshot of the window.
 
-use super::canvas::{Camera, Projector, ReducedLayout, dendrogram_layout};
+use super::canvas::{Camera, Projector, ReducedLayout, dendrogram_layout, edge_widths};
 use super::colour::{self, Colours, FAINT, Scale, hex};
 use super::state::{CellState, nice_step};
 use crate::morphology::NONE;
@@ -152,6 +152,7 @@ pub fn svg_figure(
     match &s.reduced {
         Some(r) => {
             let t = &r.tree;
+            let widths = edge_widths(t);
             let pts: Vec<Pos2> = match layout {
                 ReducedLayout::InPlace => {
                     arbor(&mut out, s, &rproj, &|_| FAINT);
@@ -178,16 +179,17 @@ pub fn svg_figure(
                 let a = pts[p as usize];
                 let b = pts[c];
                 let col = hex(colours.comps[c]);
+                let w = widths[c];
                 if layout == ReducedLayout::Dendrogram {
                     let _ = writeln!(
                         out,
-                        r#"<polyline points="{:.2},{:.2} {:.2},{:.2} {:.2},{:.2}" fill="none" stroke="{col}" stroke-width="2"/>"#,
+                        r#"<polyline points="{:.2},{:.2} {:.2},{:.2} {:.2},{:.2}" fill="none" stroke="{col}" stroke-width="{w:.2}"/>"#,
                         a.x, a.y, b.x, a.y, b.x, b.y
                     );
                 } else {
                     let _ = writeln!(
                         out,
-                        r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{col}" stroke-width="2"/>"#,
+                        r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{col}" stroke-width="{w:.2}"/>"#,
                         a.x, a.y, b.x, b.y
                     );
                 }
