@@ -56,8 +56,14 @@ def main(path):
         if not (np.isfinite(c["g_leak_ns"]) and c["g_leak_ns"] > 0):
             errors += fail(f"compartment {k}: g_leak_ns = {c['g_leak_ns']}")
 
-    # conductance matrix (nS)
+    # conductance matrix (nS), and its factor M with G = M^T M: one row sqrt(g)(e_k - e_parent)
+    # per link, one row sqrt(G_leak) e_k per leak. Junction links can be 1e10 times stiffer than
+    # leaks, which a diagonal entry g + G_leak rounds away; solving through the QR factors of M
+    # (G = R^T R) and taking singular values of M keeps them (error ~ eps*sqrt(cond) instead of
+    # eps*cond).
     G = np.zeros((n, n))
+    M = np.zeros((2 * n - 1, n))
+    row = 0
     for c in comps:
         k = c["id"]
         G[k, k] += c["g_leak_ns"]
@@ -67,11 +73,24 @@ def main(path):
             G[p, p] += g
             G[k, p] -= g
             G[p, k] -= g
+            M[row, k], M[row, p] = np.sqrt(g), -np.sqrt(g)
+            row += 1
+        M[row, k] = np.sqrt(c["g_leak_ns"])
+        row += 1
+    R = np.linalg.qr(M, mode="r")
+
+    def solve(b):
+        y = np.linalg.solve(R.T, b)  # triangular systems, solved densely (numpy only)
+        return np.linalg.solve(R, y)
+
+    # the assembled matrix is the factor's Gram matrix
+    if not np.allclose(M.T @ M, G, rtol=1e-12, atol=1e-12 * np.abs(G).max()):
+        errors += fail("internal: M^T M differs from G")
 
     # 2. soma input resistance
     e0 = np.zeros(n)
     e0[0] = 1.0
-    r_mohm = np.linalg.solve(G, e0)[0] * 1000.0
+    r_mohm = solve(e0)[0] * 1000.0
     rep = doc["report"]
     r_rep = rep["soma_input_resistance_dc_reduced_mohm"]
     r_full = rep["soma_input_resistance_dc_full_mohm"]
@@ -100,7 +119,7 @@ def main(path):
     worst = 0.0
     for _ in range(5):
         i_pa = rng.uniform(-0.5, 1.5, n)
-        v_solve = np.linalg.solve(G, i_pa)[0]
+        v_solve = solve(i_pa)[0]
         v_ff = np.dot(i_pa, prod) / y_root
         worst = max(worst, abs(v_ff - v_solve) / (np.abs(i_pa).sum() / y_root))
     print(f"feed-forward form vs solve: worst relative difference {worst:.2e}")
@@ -114,11 +133,12 @@ def main(path):
             if comps[k]["depth"] != d:
                 errors += fail(f"compartment {k} is in layer {d} but has depth {comps[k]['depth']}")
 
-    # 4. slowest time constant: smallest eigenvalue of C^-1/2 G C^-1/2 (1/ms)
+    # 4. slowest time constant: smallest eigenvalue of C^-1/2 G C^-1/2 (1/ms), the smallest
+    # squared singular value of M C^-1/2
     s = 1.0 / np.sqrt(np.array([c["capacitance_pf"] for c in comps]))
-    lam = np.linalg.eigvalsh(G * s[:, None] * s[None, :])
+    sv = np.linalg.svd(M * s[None, :], compute_uv=False)
     tau = doc["parameters"]["tau_ms"]
-    tau_slow = 1.0 / lam.min()
+    tau_slow = 1.0 / sv.min() ** 2
     rel_tau = abs(tau_slow - tau) / tau
     print(f"slowest time constant {tau_slow:.9g} ms, tau = {tau} ms (rel {rel_tau:.2e})")
     if rel_tau > 1e-6:

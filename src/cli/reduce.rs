@@ -198,6 +198,12 @@ fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::
         "  junctions: {} (their effect on the DC input resistance: {:.2e} relative)",
         r.junctions, r.junction_effect_relative
     )?;
+    if r.junction_effect_relative.abs() > 1e-3 {
+        writeln!(
+            w,
+            "  warning: the junction links change the input resistance by more than 0.1 %; pass a smaller --junction-fraction"
+        )?;
+    }
     writeln!(w, "  slowest time constant: τ = {} ms", r.tau_ms)?;
     let s = &r.ln_attenuation_error;
     writeln!(
