@@ -994,14 +994,12 @@ impl LabView {
                 .map(|(&x, &y)| [x, y])
                 .collect()
         };
-        let forks: Vec<(String, f64)> = r
+        // x of every fork on the path
+        let forks: Vec<f64> = r
             .junctions
             .iter()
             .filter(|j| j.on_path)
-            .filter_map(|j| {
-                let i = s.nodes.iter().position(|&q| q == j.node)?;
-                Some((j.name.clone(), xs[i]))
-            })
+            .filter_map(|j| Some(xs[s.nodes.iter().position(|&q| q == j.node)?]))
             .collect();
         let dc = self.compare.as_ref().map(|(_, d)| &d.path);
         let dashed = self.compare.as_ref().map(|(what, _)| *what);
@@ -1075,8 +1073,7 @@ impl LabView {
                                     .style(LineStyle::dashed_loose()),
                             );
                         }
-                        for (name, x) in &forks {
-                            let _ = name;
+                        for x in &forks {
                             pu.vline(VLine::new("forks", *x).color(fork_col));
                         }
                     });
@@ -1107,8 +1104,7 @@ impl LabView {
                                     .style(LineStyle::dashed_loose()),
                             );
                         }
-                        for (name, x) in &forks {
-                            let _ = name;
+                        for x in &forks {
                             pu.vline(VLine::new("forks", *x).color(fork_col));
                         }
                     });
@@ -1141,8 +1137,7 @@ impl LabView {
                                 .color(soma_col)
                                 .width(2.0),
                         );
-                        for (name, x) in &forks {
-                            let _ = name;
+                        for x in &forks {
                             pu.vline(VLine::new("forks", *x).color(fork_col));
                         }
                     });
