@@ -525,28 +525,33 @@ impl Morphology {
         for (ni, &fi) in order.iter().enumerate() {
             new_index[fi as usize] = ni as u32;
         }
-        let mut points: Vec<SwcPoint> = Vec::with_capacity(n);
         let mut parent = vec![NONE; n];
         let mut is_soma = vec![false; n];
         for (ni, &fi) in order.iter().enumerate() {
-            // a plain copy (SwcPoint holds no heap data); cheaper than moving out of the vector
-            let mut p = raw[fi as usize].clone();
             let pf = new_parent_file[fi as usize];
             if pf != NONE {
                 parent[ni] = new_index[pf as usize];
-                p.parent = -2; // filled below
-            } else {
-                p.parent = -1;
             }
             is_soma[ni] = in_soma[fi as usize];
-            points.push(p);
         }
+        // Move the points into the new order in place (no second copy of a large file): the
+        // point now at slot i belongs at new_index[i]; each swap puts one point in its place.
+        let mut points = raw;
+        let mut dest = new_index;
         for i in 0..n {
-            if parent[i] != NONE {
-                points[i].parent = points[parent[i] as usize].id;
+            while dest[i] as usize != i {
+                let j = dest[i] as usize;
+                points.swap(i, j);
+                dest.swap(i, j);
             }
         }
-        drop(raw);
+        drop(dest);
+        for i in 0..n {
+            points[i].parent = match parent[i] {
+                NONE => -1,
+                p => points[p as usize].id,
+            };
+        }
         let mut graph2: DiGraph<u32, ()> = DiGraph::with_capacity(n, n);
         for i in 0..n {
             graph2.add_node(i as u32);
