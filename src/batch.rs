@@ -10,16 +10,20 @@
 //!   `stable_hash(rel) mod K = I − 1`, so K independent tasks split an archive exactly, with no
 //!   coordination, and the split never changes between runs, machines or versions
 //!   ([`stable_hash`]: FNV-1a 64 followed by a 64-bit finaliser; never a randomised hasher).
-//! - **Per-cell job** ([`process_cell`]): read, build, flatten, reduce, write the reduced tree
-//!   with [`crate::export::write_atomic`] to `OUT/<rel with .json for .swc>`, then the cell's
-//!   *record* `OUT/.pollard-batch/<same>` (written last). A failed cell has a record and no tree.
-//! - **Resumability** ([`reusable_row`]): a cell is complete, and skipped on the next run, when its
-//!   record parses, names the same settings (all flags that change the output, and the pollard
-//!   version), the input file has the same size and is not newer than the record, and, for a
-//!   cell that succeeded, its tree file exists and parses as JSON. Every file is written by
-//!   temporary file + rename, and the record only after the tree, so a half-written output never
-//!   counts as complete. A changed flag, a newer input file or a new pollard version redoes the
-//!   cell; `force` redoes everything; `retry_failed` redoes only the cells that failed.
+//! - **Per-cell job** ([`process_cell`]): read, build, flatten, reduce, and write the reduced
+//!   tree ([`crate::export::reduced_tree_json`], compact, with the cell's *record* added as its
+//!   last member `batch`) with [`crate::export::write_atomic`] to `OUT/<rel with .json for
+//!   .swc>`. A cell that fails gets no tree and a record file of its own,
+//!   `OUT/.pollard-batch/<same>`. One safe write per cell: the disk's flushes, not the
+//!   numerics, bound the rate on ordinary disks.
+//! - **Resumability** ([`reusable_row`]): a cell is complete, and skipped on the next run, when
+//!   its tree file parses, its record names the same settings (all flags that change the output,
+//!   and the pollard version) and an input of the same size, and the input is not newer than the
+//!   tree; a failed cell likewise through its record file. Every file is written by temporary
+//!   file + rename, so a half-written output never counts as complete. A changed flag, a newer
+//!   input file or a new pollard version redoes the cell; `force` redoes everything;
+//!   `retry_failed` redoes the cells that failed. The record is deterministic (it holds no time),
+//!   so the same input and flags give byte-identical tree files.
 //! - **Summary** ([`write_summary`]): one row per input file of the run (shard), rebuilt on every
 //!   run from the fresh results and the records of skipped cells, sorted by path, as CSV and JSON
 //!   lines. A shard writes `summary.shard-I-of-K.{csv,jsonl}`; [`merge_summaries`] joins the K
@@ -213,14 +217,15 @@ pub struct Row {
     pub site_error_median_np: Option<f64>,
     pub site_error_p95_np: Option<f64>,
     pub site_error_max_np: Option<f64>,
-    /// Wall time of the cell's job (s), rounded to µs; kept from the run that did the work.
-    pub seconds: f64,
+    /// Wall time of the cell's job in this run (s), rounded to µs; empty for a cell reused
+    /// from an earlier run.
+    pub seconds: Option<f64>,
     /// Why the cell failed.
     pub error: Option<String>,
 }
 
 impl Row {
-    fn failed(file: &str, seconds: f64, error: String) -> Row {
+    fn failed(file: &str, seconds: Option<f64>, error: String) -> Row {
         Row {
             file: file.to_string(),
             status: Status::Failed,
@@ -271,7 +276,7 @@ pub fn csv_line(r: &Row) -> String {
         opt(r.site_error_median_np),
         opt(r.site_error_p95_np),
         opt(r.site_error_max_np),
-        r.seconds.to_string(),
+        opt(r.seconds),
         csv_field(r.error.as_deref().unwrap_or("")),
     ]
     .join(",")
@@ -416,7 +421,8 @@ pub fn plan(input: &Path, out: &Path, shard: Shard) -> Result<Vec<Cell>, BatchEr
     Ok(cells)
 }
 
-/// The record of a finished cell (written after its tree, with the same safe write).
+/// What a finished cell leaves for the next run: in the tree file as its last member `batch`
+/// (cells that succeeded), or as a record file of its own (cells that failed).
 #[derive(Debug, Clone, Serialize, Deserialize)]
 struct Record {
     format: String,
@@ -424,8 +430,33 @@ struct Record {
     settings_key: String,
     /// Size of the input file in bytes when it was read.
     input_bytes: u64,
-    /// The row, with its decimals written as text ([`row_to_exact`]).
+    /// The row (without its time), decimals written as text ([`row_to_exact`]).
     row: serde_json::Value,
+}
+
+impl Record {
+    fn new(settings_key: &str, input_bytes: u64, row: &Row) -> Record {
+        Record {
+            format: RECORD_FORMAT.to_string(),
+            settings_key: settings_key.to_string(),
+            input_bytes,
+            row: row_to_exact(&Row {
+                seconds: None,
+                ..row.clone()
+            }),
+        }
+    }
+
+    /// The row, when this record was made under `settings_key` from an input of `input_bytes`.
+    fn row_if(self, settings_key: &str, input_bytes: u64, rel: &str) -> Option<Row> {
+        if self.format != RECORD_FORMAT
+            || self.settings_key != settings_key
+            || self.input_bytes != input_bytes
+        {
+            return None;
+        }
+        row_from_exact(self.row).filter(|r| r.file == rel)
+    }
 }
 
 /// The decimal columns of a [`Row`].
@@ -441,7 +472,7 @@ const FLOAT_FIELDS: [&str; 7] = [
 
 /// A row as JSON with each decimal as the text of its shortest exact form: serde_json's
 /// default number reader may miss the last bit of a double, and a reused row must come back
-/// exactly (so that a rerun's summary is byte-identical to the first run's).
+/// exactly (so that a rerun's summary matches the first run's).
 fn row_to_exact(row: &Row) -> serde_json::Value {
     let mut v = serde_json::to_value(row).unwrap_or_default();
     for k in FLOAT_FIELDS {
@@ -463,35 +494,68 @@ fn row_from_exact(mut v: serde_json::Value) -> Option<Row> {
     serde_json::from_value(v).ok()
 }
 
+/// Removes JSON whitespace outside strings: the same document, compact (no number is touched).
+fn compact_json(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    let mut in_string = false;
+    let mut escaped = false;
+    for ch in text.chars() {
+        if in_string {
+            out.push(ch);
+            if escaped {
+                escaped = false;
+            } else if ch == '\\' {
+                escaped = true;
+            } else if ch == '"' {
+                in_string = false;
+            }
+        } else if ch == '"' {
+            in_string = true;
+            out.push(ch);
+        } else if !matches!(ch, ' ' | '\n' | '\r' | '\t') {
+            out.push(ch);
+        }
+    }
+    out
+}
+
+/// A tree file's `batch` member (every other member is checked to be valid JSON and skipped).
+#[derive(Deserialize)]
+struct TreeFileBatch {
+    batch: Record,
+}
+
 /// The row of a cell that is complete under `settings` (see the module doc), or `None` when the
-/// cell must be (re)done. With `retry_failed`, a recorded failure is not reused.
+/// cell must be (re)done. With `retry_failed`, a recorded failure is not reused. The row of a
+/// reused cell has no time.
 pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Option<Row> {
     if cell.fault.is_some() {
         return None;
     }
     let in_meta = std::fs::metadata(&cell.input).ok()?;
-    let rec_meta = std::fs::metadata(&cell.record).ok()?;
-    if in_meta.modified().ok()? > rec_meta.modified().ok()? {
-        return None;
-    }
-    let rec: Record = serde_json::from_slice(&std::fs::read(&cell.record).ok()?).ok()?;
-    if rec.format != RECORD_FORMAT
-        || rec.settings_key != settings_key
-        || rec.input_bytes != in_meta.len()
-    {
-        return None;
-    }
-    let row = row_from_exact(rec.row)?;
-    if row.file != cell.rel {
-        return None;
-    }
-    match row.status {
-        Status::Failed if retry_failed => None,
-        Status::Failed => Some(row),
-        Status::Ok => {
-            let bytes = std::fs::read(&cell.output).ok()?;
-            serde_json::from_slice::<serde::de::IgnoredAny>(&bytes).ok()?;
-            Some(row)
+    let in_time = in_meta.modified().ok()?;
+    let newer = |p: &Path| -> Option<bool> {
+        let t = std::fs::metadata(p).ok()?.modified().ok()?;
+        Some(t >= in_time)
+    };
+    match newer(&cell.output) {
+        // a tree file: current when it parses, names these settings and this input
+        Some(true) => {
+            let t: TreeFileBatch =
+                serde_json::from_slice(&std::fs::read(&cell.output).ok()?).ok()?;
+            t.batch
+                .row_if(settings_key, in_meta.len(), &cell.rel)
+                .filter(|r| r.status == Status::Ok)
+        }
+        Some(false) => None,
+        None if retry_failed => None,
+        None => {
+            if !newer(&cell.record)? {
+                return None;
+            }
+            let rec: Record = serde_json::from_slice(&std::fs::read(&cell.record).ok()?).ok()?;
+            rec.row_if(settings_key, in_meta.len(), &cell.rel)
+                .filter(|r| r.status == Status::Failed)
         }
     }
 }
@@ -505,7 +569,7 @@ struct Computed {
 /// Read, build, reduce one cell; the tree file is [`reduced_tree_json`] with the relative path
 /// as its source, so it does not depend on where the archive lies. Errors are plain messages
 /// naming the file (they go into the summary).
-fn compute(cell: &Cell, settings: &Settings) -> Result<Computed, String> {
+fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Computed, String> {
     let name = cell.rel.as_str();
     let bytes = std::fs::read(&cell.input).map_err(|e| format!("{name}: cannot read: {e}"))?;
     let swc = crate::swc::parse_bytes(&bytes, name).map_err(|e| e.to_string())?;
@@ -537,23 +601,35 @@ fn compute(cell: &Cell, settings: &Settings) -> Result<Computed, String> {
         .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
     let e = &report.ln_attenuation_error;
     let finite = |x: f64| x.is_finite().then_some(x);
+    let row = Row {
+        file: cell.rel.clone(),
+        status: Status::Ok,
+        points: Some(met.points),
+        tips: Some(met.tips),
+        total_length_um: finite(met.total_length_um),
+        compartments: Some(report.compartments),
+        soma_rin_full_mohm: finite(report.soma_input_resistance_dc_full_mohm),
+        soma_rin_reduced_mohm: finite(report.soma_input_resistance_dc_reduced_mohm),
+        site_error_median_np: (report.sites > 0).then_some(e.median).and_then(finite),
+        site_error_p95_np: (report.sites > 0).then_some(e.p95).and_then(finite),
+        site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
+        seconds: None,
+        error: None,
+    };
+    // the tree, compact, with the record as its last member: one file (one safe write) per cell
+    let mut json = compact_json(&json);
+    let record = Record::new(settings_key, bytes.len() as u64, &row);
+    let record = serde_json::to_string(&record).map_err(|e| format!("{name}: {e}"))?;
+    if !json.ends_with('}') {
+        return Err(format!("{name}: the tree JSON is not an object"));
+    }
+    json.pop();
+    json.push_str(",\"batch\":");
+    json.push_str(&record);
+    json.push('}');
     Ok(Computed {
         json: json.into_bytes(),
-        row: Row {
-            file: cell.rel.clone(),
-            status: Status::Ok,
-            points: Some(met.points),
-            tips: Some(met.tips),
-            total_length_um: finite(met.total_length_um),
-            compartments: Some(report.compartments),
-            soma_rin_full_mohm: finite(report.soma_input_resistance_dc_full_mohm),
-            soma_rin_reduced_mohm: finite(report.soma_input_resistance_dc_reduced_mohm),
-            site_error_median_np: (report.sites > 0).then_some(e.median).and_then(finite),
-            site_error_p95_np: (report.sites > 0).then_some(e.p95).and_then(finite),
-            site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
-            seconds: 0.0,
-            error: None,
-        },
+        row,
     })
 }
 
@@ -580,60 +656,57 @@ fn remove_if_present(path: &Path) -> Result<(), String> {
     }
 }
 
-/// Does one cell and writes its tree (on success) and its record. Never panics on a bad file: a
-/// panic inside the computation is caught and reported as the cell's error. Returns the row.
+/// Does one cell and writes its tree (on success, with its record inside) or its failure
+/// record. Never panics on a bad file: a panic inside the computation is caught and reported as
+/// the cell's error. Returns the row.
 pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
     let t0 = Instant::now();
+    let secs = || Some((t0.elapsed().as_secs_f64() * 1e6).round() / 1e6);
     if let Some(msg) = &cell.fault {
         // no record: a clash's record name is the other file's; a folder has none
-        return Row::failed(&cell.rel, 0.0, msg.clone());
+        return Row::failed(&cell.rel, secs(), msg.clone());
     }
-    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| compute(cell, settings)))
-        .unwrap_or_else(|p| {
-            let what = p
-                .downcast_ref::<&str>()
-                .map(|s| s.to_string())
-                .or_else(|| p.downcast_ref::<String>().cloned())
-                .unwrap_or_default();
-            Err(format!(
-                "{}: internal error (a bug; please report it): {what}",
-                cell.rel
-            ))
-        });
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        compute(cell, settings, settings_key)
+    }))
+    .unwrap_or_else(|p| {
+        let what = p
+            .downcast_ref::<&str>()
+            .map(|s| s.to_string())
+            .or_else(|| p.downcast_ref::<String>().cloned())
+            .unwrap_or_default();
+        Err(format!(
+            "{}: internal error (a bug; please report it): {what}",
+            cell.rel
+        ))
+    });
     let inputs = [cell.input.as_path()];
     let written = (|| -> Result<Row, String> {
-        let input_bytes = std::fs::metadata(&cell.input).map(|m| m.len()).unwrap_or(0);
-        make_parent(&cell.record).map_err(|e| e.to_string())?;
-        let mut row = match result {
+        match result {
             Ok(c) => {
                 make_parent(&cell.output).map_err(|e| e.to_string())?;
                 write_atomic(&cell.output, &c.json, &inputs).map_err(|e| e.to_string())?;
-                c.row
+                // an older failure record is out of date now
+                remove_if_present(&cell.record)?;
+                Ok(c.row)
             }
             Err(msg) => {
-                // a tree left from an earlier run with other settings must not look current
+                // a tree left from an earlier run must not look current: removed first, so
+                // that a stop between the two steps leaves neither
                 remove_if_present(&cell.output)?;
-                Row::failed(&cell.rel, 0.0, msg)
+                let row = Row::failed(&cell.rel, None, msg);
+                let input_bytes = std::fs::metadata(&cell.input).map(|m| m.len()).unwrap_or(0);
+                let rec = Record::new(settings_key, input_bytes, &row);
+                let text = serde_json::to_vec(&rec).map_err(|e| e.to_string())?;
+                make_parent(&cell.record).map_err(|e| e.to_string())?;
+                write_atomic(&cell.record, &text, &inputs).map_err(|e| e.to_string())?;
+                Ok(row)
             }
-        };
-        row.seconds = (t0.elapsed().as_secs_f64() * 1e6).round() / 1e6;
-        let rec = Record {
-            format: RECORD_FORMAT.to_string(),
-            settings_key: settings_key.to_string(),
-            input_bytes,
-            row: row_to_exact(&row),
-        };
-        let text = serde_json::to_vec(&rec).map_err(|e| e.to_string())?;
-        write_atomic(&cell.record, &text, &inputs).map_err(|e| e.to_string())?;
-        Ok(row)
+        }
     })();
-    written.unwrap_or_else(|msg| {
-        Row::failed(
-            &cell.rel,
-            (t0.elapsed().as_secs_f64() * 1e6).round() / 1e6,
-            msg,
-        )
-    })
+    let mut row = written.unwrap_or_else(|msg| Row::failed(&cell.rel, None, msg));
+    row.seconds = secs();
+    row
 }
 
 /// How a batch runs.
@@ -909,18 +982,32 @@ mod tests {
     }
 
     #[test]
+    fn compact_json_keeps_strings_and_numbers() {
+        let pretty = "{\n  \"a b\": [\n    1.5e-7,\n    -2\n  ],\n  \"s\": \"x \\\" y\\\\\",\n  \"t\": \"\\t \"\n}";
+        let c = compact_json(pretty);
+        assert_eq!(
+            c,
+            "{\"a b\":[1.5e-7,-2],\"s\":\"x \\\" y\\\\\",\"t\":\"\\t \"}"
+        );
+        // serde_json reads both as the same document (a general-purpose parser as the reference)
+        let a: serde_json::Value = serde_json::from_str(pretty).unwrap();
+        let b: serde_json::Value = serde_json::from_str(&c).unwrap();
+        assert_eq!(a, b);
+    }
+
+    #[test]
     fn csv_quotes_what_needs_quoting() {
         // RFC 4180: a field with a comma, quote or line break is quoted, quotes doubled
         assert_eq!(csv_field("plain"), "plain");
         assert_eq!(csv_field("a,b"), "\"a,b\"");
         assert_eq!(csv_field("say \"x\""), "\"say \"\"x\"\"\"");
-        let r = Row::failed("a,b.swc", 0.5, "line 3: bad\nthing".into());
+        let r = Row::failed("a,b.swc", Some(0.5), "line 3: bad\nthing".into());
         let line = csv_line(&r);
         assert!(line.starts_with("\"a,b.swc\",failed,,"), "{line}");
         assert!(line.ends_with(",0.5,\"line 3: bad\nthing\""), "{line}");
         assert_eq!(
             CSV_HEADER.split(',').count(),
-            csv_line(&Row::failed("x", 0.0, "e".into()))
+            csv_line(&Row::failed("x", None, "e".into()))
                 .split(',')
                 .count()
         );
