@@ -1,7 +1,8 @@
 //! Batch throughput: cells per second on a generated archive of 1,000 cells of 3,000 points each
 //! (random_tree, seeds 1..=1000, in 10 folders), with 1 and 2 workers. Every sample redoes the
-//! whole archive (`force`), so it measures read + reduce + safe writes of trees, records and
-//! summary. Criterion's throughput line ("thrpt") is in cells/s.
+//! whole archive (`force`), so it measures read + reduce + one safe write per tree, and the
+//! summary; a third measures a rerun with nothing to do. Criterion's throughput line ("thrpt")
+//! is in cells/s.
 //!
 //! `POLLARD_BENCH_CELLS` and `POLLARD_BENCH_POINTS` shrink the archive for a quick look.
 
@@ -58,6 +59,23 @@ fn batch_throughput(c: &mut Criterion) {
             },
         );
     }
+    // a rerun over a finished archive: every cell is checked (its tree read and parsed) and
+    // reused
+    let opts = RunOptions {
+        jobs: 2,
+        force: false,
+        retry_failed: false,
+    };
+    g.bench_function(
+        format!("{n_cells}_cells_rerun_nothing_to_do_2_workers"),
+        |b| {
+            b.iter(|| {
+                let (rows, reused) =
+                    batch::run(&cells, &settings, &opts, &|_, _| {}).expect("runs");
+                assert_eq!(reused, rows.len());
+            })
+        },
+    );
     g.finish();
 }
 
