@@ -247,3 +247,26 @@ fn a_million_deep_chain_loads() {
     assert!((met.max_path_distance_um - 1_000_000.0).abs() < 1e-6);
     assert_eq!(m.flatten().len(), 1_000_001);
 }
+
+#[test]
+fn big_cell_keeps_its_promises() {
+    for (n, seed) in [(1usize, 1u64), (2, 1), (50, 2), (30_000, 3)] {
+        let pts = synth::big_cell(n, seed);
+        assert_eq!(pts.len(), n);
+        let m = parse(&pts, "big.swc");
+        assert_eq!(m.trees.len(), 1);
+        assert_eq!(m.soma.len(), 1);
+        for i in 1..m.len() {
+            let r = m.points[i].radius.unwrap();
+            assert!(r >= 0.15 - 1e-12 && r <= 3.0, "radius {r}");
+            assert!([2, 3, 4].contains(&m.points[i].kind));
+        }
+        if n > 1000 {
+            let met = m.metrics();
+            assert!((4..=8).contains(&met.stems), "stems {}", met.stems);
+            assert!(met.branch_points > 100);
+            // grown breadth first: the deepest point is far fewer steps away than the count
+            assert!(met.max_branch_order < 60, "order {}", met.max_branch_order);
+        }
+    }
+}
