@@ -210,6 +210,8 @@ pub struct RTree {
     pub depth: Vec<u32>,
     /// Model node (see [`CellState::model`]) → entry.
     pub node_comp: Vec<u32>,
+    /// Number of model nodes each entry stands for.
+    pub n_points: Vec<usize>,
     /// Mean path distance (µm) of the points each entry stands for.
     pub path_distance: Vec<f64>,
     /// Most common neurite type among the points of each entry.
@@ -309,6 +311,7 @@ impl RTree {
             cnt[c] += 1;
             *kinds[c].entry(model.kind[k]).or_default() += 1;
         }
+        t.n_points = cnt.clone();
         t.path_distance = (0..n)
             .map(|c| {
                 if cnt[c] > 0 {
@@ -1001,12 +1004,13 @@ impl CellState {
         };
         let t = &r.tree;
         let mut s = format!(
-            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s)\ninput resistance {:.1} MΩ",
+            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s), {} synapse site(s)\ninput resistance {:.1} MΩ",
             t.id[c],
             t.g_axial_ns[c],
             t.g_leak_ns[c],
             t.capacitance_pf[c],
             t.area_um2[c],
+            t.n_points.get(c).copied().unwrap_or(0),
             t.site_count[c],
             r.input_mohm[c]
         );
@@ -1143,6 +1147,8 @@ mod tests {
             s.set_budget(budget);
             let red = s.reduced.as_ref().expect("reduced tree");
             let sc = red.site_comp.expect("the site maps to a compartment");
+            // every model point belongs to exactly one compartment
+            assert_eq!(red.tree.n_points.iter().sum::<usize>(), s.model.flat.len());
             let r = crate::reduce::Reducer::new(
                 &s.model.flat,
                 &s.params,
