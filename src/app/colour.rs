@@ -103,19 +103,25 @@ pub struct Colours {
     pub range: (f64, f64),
 }
 
-/// Computes all colours for the current state.
+/// Computes all colours for the current state (each value computed once).
 pub fn colours(state: &CellState, scale: &Scale) -> Colours {
-    let range = state.value_range();
     let by = state.colour_by;
-    let nodes = (0..state.cell.flat.len())
-        .map(|k| colour_of(scale, by, state.value_full(k), range))
+    let node_vals: Vec<f64> = (0..state.cell.flat.len())
+        .map(|k| state.value_full(k))
         .collect();
-    let comps = match &state.reduced {
-        Some(r) => (0..r.tree.len())
-            .map(|c| colour_of(scale, by, state.value_comp(c), range))
-            .collect(),
+    let comp_vals: Vec<f64> = match &state.reduced {
+        Some(r) => (0..r.tree.len()).map(|c| state.value_comp(c)).collect(),
         None => Vec::new(),
     };
+    let range = state.range_of(&node_vals, &comp_vals);
+    let nodes = node_vals
+        .iter()
+        .map(|&v| colour_of(scale, by, v, range))
+        .collect();
+    let comps = comp_vals
+        .iter()
+        .map(|&v| colour_of(scale, by, v, range))
+        .collect();
     Colours {
         nodes,
         comps,

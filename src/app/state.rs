@@ -918,22 +918,25 @@ impl CellState {
 
     /// The shared colour range over both trees (finite values only).
     pub fn value_range(&self) -> (f64, f64) {
+        let nodes: Vec<f64> = (0..self.cell.flat.len())
+            .map(|k| self.value_full(k))
+            .collect();
+        let comps: Vec<f64> = match &self.reduced {
+            Some(r) => (0..r.tree.len()).map(|c| self.value_comp(c)).collect(),
+            None => Vec::new(),
+        };
+        self.range_of(&nodes, &comps)
+    }
+
+    /// The colour range of given node and compartment values (finite values only;
+    /// attenuations end at 0).
+    pub fn range_of(&self, nodes: &[f64], comps: &[f64]) -> (f64, f64) {
         let mut lo = f64::INFINITY;
         let mut hi = f64::NEG_INFINITY;
-        for k in 0..self.cell.flat.len() {
-            let v = self.value_full(k);
+        for &v in nodes.iter().chain(comps) {
             if v.is_finite() {
                 lo = lo.min(v);
                 hi = hi.max(v);
-            }
-        }
-        if let Some(r) = &self.reduced {
-            for c in 0..r.tree.len() {
-                let v = self.value_comp(c);
-                if v.is_finite() {
-                    lo = lo.min(v);
-                    hi = hi.max(v);
-                }
             }
         }
         if !lo.is_finite() {
