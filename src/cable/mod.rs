@@ -235,6 +235,29 @@ pub fn uniform_pi_t<T: Scalar>(y0: T, l: T) -> (T, T) {
     }
 }
 
+/// π network of a uniform piece from its axial conductance `g_ax` = 1/(r_a·h), membrane
+/// admittance `y_m` = y·h and L² = y_m/g_ax: series Y0/sinh L = g_ax·L/sinh L and shunt
+/// Y0·tanh(L/2) = (y_m/2)·tanh(L/2)/(L/2) (cable two-port; Koch 1999 ch. 2). Both are even in L,
+/// so a short piece (|L| < 0.1) needs no square root: Taylor series to L⁸, truncation < 1e-15.
+#[inline]
+fn pi_from_l2<T: Scalar>(g_ax: f64, y_m: T, l2: T) -> (T, T) {
+    if l2.abs() < 1e-2 {
+        // L/sinh L = 1 − L²/6 + 7L⁴/360 − 31L⁶/15120 + 127L⁸/604800 (Horner form)
+        let c = |x: f64| T::real(x);
+        let f = c(1.0)
+            + l2 * (c(-1.0 / 6.0)
+                + l2 * (c(7.0 / 360.0) + l2 * (c(-31.0 / 15120.0) + l2 * (127.0 / 604800.0))));
+        // tanh(x)/x with x = L/2: 1 − L²/12 + L⁴/120 − 17L⁶/20160 + 31L⁸/362880
+        let t = c(1.0)
+            + l2 * (c(-1.0 / 12.0)
+                + l2 * (c(1.0 / 120.0) + l2 * (c(-17.0 / 20160.0) + l2 * (31.0 / 362880.0))));
+        (f * g_ax, y_m * 0.5 * t)
+    } else {
+        let l = l2.sqrt();
+        uniform_pi_t(l * g_ax, l)
+    }
+}
+
 /// How many pieces a frustum of end radii a, b is cut into, so that each piece's radius ratio is
 /// within about 2 % of 1 (each piece keeps its axial resistance and membrane area exactly).
 #[inline]
@@ -278,14 +301,12 @@ pub fn segment_pi_t<T: Scalar>(
         let ra = a_um + (b_um - a_um) * t0;
         let rb = a_um + (b_um - a_um) * t1;
         let slant = (hp * hp + (rb - ra) * (rb - ra)).sqrt();
-        let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM); // Ω/cm
-        let y_mem = ym * (std::f64::consts::PI * (ra + rb) * UM * slant / hp); // S/cm
-        // Y0 = √(y/r_a), L = √(y·r_a)·h (Rall; Koch 1999 ch. 2)
-        let root = y_mem.sqrt();
-        let sr = r_axial.sqrt();
-        let y0 = root * (1.0 / sr);
-        let l = root * (sr * hp * UM);
-        let (s, p) = uniform_pi_t(y0, l);
+        // whole-piece axial conductance G = π·a·b/(Ra·h) and membrane admittance Y = y_m·area;
+        // L² = y·r_a·h² = Y/G; Y0 = √(y/r_a) = G·L (Rall; Koch 1999 ch. 2)
+        let g_ax = std::f64::consts::PI * ra * rb * UM / (params.ra_ohm_cm * hp); // S
+        let y_m = ym * (std::f64::consts::PI * (ra + rb) * slant * UM * UM); // S
+        let l2 = y_m * (1.0 / g_ax);
+        let (s, p) = pi_from_l2(g_ax, y_m, l2);
         // Membrane split of a tapered piece: in the resistance coordinate s(t) = t·rb/r(t) of a
         // linear taper, the first moment of the membrane (∝ r) puts rb/(ra+rb) of it at the
         // distal end and ra/(ra+rb) at the proximal end (leading order of the two-port in L;
@@ -327,9 +348,10 @@ pub fn segment_electrotonic_length(params: &Params, h_um: f64, a_um: f64, b_um: 
             continue;
         }
         let slant = (hp * hp + (rb - ra) * (rb - ra)).sqrt();
-        let r_axial = params.ra_ohm_cm / (std::f64::consts::PI * ra * rb * UM * UM);
-        let g_mem = std::f64::consts::PI * (ra + rb) * UM * slant / hp / params.rm_ohm_cm2;
-        x += (r_axial * g_mem).sqrt() * hp * UM;
+        // L = √(Y/G): membrane conductance over axial conductance of the piece
+        let g_ax = std::f64::consts::PI * ra * rb * UM / (params.ra_ohm_cm * hp);
+        let g_m = std::f64::consts::PI * (ra + rb) * slant * UM * UM / params.rm_ohm_cm2;
+        x += (g_m / g_ax).sqrt();
     }
     x
 }
@@ -449,6 +471,31 @@ mod tests {
         let lam = p.lambda_um(2.0);
         assert!((lam - 816.5).abs() < 0.1, "{lam}");
         assert!((p.tau_ms() - 20.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn short_piece_series_matches_the_closed_form() {
+        // Y0/sinh L and Y0·tanh(L/2) from cosh/sinh directly (Koch 1999 ch. 2), with L just
+        // inside the series range, real and complex
+        for l2 in [
+            C64::new(0.0099, 0.0),
+            C64::new(0.004, 0.008),
+            C64::new(1e-6, 2e-6),
+        ] {
+            let g = 3e-9;
+            let y = l2 * g;
+            let (s, p) = pi_from_l2(g, y, l2);
+            let l = l2.sqrt();
+            let y0 = l * g;
+            let (s_ref, p_ref) = (y0 / l.sinh(), y0 * (l / 2.0).tanh());
+            assert!((s - s_ref).norm() < 1e-14 * s_ref.norm(), "{s} {s_ref}");
+            assert!((p - p_ref).norm() < 1e-14 * p_ref.norm(), "{p} {p_ref}");
+            let (sr, pr) = pi_from_l2(g, y.re, l2.re);
+            if l2.im == 0.0 {
+                assert!((sr - s_ref.re).abs() < 1e-14 * s_ref.re);
+                assert!((pr - p_ref.re).abs() < 1e-14 * p_ref.re);
+            }
+        }
     }
 
     #[test]
