@@ -174,6 +174,11 @@ fn accepted_odd_files_have_the_right_shape() {
     let a = read("crlf.swc").unwrap();
     let b = Morphology::parse("1 1 0 0 0 5 -1\n2 3 10 0 0 1 1\n3 3 20 0 0 1 2\n", "lf").unwrap();
     assert_eq!(a.points, b.points);
+    // four stems, and a point with four children (a multifurcation is kept as it is)
+    let m = read("four_stems_and_a_fork_of_four.swc").unwrap();
+    let met = m.metrics();
+    assert_eq!((met.stems, met.branch_points, met.tips), (4, 1, 7));
+    assert_eq!(m.n_children.iter().max(), Some(&4));
     // NA radius is kept as unknown
     let m = read("na_radius.swc").unwrap();
     assert_eq!(m.points.iter().filter(|p| p.radius.is_none()).count(), 2);
