@@ -2,6 +2,7 @@
 //! general-purpose dense solver), the budget rules and the site list reader.
 
 use super::*;
+use crate::cable::UM;
 use crate::morphology::Morphology;
 use nalgebra::DMatrix;
 
@@ -442,4 +443,23 @@ fn a_soma_alone_is_one_compartment() {
     assert_eq!(t.feed_forward().layers, vec![vec![0]]);
 }
 
-const UM_2: f64 = crate::cable::UM * crate::cable::UM;
+const UM_2: f64 = UM * UM;
+
+#[test]
+fn a_million_deep_chain_reduces_without_recursion() {
+    // one unbranched dendrite of 10⁶ points: soma, its soma leaf and the tip remain, and the
+    // tip's leak is the sealed cable's G∞·tanh(L) (Rall 1959) seen through the chain
+    let n = 1_000_000;
+    let (f, _) = flat_by_hand(0.0, &[(0, n as f64 * 0.5, 0.5, n)]);
+    let p = Params::default();
+    let r = Reducer::new(&f, &p, &ReduceOptions::default()).unwrap();
+    assert_eq!(r.max_compartments(), 3);
+    let t = r.tree(1);
+    let lambda_cm = (p.rm_ohm_cm2 * 1.0 * UM / (4.0 * p.ra_ohm_cm)).sqrt();
+    let g_inf =
+        std::f64::consts::PI * (1.0 * UM).powf(1.5) / (2.0 * (p.rm_ohm_cm2 * p.ra_ohm_cm).sqrt());
+    let l = n as f64 * 0.5 * UM / lambda_cm;
+    let want = g_inf * l.tanh();
+    let got = t.compartments[0].g_leak_ns * 1e-9;
+    assert!((got / want - 1.0).abs() < 1e-6, "{got} vs {want}");
+}
