@@ -166,7 +166,8 @@ fn accepted_odd_files_have_the_right_shape() {
     // two somas: the second one's tree is kept as a separate tree
     let m = read("two_somas.swc").unwrap();
     assert_eq!((m.trees.len(), m.main_len, m.soma.len()), (2, 3, 1));
-    // a three-point soma with nothing else: sphere of 4πr², r = 5 (the three-point soma convention: common practice, no source)
+    // a three-point soma with nothing else: sphere of 4πr², r = 5 (the three-point soma
+    // convention: common practice, no source)
     let m = read("three_point_soma_only.swc").unwrap();
     let a = m.soma_area();
     assert!((a - 4.0 * std::f64::consts::PI * 25.0).abs() < 1e-9, "{a}");
