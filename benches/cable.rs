@@ -5,12 +5,16 @@
 //! every point). Also timed: the sweeps alone on a built network, and the voltage map from one
 //! site.
 //!
+//! Two groups: `cable_maps` (wall-clock time) and `cable_maps_cpu` (the thread's CPU time, which
+//! on a shared machine leaves out waiting for a core).
+//!
 //! For scale, a general-purpose solve of ONE column (the soma column, Z_ks) with nalgebra's dense
 //! complex LU on the same cell's nodal matrix, where a dense matrix fits (1k and 2k points; a
 //! dense 10k matrix is 1.6 GB and its LU ~10^12 operations). The ratio (general solve of one
 //! column / our all-points map) is printed from medians of repeated runs.
 
-use criterion::{BenchmarkId, Criterion, criterion_group};
+use criterion::measurement::{Measurement, ValueFormatter};
+use criterion::{BenchmarkId, Criterion, Throughput, criterion_group};
 use nalgebra::DMatrix;
 use num_complex::Complex64 as C64;
 use pollard::cable::maps::sweep;
@@ -33,9 +37,95 @@ fn label(n: usize) -> String {
     }
 }
 
-fn maps(c: &mut Criterion) {
+/// CPU time of the calling thread (clock_gettime(CLOCK_THREAD_CPUTIME_ID), from the C library
+/// the standard library already links): on a shared machine it leaves out the time the
+/// benchmark spends waiting for a core, which wall-clock time counts.
+#[repr(C)]
+struct Timespec {
+    sec: i64,
+    nsec: i64,
+}
+
+unsafe extern "C" {
+    fn clock_gettime(clock: i32, ts: *mut Timespec) -> i32;
+}
+
+fn thread_cpu_ns() -> u64 {
+    const CLOCK_THREAD_CPUTIME_ID: i32 = 3; // Linux
+    let mut ts = Timespec { sec: 0, nsec: 0 };
+    // SAFETY: `ts` is a valid, writable timespec for the duration of the call.
+    unsafe { clock_gettime(CLOCK_THREAD_CPUTIME_ID, &mut ts) };
+    ts.sec as u64 * 1_000_000_000 + ts.nsec as u64
+}
+
+struct CpuTime;
+struct CpuFormatter;
+
+impl Measurement for CpuTime {
+    type Intermediate = u64;
+    type Value = u64;
+    fn start(&self) -> u64 {
+        thread_cpu_ns()
+    }
+    fn end(&self, i: u64) -> u64 {
+        thread_cpu_ns().saturating_sub(i)
+    }
+    fn add(&self, a: &u64, b: &u64) -> u64 {
+        a + b
+    }
+    fn zero(&self) -> u64 {
+        0
+    }
+    fn to_f64(&self, v: &u64) -> f64 {
+        *v as f64
+    }
+    fn formatter(&self) -> &dyn ValueFormatter {
+        &CpuFormatter
+    }
+}
+
+impl ValueFormatter for CpuFormatter {
+    fn scale_values(&self, typical: f64, values: &mut [f64]) -> &'static str {
+        let (div, unit) = if typical < 1e3 {
+            (1.0, "ns cpu")
+        } else if typical < 1e6 {
+            (1e3, "µs cpu")
+        } else if typical < 1e9 {
+            (1e6, "ms cpu")
+        } else {
+            (1e9, "s cpu")
+        };
+        for v in values {
+            *v /= div;
+        }
+        unit
+    }
+    fn scale_throughputs(&self, _typical: f64, t: &Throughput, values: &mut [f64]) -> &'static str {
+        let per = match *t {
+            Throughput::Elements(e) => e as f64,
+            _ => 1.0,
+        };
+        for v in values {
+            *v = per * 1e9 / *v;
+        }
+        "elem/s cpu"
+    }
+    fn scale_for_machines(&self, _values: &mut [f64]) -> &'static str {
+        "ns"
+    }
+}
+
+fn maps_wall(c: &mut Criterion) {
+    maps(c, "cable_maps");
+}
+
+fn maps_cpu(c: &mut Criterion<CpuTime>) {
+    maps(c, "cable_maps_cpu");
+}
+
+fn maps<M: Measurement>(c: &mut Criterion<M>, name: &str) {
     let p = Params::default();
-    let mut g = c.benchmark_group("cable_maps");
+    let mut g = c.benchmark_group(name);
     g.sample_size(20);
     g.measurement_time(Duration::from_secs(8));
     for n in [10_000, 100_000, 1_000_000] {
@@ -165,7 +255,12 @@ fn general_solve(c: &mut Criterion) {
     g.finish();
 }
 
-criterion_group!(benches, maps, general_solve);
+criterion_group!(benches, maps_wall, general_solve);
+criterion_group! {
+    name = cpu_benches;
+    config = Criterion::default().with_measurement(CpuTime);
+    targets = maps_cpu
+}
 
 /// With `POLLARD_WRITE_CELL=path`, writes the benchmark's 1,000,000-point cell
 /// (`synth::big_cell(1_000_000, 1)`) to `path` and exits: benches/peer_cable.sh uses it for the
@@ -177,5 +272,6 @@ fn main() {
         return;
     }
     benches();
+    cpu_benches();
     Criterion::default().configure_from_args().final_summary();
 }
