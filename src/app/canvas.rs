@@ -186,8 +186,54 @@ pub fn recolour(mesh: &mut Mesh, n_nodes: usize, colours: &[Color32]) {
         }
     }
     let c = colours[0];
-    for v in &mut mesh.vertices[4 * (n_nodes - 1)..] {
+    let soma = 4 * (n_nodes - 1);
+    let end = (soma + SOMA_RIM + 1).min(mesh.vertices.len());
+    for v in &mut mesh.vertices[soma..end] {
         v.color = c;
+    }
+}
+
+/// Appends the trees of the file other than the main one (not part of the cell's model), in
+/// one colour, after the main tree's vertices (so [`recolour`] leaves them alone).
+pub fn append_other_trees(
+    mesh: &mut Mesh,
+    morph: &crate::Morphology,
+    proj: &Projector,
+    min_px: f32,
+    colour: Color32,
+) {
+    let uv = egui::epaint::WHITE_UV;
+    for i in morph.main_len..morph.len() {
+        let p = morph.parent[i];
+        if p == NONE {
+            continue;
+        }
+        let a = proj.project(morph.points[p as usize].pos);
+        let b = proj.project(morph.points[i].pos);
+        let r = morph.points[i].radius.unwrap_or(0.0);
+        let w = if r.is_finite() && r > 0.0 {
+            (2.0 * r as f32 * proj.scale).max(min_px)
+        } else {
+            min_px
+        };
+        let d = b - a;
+        let len = d.length();
+        if len <= 1e-6 {
+            continue;
+        }
+        let u = d / len;
+        let nrm = Vec2::new(-u.y, u.x) * (0.5 * w);
+        let a = a - u * (0.5 * w);
+        let i0 = mesh.vertices.len() as u32;
+        for pos in [a + nrm, a - nrm, b + nrm, b - nrm] {
+            mesh.vertices.push(Vertex {
+                pos,
+                uv,
+                color: colour,
+            });
+        }
+        mesh.indices
+            .extend_from_slice(&[i0, i0 + 1, i0 + 2, i0 + 1, i0 + 3, i0 + 2]);
     }
 }
 
@@ -307,6 +353,14 @@ impl ArborCanvas {
                     &|k| colours.nodes[k],
                 )
             };
+            let mut mesh = mesh;
+            append_other_trees(
+                &mut mesh,
+                &cell.morph,
+                &proj,
+                min_px,
+                if faint { FAINT } else { colour::OFF },
+            );
             self.mesh = Arc::new(mesh);
             self.key = Some(key);
             self.colour_version = state.colour_version;
