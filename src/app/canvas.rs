@@ -564,12 +564,11 @@ impl ArborCanvas {
                 .clamp(3.0, 14.0);
             self.comp_screen.push((p, rad));
         }
-        for c in 1..t.len() {
+        for (c, &w) in widths.iter().enumerate().skip(1) {
             let p = t.parent[c];
             if p == NONE {
                 continue;
             }
-            let w = widths[c];
             painter.line_segment(
                 [self.comp_screen[p as usize].0, self.comp_screen[c].0],
                 Stroke::new(w, colours.comps[c]),
@@ -612,14 +611,13 @@ impl ArborCanvas {
             );
             self.comp_screen.push((p, 4.0));
         }
-        for c in 0..t.len() {
+        for (c, &w) in widths.iter().enumerate() {
             let p = t.parent[c];
             if p == NONE {
                 continue;
             }
             let a = self.comp_screen[p as usize].0;
             let b = self.comp_screen[c].0;
-            let w = widths[c];
             let col = colours.comps[c];
             painter.line_segment(
                 [Pos2::new(a.x, a.y), Pos2::new(b.x, a.y)],
