@@ -258,7 +258,7 @@ fn big_cell_keeps_its_promises() {
         assert_eq!(m.soma.len(), 1);
         for i in 1..m.len() {
             let r = m.points[i].radius.unwrap();
-            assert!(r >= 0.15 - 1e-12 && r <= 3.0, "radius {r}");
+            assert!((0.15 - 1e-12..=3.0).contains(&r), "radius {r}");
             assert!([2, 3, 4].contains(&m.points[i].kind));
         }
         if n > 1000 {
