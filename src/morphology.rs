@@ -231,8 +231,20 @@ fn find_cycle(parent: &[u32]) -> Option<usize> {
     None
 }
 
+/// Euclidean distance; coordinates near the top of the f64 range (1e300) are scaled first so
+/// that squaring does not overflow to infinity.
 fn dist(a: &[f64; 3], b: &[f64; 3]) -> f64 {
-    ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2)).sqrt()
+    let d = [a[0] - b[0], a[1] - b[1], a[2] - b[2]];
+    let s = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+    if s.is_finite() {
+        return s.sqrt();
+    }
+    let m = d[0].abs().max(d[1].abs()).max(d[2].abs());
+    if !m.is_finite() {
+        return f64::INFINITY;
+    }
+    let q = d.map(|x| x / m);
+    m * (q[0] * q[0] + q[1] * q[1] + q[2] * q[2]).sqrt()
 }
 
 impl Morphology {
@@ -1066,6 +1078,13 @@ impl Flat {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn huge_coordinates_give_finite_lengths() {
+        let m = Morphology::parse("1 1 0 0 0 1 -1\n2 3 1e300 1e300 0 1 1\n", "t.swc").unwrap();
+        let len = m.metrics().total_length_um;
+        assert!((len - 2f64.sqrt() * 1e300).abs() < 1e-12 * len, "{len}");
+    }
 
     #[test]
     fn three_point_soma_area_is_4_pi_r2() {
