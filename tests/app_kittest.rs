@@ -389,3 +389,72 @@ fn switching_off_the_axon_rebuilds_model_and_reduction_without_it() {
             .all(|&c| (c as usize) < r.tree.len())
     );
 }
+
+#[derive(Debug)]
+struct Dropped(std::path::PathBuf);
+
+impl egui::DroppedFile for Dropped {
+    fn path(&self) -> &std::path::Path {
+        &self.0
+    }
+    fn bytes(&self) -> Result<Vec<u8>, String> {
+        std::fs::read(&self.0).map_err(|e| e.to_string())
+    }
+}
+
+#[test]
+fn dropping_a_file_on_the_window_opens_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = dir.path().join("dropped.swc");
+    std::fs::write(
+        &f,
+        "1 1 0 0 0 5 -1\n2 3 10 0 0 1 1\n3 3 20 5 0 0.5 2\n4 3 20 -5 0 0.5 2\n",
+    )
+    .unwrap();
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    h.input_mut()
+        .dropped_files
+        .push(std::sync::Arc::new(Dropped(f.clone())));
+    h.run_steps(1);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.cell.name, "dropped.swc");
+    assert_eq!(s.cell.morph.len(), 4);
+}
+
+#[test]
+fn start_options_set_budget_site_frequency_colouring_and_layout() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = dir.path().join("y.swc");
+    std::fs::write(
+        &f,
+        "1 1 0 0 0 5 -1\n2 3 50 0 0 1 1\n3 3 100 40 0 0.5 2\n4 3 100 -40 0 0.5 2\n5 3 150 60 0 0.4 3\n6 3 150 20 0 0.4 3\n",
+    )
+    .unwrap();
+    let mut app = PollardApp::new(
+        Start::File(f.clone()),
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    app.start_options = Some(pollard::app::StartOptions {
+        budget: Some(3),
+        site_id: Some(4),
+        freq_hz: Some(50.0),
+        colour_by: Some(pollard::app::state::ColourBy::ToSoma),
+        dendrogram: true,
+        save_png: None,
+    });
+    app.wait_idle();
+    let s = app.state.as_ref().unwrap();
+    assert_eq!(s.cell.name, "y.swc");
+    let site = s.site.unwrap();
+    assert_eq!(
+        s.cell.morph.points[s.cell.flat.node_point[site] as usize].id,
+        4
+    );
+    assert_eq!(s.freq_hz, 50.0);
+    assert_eq!(s.colour_by, pollard::app::state::ColourBy::ToSoma);
+    assert_eq!(app.layout, pollard::app::canvas::ReducedLayout::Dendrogram);
+    assert!(s.reduced.as_ref().unwrap().tree.len() <= 3);
+}
