@@ -357,7 +357,7 @@ pub struct PlotsPanel {
 }
 
 /// At most this many original points go into the attenuation plot (evenly thinned).
-const PLOT_POINTS: usize = 20_000;
+const PLOT_POINTS: usize = 10_000;
 
 impl PlotsPanel {
     pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
