@@ -656,15 +656,21 @@ fn remove_if_present(path: &Path) -> Result<(), String> {
     }
 }
 
-/// Does one cell and writes its tree (on success, with its record inside) or its failure
-/// record. Never panics on a bad file: a panic inside the computation is caught and reported as
-/// the cell's error. Returns the row.
-pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
+/// A cell computed and waiting to be written.
+pub struct Pending {
+    t0: Instant,
+    result: Result<Computed, String>,
+}
+
+/// The computing half of [`process_cell`]: read, build, reduce (no file is written). A panic
+/// inside the computation is caught and becomes the cell's error.
+pub fn compute_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Pending {
     let t0 = Instant::now();
-    let secs = || Some((t0.elapsed().as_secs_f64() * 1e6).round() / 1e6);
     if let Some(msg) = &cell.fault {
-        // no record: a clash's record name is the other file's; a folder has none
-        return Row::failed(&cell.rel, secs(), msg.clone());
+        return Pending {
+            t0,
+            result: Err(msg.clone()),
+        };
     }
     let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
         compute(cell, settings, settings_key)
@@ -680,8 +686,18 @@ pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row
             cell.rel
         ))
     });
+    Pending { t0, result }
+}
+
+/// The writing half of [`process_cell`]: the tree (with its record inside) or the failure record.
+pub fn write_cell(cell: &Cell, pending: Pending, settings_key: &str) -> Row {
+    let Pending { t0, result } = pending;
     let inputs = [cell.input.as_path()];
     let written = (|| -> Result<Row, String> {
+        if cell.fault.is_some() {
+            // no record: a clash's record name is the other file's; a folder has none
+            return Err(result.err().unwrap_or_default());
+        }
         match result {
             Ok(c) => {
                 make_parent(&cell.output).map_err(|e| e.to_string())?;
@@ -705,14 +721,24 @@ pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row
         }
     })();
     let mut row = written.unwrap_or_else(|msg| Row::failed(&cell.rel, None, msg));
-    row.seconds = secs();
+    row.seconds = Some((t0.elapsed().as_secs_f64() * 1e6).round() / 1e6);
     row
+}
+
+/// Does one cell and writes its tree (on success, with its record inside) or its failure
+/// record. Never panics on a bad file. Returns the row.
+pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
+    write_cell(
+        cell,
+        compute_cell(cell, settings, settings_key),
+        settings_key,
+    )
 }
 
 /// How a batch runs.
 #[derive(Debug, Clone)]
 pub struct RunOptions {
-    /// Worker threads (at least 1).
+    /// Worker threads that compute (at least 1); use one per core.
     pub jobs: usize,
     /// Redo every cell, complete or not.
     pub force: bool,
@@ -720,9 +746,35 @@ pub struct RunOptions {
     pub retry_failed: bool,
 }
 
-/// Rows of all `cells` (in the same order) and how many were reused. Cells run in parallel on a
-/// local thread pool of `opts.jobs` workers; `on_row(row, reused)` is called once per cell as
-/// it finishes (from the worker threads).
+/// Writer threads per computing worker. A safe write waits for the disk to flush; while it
+/// waits, the worker goes on to its next cell and a writer thread finishes the write.
+pub const WRITERS_PER_JOB: usize = 4;
+
+/// A counting semaphore: at most `n` computed cells wait for their writes, so memory stays
+/// bounded when the disk is slower than the workers.
+struct Slots {
+    free: std::sync::Mutex<usize>,
+    freed: std::sync::Condvar,
+}
+
+impl Slots {
+    fn acquire(&self) {
+        let mut f = self.free.lock().unwrap_or_else(|e| e.into_inner());
+        while *f == 0 {
+            f = self.freed.wait(f).unwrap_or_else(|e| e.into_inner());
+        }
+        *f -= 1;
+    }
+    fn release(&self) {
+        *self.free.lock().unwrap_or_else(|e| e.into_inner()) += 1;
+        self.freed.notify_one();
+    }
+}
+
+/// Rows of all `cells` (in the same order) and how many were reused. Cells are computed in
+/// parallel on a local pool of `opts.jobs` workers and written by a second local pool of
+/// `WRITERS_PER_JOB × jobs` threads (at most that many written cells wait at once);
+/// `on_row(row, reused)` is called once per cell as it finishes (from either pool's threads).
 pub fn run(
     cells: &[Cell],
     settings: &Settings,
@@ -731,36 +783,69 @@ pub fn run(
 ) -> Result<(Vec<Row>, usize), BatchError> {
     use rayon::prelude::*;
     let jobs = opts.jobs.max(1);
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(jobs)
-        .thread_name(|i| format!("pollard-batch-{i}"))
-        .build()
-        .map_err(|e| BatchError::Threads {
-            jobs,
-            message: e.to_string(),
-        })?;
-    let key = settings.key();
-    let done: Vec<(Row, bool)> = pool.install(|| {
-        cells
-            .par_iter()
-            .with_max_len(1)
-            .map(|cell| {
-                let reused = if opts.force {
-                    None
-                } else {
-                    reusable_row(cell, &key, opts.retry_failed)
-                };
-                let (row, reused) = match reused {
-                    Some(r) => (r, true),
-                    None => (process_cell(cell, settings, &key), false),
-                };
-                on_row(&row, reused);
-                (row, reused)
+    let n_writers = jobs * WRITERS_PER_JOB;
+    let pool = |n: usize, name: &'static str| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .thread_name(move |i| format!("pollard-{name}-{i}"))
+            .build()
+            .map_err(|e| BatchError::Threads {
+                jobs: n,
+                message: e.to_string(),
             })
-            .collect()
+    };
+    let compute_pool = pool(jobs, "batch")?;
+    let write_pool = pool(n_writers, "write")?;
+    let key = settings.key();
+    let slots = Slots {
+        free: std::sync::Mutex::new(n_writers),
+        freed: std::sync::Condvar::new(),
+    };
+    let done: Vec<std::sync::Mutex<Option<(Row, bool)>>> = (0..cells.len())
+        .map(|_| std::sync::Mutex::new(None))
+        .collect();
+    let put = |i: usize, row: Row, reused: bool| {
+        on_row(&row, reused);
+        *done[i].lock().unwrap_or_else(|e| e.into_inner()) = Some((row, reused));
+    };
+    write_pool.in_place_scope(|scope| {
+        compute_pool.install(|| {
+            cells
+                .par_iter()
+                .enumerate()
+                .with_max_len(1)
+                .for_each(|(i, cell)| {
+                    if !opts.force
+                        && let Some(row) = reusable_row(cell, &key, opts.retry_failed)
+                    {
+                        put(i, row, true);
+                        return;
+                    }
+                    let pending = compute_cell(cell, settings, &key);
+                    slots.acquire();
+                    let (key, slots, put) = (&key, &slots, &put);
+                    scope.spawn(move |_| {
+                        put(i, write_cell(cell, pending, key), false);
+                        slots.release();
+                    });
+                });
+        });
     });
-    let n_reused = done.iter().filter(|d| d.1).count();
-    Ok((done.into_iter().map(|d| d.0).collect(), n_reused))
+    let mut rows = Vec::with_capacity(cells.len());
+    let mut n_reused = 0;
+    for (i, d) in done.into_iter().enumerate() {
+        let taken = d.into_inner().unwrap_or_else(|e| e.into_inner());
+        let (row, reused) = taken.unwrap_or_else(|| {
+            // every cell sets its slot above; this only guards against a lost write job
+            (
+                Row::failed(&cells[i].rel, None, format!("{}: not done", cells[i].rel)),
+                false,
+            )
+        });
+        n_reused += reused as usize;
+        rows.push(row);
+    }
+    Ok((rows, n_reused))
 }
 
 /// Writes `rows` (sorted by file first) as `<out>/<stem>.csv` and `<out>/<stem>.jsonl`, where the
