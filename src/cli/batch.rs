@@ -58,7 +58,8 @@ pub struct Args {
     /// Keep only these SWC types (comma-separated codes, e.g. 1,3,4 drops the axon).
     #[arg(long, value_name = "CODES", value_delimiter = ',')]
     pub types: Option<Vec<i32>>,
-    /// Worker threads (default: one per core).
+    /// Worker threads that compute (default: one per core). Writes are finished by a few
+    /// extra threads per worker that mostly wait for the disk.
     #[arg(long, short = 'j', value_name = "J")]
     pub jobs: Option<usize>,
     /// Do only share I of K of the files (chosen by a stable hash of each path), e.g. 3/8.
