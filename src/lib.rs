@@ -10,10 +10,9 @@ pub mod export;
 pub mod lab;
 pub mod morphology;
 pub mod reduce;
-pub mod swc;
 pub mod samples;
+pub mod swc;
 pub mod synth;
-
 
 pub use morphology::{Flat, Morphology};
 pub use swc::{SwcError, Warning};
