@@ -99,7 +99,11 @@ fn bad_input_gives_one_line_naming_file_and_line_and_a_non_zero_exit() {
         ("short.swc", "1 1 0 0 0 1 -1\n2 3 1 0\n", 2),
         ("nan.swc", "1 1 0 0 0 1 -1\n2 3 1 0 nan 1 1\n", 2),
         ("orphan.swc", "1 1 0 0 0 1 -1\n\n# c\n2 3 1 0 0 1 9\n", 4),
-        ("dup.swc", "1 1 0 0 0 1 -1\n2 3 1 0 0 1 1\n2 3 1 0 0 1 1\n", 3),
+        (
+            "dup.swc",
+            "1 1 0 0 0 1 -1\n2 3 1 0 0 1 1\n2 3 1 0 0 1 1\n",
+            3,
+        ),
         ("neg.swc", "1 1 0 0 0 -1 -1\n", 1),
     ];
     for (name, text, line) in cases {
@@ -110,7 +114,11 @@ fn bad_input_gives_one_line_naming_file_and_line_and_a_non_zero_exit() {
         let lines = stderr_lines(&o);
         assert_eq!(lines.len(), 1, "{name}: {lines:?}");
         let want = format!("{}:{line}: ", p.display());
-        assert!(lines[0].contains(&want), "{name}: {} lacks {want}", lines[0]);
+        assert!(
+            lines[0].contains(&want),
+            "{name}: {} lacks {want}",
+            lines[0]
+        );
     }
     let o = pollard(&["inspect", dir.path().join("absent.swc").to_str().unwrap()]);
     assert!(!o.status.success());

@@ -42,7 +42,10 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     println!("  total length         {:.1} µm", met.total_length_um);
     println!("  membrane area        {:.1} µm²", met.surface_area_um2);
     println!("  volume               {:.1} µm³", met.volume_um3);
-    println!("  farthest from soma   {:.1} µm (path)", met.max_path_distance_um);
+    println!(
+        "  farthest from soma   {:.1} µm (path)",
+        met.max_path_distance_um
+    );
     println!(
         "  extent x, y, z       {:.1} × {:.1} × {:.1} µm",
         met.extent_um[0], met.extent_um[1], met.extent_um[2]
