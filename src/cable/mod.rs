@@ -236,9 +236,10 @@ pub fn uniform_pi_t<T: Scalar>(y0: T, l: T) -> (T, T) {
 }
 
 /// π network of a uniform piece from its axial conductance `g_ax` = 1/(r_a·h), membrane
-/// admittance `y_m` = y·h and L² = y_m/g_ax: series Y0/sinh L = g_ax·L/sinh L and shunt
-/// Y0·tanh(L/2) = (y_m/2)·tanh(L/2)/(L/2) (cable two-port; Koch 1999 ch. 2). Both are even in L,
-/// so a short piece (|L| < 0.1) needs no square root: Taylor series to L⁸, truncation < 1e-15.
+/// admittance `y_m` = y·h and L² = y_m/g_ax: returns the series admittance Y0/sinh L =
+/// g_ax·L/sinh L and the factor t = tanh(L/2)/(L/2), each end's shunt Y0·tanh(L/2) being
+/// (y_m/2)·t (cable two-port; Koch 1999 ch. 2). Both are even in L, so a short piece (|L| < 0.1)
+/// needs no square root: Taylor series to L⁸, truncation < 1e-15.
 #[inline]
 fn pi_from_l2<T: Scalar>(g_ax: f64, y_m: T, l2: T) -> (T, T) {
     if l2.abs() < 1e-2 {
@@ -251,10 +252,11 @@ fn pi_from_l2<T: Scalar>(g_ax: f64, y_m: T, l2: T) -> (T, T) {
         let t = c(1.0)
             + l2 * (c(-1.0 / 12.0)
                 + l2 * (c(1.0 / 120.0) + l2 * (c(-17.0 / 20160.0) + l2 * (31.0 / 362880.0))));
-        (f * g_ax, y_m * 0.5 * t)
+        (f * g_ax, t)
     } else {
         let l = l2.sqrt();
-        uniform_pi_t(l * g_ax, l)
+        let (series, shunt) = uniform_pi_t(l * g_ax, l);
+        (series, shunt * 2.0 / y_m)
     }
 }
 
@@ -295,28 +297,33 @@ pub fn segment_pi_t<T: Scalar>(
     let zero = T::real(0.0);
     let (mut series, mut prox, mut dist) = (zero, zero, zero);
     let hp = h_um / pieces as f64;
+    let pi_um_over_ra = std::f64::consts::PI * UM / params.ra_ohm_cm;
+    let ra_over_pi_um = params.ra_ohm_cm / (std::f64::consts::PI * UM);
     for i in 0..pieces {
         let t0 = i as f64 / pieces as f64;
         let t1 = (i + 1) as f64 / pieces as f64;
         let ra = a_um + (b_um - a_um) * t0;
         let rb = a_um + (b_um - a_um) * t1;
-        let slant = (hp * hp + (rb - ra) * (rb - ra)).sqrt();
-        // whole-piece axial conductance G = π·a·b/(Ra·h) and membrane admittance Y = y_m·area;
-        // L² = y·r_a·h² = Y/G; Y0 = √(y/r_a) = G·L (Rall; Koch 1999 ch. 2)
-        let g_ax = std::f64::consts::PI * ra * rb * UM / (params.ra_ohm_cm * hp); // S
-        let y_m = ym * (std::f64::consts::PI * (ra + rb) * slant * UM * UM); // S
-        let l2 = y_m * (1.0 / g_ax);
-        let (s, p) = pi_from_l2(g_ax, y_m, l2);
+        let slant = if ra == rb {
+            hp
+        } else {
+            (hp * hp + (rb - ra) * (rb - ra)).sqrt()
+        };
+        // whole-piece axial conductance G = π·a·b/(Ra·h) and membrane admittance
+        // Y = y_m·π(a+b)·slant; L² = y·r_a·h² = Y/G; Y0 = √(y/r_a) = G·L (Rall; Koch 1999 ch. 2).
+        // One division: q = 1/(a·b·h) gives G = (π/Ra)·(ab)²·q and Y/G = Y·(Ra/π)·h²·q.
+        let ab = ra * rb;
+        let q = 1.0 / (ab * hp);
+        let g_ax = pi_um_over_ra * ab * ab * q; // S
+        let per_r = ym * (std::f64::consts::PI * slant * UM * UM); // membrane per µm of radius
+        let y_m = per_r * (ra + rb); // S
+        let l2 = y_m * (ra_over_pi_um * hp * hp * q);
+        let (s, t) = pi_from_l2(g_ax, y_m, l2);
         // Membrane split of a tapered piece: in the resistance coordinate s(t) = t·rb/r(t) of a
         // linear taper, the first moment of the membrane (∝ r) puts rb/(ra+rb) of it at the
         // distal end and ra/(ra+rb) at the proximal end (leading order of the two-port in L;
         // equal halves for a cylinder). Without this a taper leaves an O(taper·L) error.
-        let (p_prox, p_dist) = if ra == rb {
-            (p, p)
-        } else {
-            let w = 2.0 / (ra + rb);
-            (p * (ra * w), p * (rb * w))
-        };
+        let (p_prox, p_dist) = (per_r * t * ra, per_r * t * rb);
         if i == 0 {
             series = s;
             prox = p_prox;
@@ -484,13 +491,15 @@ mod tests {
         ] {
             let g = 3e-9;
             let y = l2 * g;
-            let (s, p) = pi_from_l2(g, y, l2);
+            let (s, t) = pi_from_l2(g, y, l2);
+            let p = y * 0.5 * t;
             let l = l2.sqrt();
             let y0 = l * g;
             let (s_ref, p_ref) = (y0 / l.sinh(), y0 * (l / 2.0).tanh());
             assert!((s - s_ref).norm() < 1e-14 * s_ref.norm(), "{s} {s_ref}");
             assert!((p - p_ref).norm() < 1e-14 * p_ref.norm(), "{p} {p_ref}");
-            let (sr, pr) = pi_from_l2(g, y.re, l2.re);
+            let (sr, tr) = pi_from_l2(g, y.re, l2.re);
+            let pr = y.re * 0.5 * tr;
             if l2.im == 0.0 {
                 assert!((sr - s_ref.re).abs() < 1e-14 * s_ref.re);
                 assert!((pr - p_ref.re).abs() < 1e-14 * p_ref.re);
