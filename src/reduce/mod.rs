@@ -94,7 +94,14 @@ pub enum ReduceError {
     NoSites,
     #[error("the types to keep are empty")]
     NoTypes,
+    #[error(
+        "the point on line {line} is {nepers:.0} nepers of DC attenuation from the soma: that part of the cell is electrically cut off (a segment far longer than its length constant); check the coordinates' units (--scale)"
+    )]
+    CutOff { line: usize, nepers: f64 },
 }
+
+/// Largest DC log attenuation to the soma (nepers) a reduction accepts: e^300 ≈ 10^130.
+pub const MAX_LN_ATTENUATION: f64 = 300.0;
 
 /// Which points are the synapse sites the reduction should disturb least.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -452,6 +459,15 @@ impl Reducer {
                 }
             })
             .collect();
+        // A part of the cell hundreds of length constants from the soma (a segment far longer
+        // than its length constant, usually coordinates in the wrong units) has no meaningful
+        // reduction, and its numbers would leave the range of f64: refuse it by name.
+        if let Some(k) = (1..n).find(|&k| !(ln_att[k].abs() <= MAX_LN_ATTENUATION)) {
+            return Err(ReduceError::CutOff {
+                line: kept.line[k],
+                nepers: ln_att[k],
+            });
+        }
         // sites (kept-node index, weight)
         let site_list: Vec<(u32, f64)> = match &opts.sites {
             Sites::Default => {
