@@ -447,10 +447,12 @@ const UM_2: f64 = UM * UM;
 
 #[test]
 fn a_million_deep_chain_reduces_without_recursion() {
-    // one unbranched dendrite of 10⁶ points: soma, its soma leaf and the tip remain, and the
-    // tip's leak is the sealed cable's G∞·tanh(L) (Rall 1959) seen through the chain
+    // one unbranched dendrite of 10⁶ points (1 mm in steps of 1 nm, so that it is deep but
+    // electrically ordinary, L ≈ 1.7): soma, its soma leaf and the tip remain, and the tip's
+    // leak is the sealed cable's G∞·tanh(L) (Rall 1959) seen through the chain
     let n = 1_000_000;
-    let (f, _) = flat_by_hand(0.0, &[(0, n as f64 * 0.5, 0.5, n)]);
+    let total_um = 1000.0;
+    let (f, _) = flat_by_hand(0.0, &[(0, total_um, 0.5, n)]);
     let p = Params::default();
     let r = Reducer::new(&f, &p, &ReduceOptions::default()).unwrap();
     assert_eq!(r.max_compartments(), 3);
@@ -458,7 +460,7 @@ fn a_million_deep_chain_reduces_without_recursion() {
     let lambda_cm = (p.rm_ohm_cm2 * 1.0 * UM / (4.0 * p.ra_ohm_cm)).sqrt();
     let g_inf =
         std::f64::consts::PI * (1.0 * UM).powf(1.5) / (2.0 * (p.rm_ohm_cm2 * p.ra_ohm_cm).sqrt());
-    let l = n as f64 * 0.5 * UM / lambda_cm;
+    let l = total_um * UM / lambda_cm;
     let want = g_inf * l.tanh();
     let got = t.compartments[0].g_leak_ns * 1e-9;
     assert!((got / want - 1.0).abs() < 1e-6, "{got} vs {want}");
