@@ -11,8 +11,8 @@
 //!   coordination, and the split never changes between runs, machines or versions
 //!   ([`stable_hash`]: FNV-1a 64 followed by a 64-bit finaliser; never a randomised hasher).
 //! - **Per-cell job** ([`process_cell`]): read, build, flatten, reduce, and write the reduced
-//!   tree ([`crate::export::reduced_tree_json`], compact, with the cell's *record* added as its
-//!   last member `batch`) with [`crate::export::write_atomic`] to `OUT/<rel with .json for
+//!   tree ([`crate::export::reduced_tree_json`], with the cell's *record* added as its last
+//!   member `batch`) with [`crate::export::write_atomic`] to `OUT/<rel with .json for
 //!   .swc>`. A cell that fails gets no tree and a record file of its own,
 //!   `OUT/.pollard-batch/<same>`. One safe write per cell: the disk's flushes, not the
 //!   numerics, bound the rate on ordinary disks.
@@ -494,31 +494,6 @@ fn row_from_exact(mut v: serde_json::Value) -> Option<Row> {
     serde_json::from_value(v).ok()
 }
 
-/// Removes JSON whitespace outside strings: the same document, compact (no number is touched).
-fn compact_json(text: &str) -> String {
-    let mut out = String::with_capacity(text.len());
-    let mut in_string = false;
-    let mut escaped = false;
-    for ch in text.chars() {
-        if in_string {
-            out.push(ch);
-            if escaped {
-                escaped = false;
-            } else if ch == '\\' {
-                escaped = true;
-            } else if ch == '"' {
-                in_string = false;
-            }
-        } else if ch == '"' {
-            in_string = true;
-            out.push(ch);
-        } else if !matches!(ch, ' ' | '\n' | '\r' | '\t') {
-            out.push(ch);
-        }
-    }
-    out
-}
-
 /// A tree file's `batch` member (every other member is checked to be valid JSON and skipped).
 #[derive(Deserialize)]
 struct TreeFileBatch {
@@ -616,17 +591,18 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         seconds: None,
         error: None,
     };
-    // the tree, compact, with the record as its last member: one file (one safe write) per cell
-    let mut json = compact_json(&json);
+    // the tree with the record as its last member: one file (one safe write) per cell
     let record = Record::new(settings_key, bytes.len() as u64, &row);
     let record = serde_json::to_string(&record).map_err(|e| format!("{name}: {e}"))?;
-    if !json.ends_with('}') {
+    let mut json = json;
+    if !json.trim_end().ends_with('}') {
         return Err(format!("{name}: the tree JSON is not an object"));
     }
-    json.pop();
-    json.push_str(",\"batch\":");
+    json.truncate(json.trim_end().len() - 1);
+    json.truncate(json.trim_end().len());
+    json.push_str(",\n  \"batch\": ");
     json.push_str(&record);
-    json.push('}');
+    json.push_str("\n}");
     Ok(Computed {
         json: json.into_bytes(),
         row,
@@ -1064,20 +1040,6 @@ mod tests {
         for s in sizes {
             assert!((850..=1150).contains(&s), "{sizes:?}");
         }
-    }
-
-    #[test]
-    fn compact_json_keeps_strings_and_numbers() {
-        let pretty = "{\n  \"a b\": [\n    1.5e-7,\n    -2\n  ],\n  \"s\": \"x \\\" y\\\\\",\n  \"t\": \"\\t \"\n}";
-        let c = compact_json(pretty);
-        assert_eq!(
-            c,
-            "{\"a b\":[1.5e-7,-2],\"s\":\"x \\\" y\\\\\",\"t\":\"\\t \"}"
-        );
-        // serde_json reads both as the same document (a general-purpose parser as the reference)
-        let a: serde_json::Value = serde_json::from_str(pretty).unwrap();
-        let b: serde_json::Value = serde_json::from_str(&c).unwrap();
-        assert_eq!(a, b);
     }
 
     #[test]
