@@ -64,6 +64,22 @@ pub struct CellMaps {
     /// For each node, one morphology point it stands for (copied from [`Flat`]).
     pub node_point: Vec<u32>,
     store: Store,
+    /// ln|Z_ks| per node, kept only when some |Z_ks| left the range of f64 (a cell many length
+    /// constants long, or a high frequency): then attenuations are taken from logs, summed along
+    /// the path (additive, Zador, Agmon-Snir & Segev 1995), so they saturate at +∞, never NaN.
+    ln_z_soma: Option<Vec<f64>>,
+}
+
+/// ln|Z_k0| at every node from the link ratios: ln|Z_00| + Σ ln|g_k/(g_k + D_k)| along the path.
+fn ln_soma_transfer<T: Scalar>(parent: &[u32], s: &Sweep<T>) -> Vec<f64> {
+    let mut l = vec![0.0; parent.len()];
+    if let Some(first) = l.first_mut() {
+        *first = s.z_in[0].abs().ln();
+    }
+    for k in 1..parent.len() {
+        l[k] = l[parent[k] as usize] + s.down[k].abs().ln();
+    }
+    l
 }
 
 /// The maps at one SWC point.
@@ -144,6 +160,20 @@ impl CellMaps {
             let s = sweep(&flat.parent, &g, &shunt);
             Store::Ac { g, s }
         };
+        // |Z_ks| is a product of link ratios: far from the soma it can underflow
+        let tiny = |x: f64| !(x >= f64::MIN_POSITIVE && x.is_finite());
+        let ln_z_soma = match &store {
+            Store::Dc { s, .. } => s
+                .z_soma
+                .iter()
+                .any(|z| tiny(z.abs()))
+                .then(|| ln_soma_transfer(&flat.parent, s)),
+            Store::Ac { s, .. } => s
+                .z_soma
+                .iter()
+                .any(|z| tiny(z.abs()))
+                .then(|| ln_soma_transfer(&flat.parent, s)),
+        };
         Ok(CellMaps {
             freq_hz,
             params: *params,
@@ -151,6 +181,7 @@ impl CellMaps {
             point_node: flat.point_node.clone(),
             node_point: flat.node_point.clone(),
             store,
+            ln_z_soma,
         })
     }
 
@@ -193,37 +224,49 @@ impl CellMaps {
         with_store!(self, |_g, s| s.z_in[k].abs() * 1e-6)
     }
 
-    /// A_{k→s} = |Z_kk / Z_ks|.
+    /// A_{k→s} = |Z_kk / Z_ks| (+∞ when it exceeds the range of f64; never NaN).
     pub fn attenuation_to_soma(&self, k: usize) -> f64 {
-        with_store!(self, |_g, s| (s.z_in[k] / s.z_soma[k]).abs())
+        match &self.ln_z_soma {
+            Some(_) => self.log_attenuation_to_soma(k).exp(),
+            None => with_store!(self, |_g, s| (s.z_in[k] / s.z_soma[k]).abs()),
+        }
     }
 
-    /// A_{s→k} = |Z_ss / Z_ks|.
+    /// A_{s→k} = |Z_ss / Z_ks| (+∞ when it exceeds the range of f64; never NaN).
     pub fn attenuation_from_soma(&self, k: usize) -> f64 {
-        with_store!(self, |_g, s| (s.z_in[0] / s.z_soma[k]).abs())
+        match &self.ln_z_soma {
+            Some(_) => self.log_attenuation_from_soma(k).exp(),
+            None => with_store!(self, |_g, s| (s.z_in[0] / s.z_soma[k]).abs()),
+        }
     }
 
-    /// ln A_{k→s} (nepers), additive along paths (Zador, Agmon-Snir & Segev 1995).
+    /// ln A_{k→s} (nepers), additive along paths (Zador, Agmon-Snir & Segev 1995); finite even
+    /// where A itself is too large for f64.
     pub fn log_attenuation_to_soma(&self, k: usize) -> f64 {
-        neper(self.attenuation_to_soma(k))
+        match &self.ln_z_soma {
+            Some(l) => with_store!(self, |_g, s| s.z_in[k].abs().ln() - l[k]),
+            None => neper(self.attenuation_to_soma(k)),
+        }
     }
 
-    /// ln A_{s→k} (nepers).
+    /// ln A_{s→k} (nepers); finite even where A itself is too large for f64.
     pub fn log_attenuation_from_soma(&self, k: usize) -> f64 {
-        neper(self.attenuation_from_soma(k))
+        match &self.ln_z_soma {
+            Some(l) => with_store!(self, |_g, s| s.z_in[0].abs().ln() - l[k]),
+            None => neper(self.attenuation_from_soma(k)),
+        }
     }
 
     /// The maps at node k.
     pub fn node(&self, k: usize) -> PointMaps {
         let (z_in, z_soma) = (self.z_in(k), self.z_soma(k));
-        let z_ss = self.z_in(0);
         PointMaps {
             node: k,
             z_in,
             z_soma,
             input_resistance_mohm: z_in.norm() * 1e-6,
-            attenuation_to_soma: (z_in / z_soma).norm(),
-            attenuation_from_soma: (z_ss / z_soma).norm(),
+            attenuation_to_soma: self.attenuation_to_soma(k),
+            attenuation_from_soma: self.attenuation_from_soma(k),
         }
     }
 
