@@ -7,6 +7,16 @@
 //! network.
 //!
 //! Units: morphology in µm, Rm in Ω·cm², Ra in Ω·cm, Cm in µF/cm², f in Hz; admittances in S.
+//!
+//! Where to start:
+//! - [`CellMaps::compute`] (module [`cell`]): Z_kk, Z_ks, attenuation to and from the soma at
+//!   every node, the voltage map from any site, log attenuation, and [`Summary`] (soma input
+//!   resistance, τ, Σ l/λ of every tip's path). Per SWC point through `Flat::point_node`.
+//! - [`prep`]: a morphology (or parsed file) → prepared [`Flat`] (`--scale`, `--default-diameter`,
+//!   extent check; [`prep::cable_input`] skips the full morphology for plain files).
+//! - [`Network::build`] + [`Maps::new`]: the complex network and the sweeps' raw quantities
+//!   (D, P, U, down) for code that needs them (reduction).
+//! - [`network_arrays`] + [`maps::sweep`]: the same in any [`Scalar`] (`f64` at DC).
 
 pub mod cell;
 pub mod maps;
