@@ -11,7 +11,7 @@
 //!   coordination, and the split never changes between runs, machines or versions
 //!   ([`stable_hash`]: FNV-1a 64 followed by a 64-bit finaliser; never a randomised hasher).
 //! - **Per-cell job** ([`process_cell`]): read, build, flatten, reduce, and write the reduced
-//!   tree ([`crate::export::reduced_tree_json`], with the cell's *record* added as its last
+//!   tree ([`crate::export::reduced_tree_json_compact`], with the cell's *record* added as its last
 //!   member `batch`) with [`crate::export::write_atomic`] to `OUT/<rel with .json for
 //!   .swc>`. A cell that fails gets no tree and a record file of its own,
 //!   `OUT/.pollard-batch/<same>`. One safe write per cell: the disk's flushes, not the
@@ -30,7 +30,7 @@
 //!   shard tables into `summary.{csv,jsonl}`.
 
 use crate::cable::{Params, PrepOptions, prepare};
-use crate::export::{TreeSource, WriteError, reduced_tree_json, write_atomic};
+use crate::export::{TreeSource, WriteError, reduced_tree_json_compact, write_atomic};
 use crate::morphology::Morphology;
 use crate::reduce::{ReduceOptions, Reducer, Sites};
 use serde::{Deserialize, Serialize};
@@ -541,7 +541,7 @@ struct Computed {
     row: Row,
 }
 
-/// Read, build, reduce one cell; the tree file is [`reduced_tree_json`] with the relative path
+/// Read, build, reduce one cell; the tree file is [`reduced_tree_json_compact`] with the relative path
 /// as its source, so it does not depend on where the archive lies. Errors are plain messages
 /// naming the file (they go into the summary).
 fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Computed, String> {
@@ -572,7 +572,7 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         point_ids: &ids,
         point_pos: &pos,
     };
-    let json = reduced_tree_json(&src, &reducer, &tree, &report)
+    let json = reduced_tree_json_compact(&src, &reducer, &tree, &report)
         .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
     let e = &report.ln_attenuation_error;
     let finite = |x: f64| x.is_finite().then_some(x);

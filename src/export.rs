@@ -54,6 +54,15 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
         .tempfile_in(&folder)
         .map_err(io)?;
     tmp.write_all(bytes).map_err(io)?;
+    // the temporary file is private (0600); the output gets the usual rw-r--r-- so that others
+    // on shared storage can read it, as a file made by any other program would be
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        tmp.as_file()
+            .set_permissions(std::fs::Permissions::from_mode(0o644))
+            .map_err(io)?;
+    }
     tmp.as_file().sync_all().map_err(io)?;
     tmp.persist(path).map_err(|e| io(e.error))?;
     Ok(())
@@ -138,6 +147,27 @@ pub fn reduced_tree_json(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
+    tree_json(src, reducer, tree, report, true)
+}
+
+/// The same document as [`reduced_tree_json`] without indentation (smaller and faster to write:
+/// for archives).
+pub fn reduced_tree_json_compact(
+    src: &TreeSource<'_>,
+    reducer: &crate::reduce::Reducer,
+    tree: &crate::reduce::ReducedTree,
+    report: &crate::reduce::Report,
+) -> Result<String, serde_json::Error> {
+    tree_json(src, reducer, tree, report, false)
+}
+
+fn tree_json(
+    src: &TreeSource<'_>,
+    reducer: &crate::reduce::Reducer,
+    tree: &crate::reduce::ReducedTree,
+    report: &crate::reduce::Report,
+    pretty: bool,
+) -> Result<String, serde_json::Error> {
     use crate::morphology::NONE;
     let p = reducer.params();
     let o = reducer.options();
@@ -195,7 +225,11 @@ pub fn reduced_tree_json(
         },
         report,
     };
-    serde_json::to_string_pretty(&file)
+    if pretty {
+        serde_json::to_string_pretty(&file)
+    } else {
+        serde_json::to_string(&file)
+    }
 }
 
 /// The reduced tree as SWC, one point per compartment, each an *equivalent cylinder*: the
@@ -279,6 +313,12 @@ mod tests {
         write_atomic(&p, b"one", &[]).unwrap();
         write_atomic(&p, b"two", &[]).unwrap();
         assert_eq!(std::fs::read(&p).unwrap(), b"two");
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::PermissionsExt;
+            let mode = std::fs::metadata(&p).unwrap().permissions().mode();
+            assert_eq!(mode & 0o777, 0o644);
+        }
         let e = write_atomic(&p, b"three", &[&p]).unwrap_err();
         assert!(matches!(e, WriteError::WouldOverwriteInput(_)));
         assert_eq!(std::fs::read(&p).unwrap(), b"two");
