@@ -141,3 +141,102 @@ fn a_million_deep_chain_goes_through_inspect() {
     assert_eq!(v["tips"], 1);
     assert_eq!(v["points"], 1_000_000);
 }
+
+/// The catalogue's rejected files (tests/malformed/expected.txt), each through every command
+/// that reads a cell: non-zero exit, one line on stderr naming the file (and the line when the
+/// catalogue names one), within 2 s.
+#[test]
+fn every_command_refuses_every_catalogued_bad_file_in_one_line() {
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/malformed");
+    let manifest = std::fs::read_to_string(dir.join("expected.txt")).unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let tree = out.path().join("t.json");
+    let mut checked = 0;
+    for line in manifest.lines() {
+        let cols: Vec<&str> = line.split('|').map(str::trim).collect();
+        if line.starts_with('#') || cols.len() < 3 || !cols[1].starts_with("error") {
+            continue;
+        }
+        let file = dir.join(cols[0]);
+        let f = file.to_str().unwrap();
+        let want_line = cols[1].trim_start_matches("error").trim();
+        for args in [
+            vec!["inspect", f],
+            vec!["cable", f],
+            vec![
+                "reduce",
+                f,
+                "--compartments",
+                "7",
+                "--out",
+                tree.to_str().unwrap(),
+            ],
+        ] {
+            let t0 = std::time::Instant::now();
+            let o = pollard(&args);
+            let took = t0.elapsed();
+            assert!(!o.status.success(), "{args:?} accepted");
+            let lines = stderr_lines(&o);
+            assert_eq!(lines.len(), 1, "{args:?}: {lines:?}");
+            let named = if want_line == "-" {
+                format!("{f}")
+            } else {
+                format!("{f}:{want_line}: ")
+            };
+            assert!(lines[0].contains(&named), "{args:?}: {}", lines[0]);
+            assert!(took.as_secs_f64() < 2.0, "{args:?} took {took:?}");
+            assert!(!tree.exists(), "no output for a bad input");
+            checked += 1;
+        }
+    }
+    assert!(checked >= 3 * 25, "only {checked} checks");
+}
+
+/// A 1,000,000-deep chain (1 mm in steps of 1 nm: deep, electrically ordinary) through cable,
+/// reduce and batch: nothing recurses over the tree.
+#[test]
+fn a_million_deep_chain_goes_through_cable_reduce_and_batch() {
+    let dir = tempfile::tempdir().unwrap();
+    let cells = dir.path().join("cells");
+    std::fs::create_dir(&cells).unwrap();
+    let p = cells.join("chain.swc");
+    let mut s = String::with_capacity(40_000_000);
+    s.push_str("1 1 0 0 0 5 -1\n");
+    for i in 2..=1_000_000u32 {
+        s.push_str(&format!(
+            "{i} 3 {} 0 0 0.5 {}\n",
+            f64::from(i) * 0.001,
+            i - 1
+        ));
+    }
+    std::fs::write(&p, s).unwrap();
+    let f = p.to_str().unwrap();
+    let json = dir.path().join("maps.json");
+    let o = pollard(&["cable", f, "--json", "-o", json.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
+    assert_eq!(v["points"].as_array().unwrap().len(), 1_000_000);
+    let tree = dir.path().join("tree.json");
+    let o = pollard(&[
+        "reduce",
+        f,
+        "--compartments",
+        "3",
+        "--out",
+        tree.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let t: serde_json::Value = serde_json::from_slice(&std::fs::read(&tree).unwrap()).unwrap();
+    assert_eq!(t["compartments"].as_array().unwrap().len(), 3);
+    let out = dir.path().join("out");
+    let o = pollard(&[
+        "batch",
+        cells.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--compartments",
+        "3",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(out.join("chain.json").exists());
+}
