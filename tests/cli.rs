@@ -179,7 +179,7 @@ fn every_command_refuses_every_catalogued_bad_file_in_one_line() {
             let lines = stderr_lines(&o);
             assert_eq!(lines.len(), 1, "{args:?}: {lines:?}");
             let named = if want_line == "-" {
-                format!("{f}")
+                f.to_string()
             } else {
                 format!("{f}:{want_line}: ")
             };

@@ -462,7 +462,9 @@ impl Reducer {
         // A part of the cell hundreds of length constants from the soma (a segment far longer
         // than its length constant, usually coordinates in the wrong units) has no meaningful
         // reduction, and its numbers would leave the range of f64: refuse it by name.
-        if let Some(k) = (1..n).find(|&k| !(ln_att[k].abs() <= MAX_LN_ATTENUATION)) {
+        if let Some(k) =
+            (1..n).find(|&k| ln_att[k].is_nan() || ln_att[k].abs() > MAX_LN_ATTENUATION)
+        {
             return Err(ReduceError::CutOff {
                 line: kept.line[k],
                 nepers: ln_att[k],
