@@ -206,7 +206,7 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
                 lineno,
                 Fault::OutOfRange {
                     name: "id",
-                    text: fields[0].to_string(),
+                    text: shown(fields[0]),
                     rule: "ids are 0 or more",
                 },
             ));
@@ -217,7 +217,7 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
                 lineno,
                 Fault::OutOfRange {
                     name: "type",
-                    text: fields[1].to_string(),
+                    text: shown(fields[1]),
                     rule: "a type code fits in 32 bits",
                 },
             )
@@ -241,7 +241,7 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
                 lineno,
                 Fault::OutOfRange {
                     name: "parent",
-                    text: fields[6].to_string(),
+                    text: shown(fields[6]),
                     rule: "a parent is -1 (a root) or an id",
                 },
             ));
@@ -303,17 +303,25 @@ fn count_newlines(bytes: &[u8]) -> usize {
         .sum()
 }
 
+/// A field as quoted in an error message: at most 40 characters (a line may be 100 MB long).
+fn shown(text: &str) -> String {
+    match text.char_indices().nth(40) {
+        Some((cut, _)) => format!("{}…", &text[..cut]),
+        None => text.to_string(),
+    }
+}
+
 fn parse_float(text: &str, column: usize) -> Result<f64, Fault> {
     let v: f64 = text.parse().map_err(|_| Fault::NotANumber {
         column: column + 1,
         name: NAMES[column],
-        text: text.to_string(),
+        text: shown(text),
     })?;
     if !v.is_finite() {
         return Err(Fault::NotFinite {
             column: column + 1,
             name: NAMES[column],
-            text: text.to_string(),
+            text: shown(text),
         });
     }
     Ok(v)
@@ -334,13 +342,13 @@ fn parse_int(
         return Err(Fault::NotAnInteger {
             column: column + 1,
             name: NAMES[column],
-            text: text.to_string(),
+            text: shown(text),
         });
     }
     if v.abs() >= 9.2e18 {
         return Err(Fault::OutOfRange {
             name: NAMES[column],
-            text: text.to_string(),
+            text: shown(text),
             rule: "whole numbers must fit in 64 bits",
         });
     }
