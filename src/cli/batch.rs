@@ -3,7 +3,7 @@
 
 use anyhow::Context as _;
 use pollard::batch::{self, RunOptions, Settings, Shard, Status};
-use pollard::cable::{Params, PrepOptions};
+
 use pollard::reduce::ReduceOptions;
 use std::io::IsTerminal as _;
 use std::path::PathBuf;
@@ -26,6 +26,10 @@ pub struct Args {
     /// The folder to search for .swc files (all subfolders too).
     #[arg(required_unless_present = "merge_summaries")]
     pub input: Option<PathBuf>,
+    #[command(flatten)]
+    pub membrane: super::common::MembraneArgs,
+    #[command(flatten)]
+    pub geometry: super::common::GeometryArgs,
     /// The output folder (created if missing); its subfolders mirror the input's.
     #[arg(long, value_name = "OUT_DIR")]
     pub out: PathBuf,
@@ -33,21 +37,6 @@ pub struct Args {
     /// the odd number below; above a cell's maximum gives its maximum).
     #[arg(long, value_name = "N", required_unless_present = "merge_summaries")]
     pub compartments: Option<usize>,
-    /// Specific membrane resistance Rm (Ω·cm²).
-    #[arg(long, value_name = "R", default_value_t = Params::default().rm_ohm_cm2)]
-    pub rm: f64,
-    /// Axial resistivity Ra (Ω·cm).
-    #[arg(long, value_name = "R", default_value_t = Params::default().ra_ohm_cm)]
-    pub ra: f64,
-    /// Specific membrane capacitance Cm (µF/cm²).
-    #[arg(long, value_name = "C", default_value_t = Params::default().cm_uf_cm2)]
-    pub cm: f64,
-    /// Diameter (µm) for points whose radius is 0 or unknown; without it such cells fail.
-    #[arg(long, value_name = "D")]
-    pub default_diameter: Option<f64>,
-    /// Multiply coordinates and radii by this factor (e.g. 0.001 for files in nm).
-    #[arg(long, value_name = "S")]
-    pub scale: Option<f64>,
     /// Frequency (Hz) of the soma input-impedance line of each report.
     #[arg(long, value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
     pub freq: f64,
@@ -194,13 +183,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     });
     let settings = Settings {
         compartments,
-        params: Params {
-            rm_ohm_cm2: a.rm,
-            ra_ohm_cm: a.ra,
-            cm_uf_cm2: a.cm,
-        },
-        default_diameter_um: a.default_diameter,
-        scale: a.scale,
+        params: a.membrane.params(),
+        default_diameter_um: a.geometry.default_diameter,
+        scale: a.geometry.scale,
         types,
         freq_hz: a.freq,
         junction_length_fraction: a.junction_fraction,
@@ -210,12 +195,10 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         .params
         .validate(a.freq)
         .context("check the passive flags")?;
-    PrepOptions {
-        default_diameter_um: a.default_diameter,
-        scale: a.scale,
-    }
-    .validate()
-    .context("check --default-diameter and --scale")?;
+    a.geometry
+        .prep()
+        .validate()
+        .context("check --default-diameter and --scale")?;
     if !(a.junction_fraction.is_finite() && (1e-9..=1.0).contains(&a.junction_fraction)) {
         anyhow::bail!(
             "--junction-fraction {} is outside the accepted range 1e-9 to 1",

@@ -3,7 +3,7 @@
 
 use anyhow::Context;
 use pollard::cable::prep::{CableInput, cable_input};
-use pollard::cable::{CellMaps, Params, PrepOptions, Summary};
+use pollard::cable::{CellMaps, Summary};
 use serde::Serialize;
 use std::io::Write;
 use std::path::PathBuf;
@@ -13,30 +13,10 @@ use std::process::ExitCode;
 pub struct Args {
     /// The SWC file to read.
     pub cell: PathBuf,
-    /// Specific membrane resistance Rm (Ω·cm²).
-    #[arg(
-        long = "rm",
-        allow_negative_numbers = true,
-        default_value_t = 20_000.0,
-        value_name = "OHM_CM2"
-    )]
-    pub rm: f64,
-    /// Axial resistivity Ra (Ω·cm).
-    #[arg(
-        long = "ra",
-        allow_negative_numbers = true,
-        default_value_t = 150.0,
-        value_name = "OHM_CM"
-    )]
-    pub ra: f64,
-    /// Specific membrane capacitance Cm (µF/cm²).
-    #[arg(
-        long = "cm",
-        allow_negative_numbers = true,
-        default_value_t = 1.0,
-        value_name = "UF_CM2"
-    )]
-    pub cm: f64,
+    #[command(flatten)]
+    pub membrane: super::common::MembraneArgs,
+    #[command(flatten)]
+    pub geometry: super::common::GeometryArgs,
     /// Frequency (Hz); 0 = DC. At f > 0 resistances are impedance magnitudes.
     #[arg(
         long = "freq",
@@ -48,16 +28,6 @@ pub struct Args {
     /// Also map V_k/V_site for a current injected at the point with this SWC id.
     #[arg(long, value_name = "ID")]
     pub site: Option<i64>,
-    /// Diameter (µm) for points whose radius is 0 or unknown.
-    #[arg(
-        long = "default-diameter",
-        allow_negative_numbers = true,
-        value_name = "UM"
-    )]
-    pub default_diameter: Option<f64>,
-    /// Multiply coordinates and radii by this factor (files in nm or voxels; 0.001 for nm).
-    #[arg(long, allow_negative_numbers = true, value_name = "FACTOR")]
-    pub scale: Option<f64>,
     /// Print JSON (summary and every point) instead of a readable summary.
     #[arg(long)]
     pub json: bool,
@@ -172,16 +142,9 @@ fn tips(ids: &[i64], s: &Summary) -> Vec<Tip> {
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    let params = Params {
-        rm_ohm_cm2: a.rm,
-        ra_ohm_cm: a.ra,
-        cm_uf_cm2: a.cm,
-    };
+    let params = a.membrane.params();
     params.validate(a.freq)?;
-    let opts = PrepOptions {
-        default_diameter_um: a.default_diameter,
-        scale: a.scale,
-    };
+    let opts = a.geometry.prep();
     let file = pollard::swc::read_path(&a.cell)?;
     let input = cable_input(file, &opts)?;
     let CableInput {
@@ -220,9 +183,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         let o = Output {
             file: a.cell.display().to_string(),
             freq_hz: a.freq,
-            rm_ohm_cm2: a.rm,
-            ra_ohm_cm: a.ra,
-            cm_uf_cm2: a.cm,
+            rm_ohm_cm2: a.membrane.rm,
+            ra_ohm_cm: a.membrane.ra,
+            cm_uf_cm2: a.membrane.cm,
             soma_input_resistance_mohm: summary.soma_input_resistance_mohm,
             soma_input_phase_deg: summary.soma_input_phase_deg,
             tau_ms: summary.tau_ms,
@@ -289,7 +252,7 @@ fn write_text(
     writeln!(
         w,
         "  Rm {} Ω·cm², Ra {} Ω·cm, Cm {} µF/cm² ({what})",
-        a.rm, a.ra, a.cm
+        a.membrane.rm, a.membrane.ra, a.membrane.cm
     )?;
     writeln!(w, "  nodes                      {}", maps.len())?;
     writeln!(

@@ -5,6 +5,7 @@ use std::process::ExitCode;
 
 mod batch;
 mod cable;
+mod common;
 mod inspect;
 mod reduce;
 mod view;

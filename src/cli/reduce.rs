@@ -3,7 +3,7 @@
 
 use anyhow::Context;
 use pollard::Morphology;
-use pollard::cable::{Params, PrepOptions, prepare};
+use pollard::cable::prepare;
 use pollard::export::{TreeSource, reduced_tree_json, reduced_tree_swc, write_atomic};
 use pollard::reduce::{ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
 use std::io::Write;
@@ -14,6 +14,10 @@ use std::process::ExitCode;
 pub struct Args {
     /// The SWC file to read.
     pub cell: PathBuf,
+    #[command(flatten)]
+    pub membrane: super::common::MembraneArgs,
+    #[command(flatten)]
+    pub geometry: super::common::GeometryArgs,
     /// Number of compartments of the reduced tree, soma included. A strict binary tree has an
     /// odd number: an even number is rounded down; above the maximum gives the maximum.
     #[arg(long, short = 'n', value_name = "N")]
@@ -26,30 +30,6 @@ pub struct Args {
     /// kept. Points of other types, and everything beyond them, are left out entirely.
     #[arg(long, value_delimiter = ',', value_name = "LIST")]
     pub types: Option<Vec<i32>>,
-    /// Specific membrane resistance Rm (Ω·cm²).
-    #[arg(
-        long = "rm",
-        allow_negative_numbers = true,
-        default_value_t = 20_000.0,
-        value_name = "OHM_CM2"
-    )]
-    pub rm: f64,
-    /// Axial resistivity Ra (Ω·cm).
-    #[arg(
-        long = "ra",
-        allow_negative_numbers = true,
-        default_value_t = 150.0,
-        value_name = "OHM_CM"
-    )]
-    pub ra: f64,
-    /// Specific membrane capacitance Cm (µF/cm²).
-    #[arg(
-        long = "cm",
-        allow_negative_numbers = true,
-        default_value_t = 1.0,
-        value_name = "UF_CM2"
-    )]
-    pub cm: f64,
     /// Frequency (Hz) of the input-impedance line of the report.
     #[arg(
         long = "freq",
@@ -58,16 +38,6 @@ pub struct Args {
         value_name = "HZ"
     )]
     pub freq: f64,
-    /// Diameter (µm) for points whose radius is 0 or unknown.
-    #[arg(
-        long = "default-diameter",
-        allow_negative_numbers = true,
-        value_name = "UM"
-    )]
-    pub default_diameter: Option<f64>,
-    /// Multiply coordinates and radii by this factor (files in nm or voxels; 0.001 for nm).
-    #[arg(long, allow_negative_numbers = true, value_name = "FACTOR")]
-    pub scale: Option<f64>,
     /// Junction link length as a fraction of the branch point's radius (multifurcations and a
     /// single-stem soma are split with links this short).
     #[arg(long = "junction-fraction", default_value_t = 1e-4, value_name = "F")]
@@ -84,22 +54,11 @@ pub struct Args {
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    let params = Params {
-        rm_ohm_cm2: a.rm,
-        ra_ohm_cm: a.ra,
-        cm_uf_cm2: a.cm,
-    };
+    let params = a.membrane.params();
     params.validate(a.freq)?;
     let name = a.cell.display().to_string();
     let m = Morphology::read(&a.cell)?;
-    let flat = prepare(
-        &m,
-        &PrepOptions {
-            default_diameter_um: a.default_diameter,
-            scale: a.scale,
-        },
-    )
-    .with_context(|| name.clone())?;
+    let flat = prepare(&m, &a.geometry.prep()).with_context(|| name.clone())?;
     let sites = match &a.sites {
         None => Sites::Default,
         Some(p) => {
