@@ -267,6 +267,10 @@ fn check_cell(name: &str, flat: &Flat, opts: &ReduceOptions) -> [f64; 3] {
 /// Flat arrays of a morphology, with a default radius where the file has none.
 fn flat_of(m: &Morphology) -> Flat {
     let mut f = m.flatten();
+    // files in nanometres or voxels (the fly cells): to µm, as a user would with --scale
+    if m.warnings.iter().any(|w| w.code == "implausible-size") {
+        pollard::cable::prep::scale_flat(&mut f, 0.001);
+    }
     for k in 1..f.len() {
         for r in [&mut f.r_prox_um[k], &mut f.r_dist_um[k]] {
             if !(*r > 0.0 && r.is_finite()) {
