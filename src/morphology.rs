@@ -1061,6 +1061,42 @@ impl Flat {
         self.parent.is_empty()
     }
 
+    /// The nodes whose `keep` flag is set, as flat arrays of their own (node 0 and the parent of
+    /// every kept node must be kept), and the map old node → new node (`NONE` if dropped). The
+    /// order, and so the parents-first property, is kept.
+    pub fn restrict(&self, keep: &[bool]) -> (Flat, Vec<u32>) {
+        let n = self.len();
+        let mut map = vec![NONE; n];
+        let mut f = Flat {
+            soma_area_um2: self.soma_area_um2,
+            ..Flat::default()
+        };
+        for k in 0..n {
+            if !keep[k] {
+                continue;
+            }
+            map[k] = f.parent.len() as u32;
+            f.parent.push(if k == 0 {
+                NONE
+            } else {
+                map[self.parent[k] as usize]
+            });
+            f.length_um.push(self.length_um[k]);
+            f.r_prox_um.push(self.r_prox_um[k]);
+            f.r_dist_um.push(self.r_dist_um[k]);
+            f.kind.push(self.kind[k]);
+            f.pos.push(self.pos[k]);
+            f.node_point.push(self.node_point[k]);
+            f.line.push(self.line[k]);
+        }
+        f.point_node = self
+            .point_node
+            .iter()
+            .map(|&k| if k == NONE { NONE } else { map[k as usize] })
+            .collect();
+        (f, map)
+    }
+
     /// Lateral area of node k's segment (µm²).
     pub fn segment_area(&self, k: usize) -> f64 {
         if k == 0 {

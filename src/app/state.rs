@@ -509,40 +509,14 @@ impl Model {
     /// Keeps node 0 and every node whose type is kept and whose parent is kept.
     pub fn new(cell: &Cell, keep: &dyn Fn(i32) -> bool) -> Model {
         let f = &cell.flat;
-        let n = f.len();
-        let mut of_full = vec![NONE; n];
-        let mut full = Vec::with_capacity(n);
-        let mut m = Flat {
-            soma_area_um2: f.soma_area_um2,
-            point_node: vec![NONE; f.point_node.len()],
-            ..Default::default()
-        };
-        for k in 0..n {
-            let ok = k == 0 || (keep(f.kind[k]) && of_full[f.parent[k] as usize] != NONE);
-            if !ok {
-                continue;
-            }
-            let new = m.parent.len() as u32;
-            of_full[k] = new;
-            full.push(k as u32);
-            m.parent.push(if k == 0 {
-                NONE
-            } else {
-                of_full[f.parent[k] as usize]
-            });
-            m.length_um.push(f.length_um[k]);
-            m.r_prox_um.push(f.r_prox_um[k]);
-            m.r_dist_um.push(f.r_dist_um[k]);
-            m.kind.push(f.kind[k]);
-            m.pos.push(f.pos[k]);
-            m.node_point.push(f.node_point[k]);
-            m.line.push(f.line[k]);
+        let mut flags = vec![false; f.len()];
+        for k in 0..f.len() {
+            flags[k] = k == 0 || (keep(f.kind[k]) && flags[f.parent[k] as usize]);
         }
-        for (p, &node) in f.point_node.iter().enumerate() {
-            if node != NONE {
-                m.point_node[p] = of_full[node as usize];
-            }
-        }
+        let (m, of_full) = f.restrict(&flags);
+        let full: Vec<u32> = (0..f.len() as u32)
+            .filter(|&k| of_full[k as usize] != NONE)
+            .collect();
         let path_distance = full
             .iter()
             .map(|&k| cell.morph.path_distance[f.node_point[k as usize] as usize])

@@ -374,40 +374,6 @@ fn dc_sweep(parent: &[u32], g: &[f64], shunt: &[f64]) -> (Vec<f64>, Vec<f64>, Ve
     (d, p, u)
 }
 
-/// The kept part of `flat` as flat arrays of its own, and the map old node → kept node.
-fn kept_flat(flat: &Flat, keep: &[bool]) -> (Flat, Vec<u32>) {
-    let n = flat.len();
-    let mut map = vec![NONE; n];
-    let mut f = Flat {
-        soma_area_um2: flat.soma_area_um2,
-        ..Flat::default()
-    };
-    for k in 0..n {
-        if !keep[k] {
-            continue;
-        }
-        map[k] = f.parent.len() as u32;
-        f.parent.push(if k == 0 {
-            NONE
-        } else {
-            map[flat.parent[k] as usize]
-        });
-        f.length_um.push(flat.length_um[k]);
-        f.r_prox_um.push(flat.r_prox_um[k]);
-        f.r_dist_um.push(flat.r_dist_um[k]);
-        f.kind.push(flat.kind[k]);
-        f.pos.push(flat.pos[k]);
-        f.node_point.push(flat.node_point[k]);
-        f.line.push(flat.line[k]);
-    }
-    f.point_node = flat
-        .point_node
-        .iter()
-        .map(|&k| if k == NONE { NONE } else { map[k as usize] })
-        .collect();
-    (f, map)
-}
-
 impl Reducer {
     /// Builds the maximal strict binary tree of the cell and the whole collapse order
     /// (O(N log N)). See the module documentation for each step.
@@ -439,7 +405,7 @@ impl Reducer {
                     .as_ref()
                     .is_none_or(|t| t.contains(&flat.kind[k]));
         }
-        let (kept, old_to_kept) = kept_flat(flat, &keep);
+        let (kept, old_to_kept) = flat.restrict(&keep);
         let points_left_out = n0 - kept.len();
         // 2. the cable engine's DC network of the kept cell
         let net = Network::build(&kept, params, 0.0)?;
