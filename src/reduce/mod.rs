@@ -304,14 +304,7 @@ pub struct Reducer {
     params: Params,
     opts: ReduceOptions,
     /// Maximal tree, parents-first.
-    parent: Vec<u32>,
-    g: Vec<f64>,
-    shunt: Vec<f64>,
-    area: Vec<f64>,
-    pos: Vec<[f64; 3]>,
-    role: Vec<Role>,
-    line: Vec<usize>,
-    kind: Vec<i32>,
+    max: Tree,
     kids: Vec<Option<[u32; 2]>>,
     site_count: Vec<u32>,
     /// Cherry parents in collapse order.
@@ -787,14 +780,7 @@ impl Reducer {
         Ok(Reducer {
             params: *params,
             opts: opts.clone(),
-            parent: t.parent,
-            g: t.g,
-            shunt: t.shunt,
-            area: t.area,
-            pos: t.pos,
-            role: t.role,
-            line: t.line,
-            kind: t.kind,
+            max: t,
             kids,
             site_count,
             order,
@@ -813,7 +799,7 @@ impl Reducer {
 
     /// Compartments of the maximal tree (odd; 2·tips − 1 plus one for a single-stem soma).
     pub fn max_compartments(&self) -> usize {
-        self.parent.len()
+        self.max.parent.len()
     }
 
     /// The budget actually used for a request: odd, between 1 and the maximum.
@@ -875,8 +861,8 @@ impl Reducer {
         let nm = self.max_compartments();
         let b = self.effective_budget(budget);
         let steps = (nm - b) / 2;
-        let mut sh = self.shunt.clone();
-        let mut area = self.area.clone();
+        let mut sh = self.max.shunt.clone();
+        let mut area = self.max.area.clone();
         let mut count = self.site_count.clone();
         let mut alive = vec![true; nm];
         let mut leaf: Vec<bool> = self.kids.iter().map(|k| k.is_none()).collect();
@@ -885,7 +871,7 @@ impl Reducer {
             if let Some([x, y]) = self.kids[c] {
                 for x in [x as usize, y as usize] {
                     // Kron reduction of a leaf: c's shunt += g·G/(g + G)
-                    sh[c] += self.g[x] * sh[x] / (self.g[x] + sh[x]);
+                    sh[c] += self.max.g[x] * sh[x] / (self.max.g[x] + sh[x]);
                     area[c] += area[x];
                     count[c] += count[x];
                     alive[x] = false;
@@ -902,7 +888,7 @@ impl Reducer {
                 id[k] = next;
                 next += 1;
             } else {
-                rep[k] = rep[self.parent[k] as usize];
+                rep[k] = rep[self.max.parent[k] as usize];
             }
         }
         let tau_s = self.params.tau_ms() * 1e-3;
@@ -911,7 +897,7 @@ impl Reducer {
             if !alive[k] {
                 continue;
             }
-            let parent = (k > 0).then(|| id[self.parent[k] as usize]);
+            let parent = (k > 0).then(|| id[self.max.parent[k] as usize]);
             let depth = parent.map_or(0, |p| comps[p as usize].depth + 1);
             comps.push(Compartment {
                 id: id[k],
@@ -921,16 +907,16 @@ impl Reducer {
                 } else {
                     self.kids[k].map(|[x, y]| [id[x as usize], id[y as usize]])
                 },
-                g_axial_ns: if k == 0 { 0.0 } else { self.g[k] * 1e9 },
+                g_axial_ns: if k == 0 { 0.0 } else { self.max.g[k] * 1e9 },
                 g_leak_ns: sh[k] * 1e9,
                 capacitance_pf: tau_s * sh[k] * 1e12,
-                position_um: self.pos[k],
+                position_um: self.max.pos[k],
                 membrane_area_um2: area[k],
                 site_count: count[k],
                 depth,
-                role: self.role[k],
-                swc_line: self.line[k],
-                swc_type: self.kind[k],
+                role: self.max.role[k],
+                swc_line: self.max.line[k],
+                swc_type: self.max.kind[k],
             });
         }
         let map = |m: u32| {
@@ -1029,8 +1015,8 @@ fn nearest(pos: &[[f64; 3]], p: [f64; 3]) -> u32 {
     best.1
 }
 
-/// The maximal tree while it is built.
-#[derive(Default)]
+/// The maximal tree: built in `Reducer::new`, then kept by the reducer.
+#[derive(Debug, Default)]
 struct Tree {
     parent: Vec<u32>,
     g: Vec<f64>,
