@@ -9,6 +9,7 @@ pub mod cable;
 pub mod export;
 pub mod lab;
 pub mod morphology;
+pub mod neuroml;
 pub mod reduce;
 pub mod samples;
 pub mod swc;

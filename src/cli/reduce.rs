@@ -48,6 +48,18 @@ pub struct Args {
     /// Also write the reduced tree as SWC (equivalent cylinders).
     #[arg(long, value_name = "OUT.swc")]
     pub swc: Option<PathBuf>,
+    /// Also write the reduced tree as a NeuroML v2 cell (one cylinder segment per compartment;
+    /// README, "NeuroML", gives the convention that reproduces every conductance exactly).
+    #[arg(long, value_name = "OUT.cell.nml")]
+    pub neuroml: Option<PathBuf>,
+    /// Resting potential of the NeuroML cell: the leak's reversal and the initial potential.
+    #[arg(
+        long = "neuroml-rest",
+        allow_negative_numbers = true,
+        default_value_t = -65.0,
+        value_name = "MV"
+    )]
+    pub neuroml_rest: f64,
     /// Print the report as JSON instead of text.
     #[arg(long)]
     pub json: bool,
@@ -95,6 +107,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
         ];
         write_atomic(path, reduced_tree_swc(&tree, &header).as_bytes(), &inputs)?;
+    }
+    if let Some(path) = &a.neuroml {
+        let id = pollard::neuroml::cell_id_from(&name);
+        let nml = pollard::neuroml::reduced_tree_neuroml(&tree, &id, &name, a.neuroml_rest)
+            .with_context(|| path.display().to_string())?;
+        write_atomic(path, nml.as_bytes(), &inputs)?;
     }
     let mut out = std::io::stdout().lock();
     let written = if a.json {
