@@ -124,7 +124,7 @@ struct SiteMap {
 }
 
 #[derive(serde::Serialize)]
-struct TreeFile<'a> {
+struct TreeFile<'a, B: serde::Serialize> {
     format: &'static str,
     schema_version: u32,
     generator: String,
@@ -134,6 +134,9 @@ struct TreeFile<'a> {
     feed_forward: crate::reduce::FeedForward,
     site_map: SiteMap,
     report: &'a crate::reduce::Report,
+    /// A caller's own last member (batch: the cell's record).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    batch: Option<&'a B>,
 }
 
 /// The reduced tree as JSON (layout: `assets/reduced-tree.schema.json`, version
@@ -147,7 +150,7 @@ pub fn reduced_tree_json(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json(src, reducer, tree, report, true)
+    tree_json::<()>(src, reducer, tree, report, None, true)
 }
 
 /// The same document as [`reduced_tree_json`] without indentation (smaller and faster to write:
@@ -158,14 +161,27 @@ pub fn reduced_tree_json_compact(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json(src, reducer, tree, report, false)
+    tree_json::<()>(src, reducer, tree, report, None, false)
 }
 
-fn tree_json(
+/// [`reduced_tree_json_compact`] with one more member, `batch`, last: the batch run's record of
+/// the cell (any serialisable value; readers of the tree ignore it).
+pub fn reduced_tree_json_with_batch<B: serde::Serialize>(
     src: &TreeSource<'_>,
     reducer: &crate::reduce::Reducer,
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
+    batch: &B,
+) -> Result<String, serde_json::Error> {
+    tree_json(src, reducer, tree, report, Some(batch), false)
+}
+
+fn tree_json<B: serde::Serialize>(
+    src: &TreeSource<'_>,
+    reducer: &crate::reduce::Reducer,
+    tree: &crate::reduce::ReducedTree,
+    report: &crate::reduce::Report,
+    batch: Option<&B>,
     pretty: bool,
 ) -> Result<String, serde_json::Error> {
     use crate::morphology::NONE;
@@ -224,6 +240,7 @@ fn tree_json(
             sites,
         },
         report,
+        batch,
     };
     if pretty {
         serde_json::to_string_pretty(&file)

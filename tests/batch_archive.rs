@@ -554,6 +554,8 @@ fn flags_out_of_range_stop_before_any_work() {
         vec!["--shard", "0/3"],
         vec!["--shard", "4/3"],
         vec!["--scale", "0"],
+        vec!["--junction-fraction", "2"],
+        vec!["--freq", "-1"],
     ] {
         let mut args = vec![
             "batch",

@@ -191,23 +191,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         junction_length_fraction: a.junction_fraction,
     };
     // a flag error would fail every cell alike: say it once, before any work
-    settings
-        .params
-        .validate(a.freq)
-        .context("check the passive flags")?;
-    a.geometry
-        .prep()
-        .validate()
-        .context("check --default-diameter and --scale")?;
-    if !(a.junction_fraction.is_finite() && (1e-9..=1.0).contains(&a.junction_fraction)) {
-        anyhow::bail!(
-            "--junction-fraction {} is outside the accepted range 1e-9 to 1",
-            a.junction_fraction
-        );
-    }
-    if settings.types.as_ref().is_some_and(|t| t.is_empty()) {
-        anyhow::bail!("--types lists no types");
-    }
+    settings.validate()?;
     let shard = a.shard.unwrap_or(Shard::ALL);
     std::fs::create_dir_all(&a.out)
         .with_context(|| format!("{}: cannot create the output folder", a.out.display()))?;

@@ -1,0 +1,166 @@
+//! The per-cell job: compute (read, build, reduce) and write (tree with record, or failure record).
+
+use super::record::Record;
+use super::{BatchError, Cell, Row, Settings, Status};
+use crate::cable::prepare;
+use crate::export::{TreeSource, reduced_tree_json_with_batch, write_atomic};
+use crate::morphology::Morphology;
+use crate::reduce::Reducer;
+use std::path::Path;
+use std::time::Instant;
+
+/// What one cell's computation gives: the tree file's bytes and the row's numbers.
+struct Computed {
+    json: Vec<u8>,
+    row: Row,
+}
+
+/// Read, build, reduce one cell; the tree file is [`reduced_tree_json_with_batch`] with the relative path
+/// as its source, so it does not depend on where the archive lies. Errors are plain messages
+/// naming the file (they go into the summary).
+fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Computed, String> {
+    let name = cell.rel.as_str();
+    let bytes = std::fs::read(&cell.input).map_err(|e| format!("{name}: cannot read: {e}"))?;
+    let swc = crate::swc::parse_bytes(&bytes, name).map_err(|e| e.to_string())?;
+    let m = Morphology::from_swc(swc).map_err(|e| e.to_string())?;
+    let met = m.metrics();
+    let flat = prepare(&m, &settings.prep()).map_err(|e| format!("{name}: {e}"))?;
+    let reducer = Reducer::new(&flat, &settings.params, &settings.reduce_options())
+        .map_err(|e| format!("{name}: {e}"))?;
+    let tree = reducer.tree(settings.compartments);
+    let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
+    let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
+    let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
+    let src = TreeSource {
+        source: name,
+        point_ids: &ids,
+        point_pos: &pos,
+    };
+    let e = &report.ln_attenuation_error;
+    let finite = |x: f64| x.is_finite().then_some(x);
+    let row = Row {
+        file: cell.rel.clone(),
+        status: Status::Ok,
+        points: Some(met.points),
+        tips: Some(met.tips),
+        total_length_um: finite(met.total_length_um),
+        compartments: Some(report.compartments),
+        soma_rin_full_mohm: finite(report.soma_input_resistance_dc_full_mohm),
+        soma_rin_reduced_mohm: finite(report.soma_input_resistance_dc_reduced_mohm),
+        site_error_median_np: (report.sites > 0).then_some(e.median).and_then(finite),
+        site_error_p95_np: (report.sites > 0).then_some(e.p95).and_then(finite),
+        site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
+        seconds: None,
+        error: None,
+    };
+    // the tree with the record as its last member: one file (one safe write) per cell
+    let record = Record::new(settings_key, bytes.len() as u64, &row);
+    let json = reduced_tree_json_with_batch(&src, &reducer, &tree, &report, &record)
+        .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
+    Ok(Computed {
+        json: json.into_bytes(),
+        row,
+    })
+}
+
+fn make_parent(path: &Path) -> Result<(), BatchError> {
+    if let Some(dir) = path.parent()
+        && !dir.as_os_str().is_empty()
+    {
+        std::fs::create_dir_all(dir).map_err(|source| BatchError::CreateDir {
+            path: dir.to_path_buf(),
+            source,
+        })?;
+    }
+    Ok(())
+}
+
+fn remove_if_present(path: &Path) -> Result<(), String> {
+    match std::fs::remove_file(path) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(()),
+        Err(e) => Err(format!(
+            "{}: cannot remove a stale output: {e}",
+            path.display()
+        )),
+    }
+}
+
+/// A cell computed and waiting to be written.
+pub struct Pending {
+    t0: Instant,
+    result: Result<Computed, String>,
+}
+
+/// The computing half of [`process_cell`]: read, build, reduce (no file is written). A panic
+/// inside the computation is caught and becomes the cell's error.
+pub fn compute_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Pending {
+    let t0 = Instant::now();
+    if let Some(msg) = &cell.fault {
+        return Pending {
+            t0,
+            result: Err(msg.clone()),
+        };
+    }
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        compute(cell, settings, settings_key)
+    }))
+    .unwrap_or_else(|p| {
+        let what = p
+            .downcast_ref::<&str>()
+            .map(|s| s.to_string())
+            .or_else(|| p.downcast_ref::<String>().cloned())
+            .unwrap_or_default();
+        Err(format!(
+            "{}: internal error (a bug; please report it): {what}",
+            cell.rel
+        ))
+    });
+    Pending { t0, result }
+}
+
+/// The writing half of [`process_cell`]: the tree (with its record inside) or the failure record.
+pub fn write_cell(cell: &Cell, pending: Pending, settings_key: &str) -> Row {
+    let Pending { t0, result } = pending;
+    let inputs = [cell.input.as_path()];
+    let written = (|| -> Result<Row, String> {
+        if cell.fault.is_some() {
+            // no record: a clash's record name is the other file's; a folder has none
+            return Err(result.err().unwrap_or_default());
+        }
+        match result {
+            Ok(c) => {
+                make_parent(&cell.output).map_err(|e| e.to_string())?;
+                write_atomic(&cell.output, &c.json, &inputs).map_err(|e| e.to_string())?;
+                // an older failure record is out of date now
+                remove_if_present(&cell.record)?;
+                Ok(c.row)
+            }
+            Err(msg) => {
+                // a tree left from an earlier run must not look current: removed first, so
+                // that a stop between the two steps leaves neither
+                remove_if_present(&cell.output)?;
+                let row = Row::failed(&cell.rel, None, msg);
+                let input_bytes = std::fs::metadata(&cell.input).map(|m| m.len()).unwrap_or(0);
+                let rec = Record::new(settings_key, input_bytes, &row);
+                let text = serde_json::to_vec(&rec).map_err(|e| e.to_string())?;
+                make_parent(&cell.record).map_err(|e| e.to_string())?;
+                write_atomic(&cell.record, &text, &inputs).map_err(|e| e.to_string())?;
+                Ok(row)
+            }
+        }
+    })();
+    let mut row = written.unwrap_or_else(|msg| Row::failed(&cell.rel, None, msg));
+    row.seconds = Some((t0.elapsed().as_secs_f64() * 1e6).round() / 1e6);
+    row
+}
+
+/// Does one cell and writes its tree (on success, with its record inside) or its failure
+/// record. Never panics on a bad file. Returns the row.
+pub fn process_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Row {
+    write_cell(
+        cell,
+        compute_cell(cell, settings, settings_key),
+        settings_key,
+    )
+}
