@@ -7,6 +7,7 @@
 pub mod batch;
 pub mod cable;
 pub mod export;
+pub mod fidelity;
 pub mod lab;
 pub mod morphology;
 pub mod neuroml;
@@ -14,6 +15,7 @@ pub mod reduce;
 pub mod samples;
 pub mod swc;
 pub mod synth;
+pub mod transient;
 
 pub use morphology::{Flat, Morphology};
 pub use swc::{SwcError, Warning};

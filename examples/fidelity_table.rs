@@ -1,0 +1,133 @@
+//! Prints the fidelity table (markdown) of the reducer on real cells at budgets 15, 31, 63:
+//! DC log-attenuation errors to and from the soma, soma EPSP peak and time-to-peak errors for an
+//! alpha current at each site, and the soma's own EPSP. Re-run it after changing the reducer.
+//!
+//! cargo run --release --no-default-features --example fidelity_table [DIR …]
+//! (default: tests/data/real and ../shared/cells; a file name seen twice is taken once)
+//!
+//! Files are prepared as a user would: coordinates in nm or voxels (the `implausible-size`
+//! warning) get `--scale 0.001`, points without a radius get `--default-diameter 0.5`.
+
+use pollard::cable::{Params, PrepOptions, prepare};
+use pollard::fidelity::{Fidelity, FidelityOptions, percent};
+use pollard::morphology::Morphology;
+use pollard::reduce::{ReduceOptions, Reducer};
+use std::time::Instant;
+
+const BUDGETS: [usize; 3] = [15, 31, 63];
+
+fn prep_for(m: &Morphology) -> PrepOptions {
+    let scale = m
+        .warnings
+        .iter()
+        .any(|w| w.code == "implausible-size")
+        .then_some(0.001);
+    let no_radius = m.points[..m.main_len]
+        .iter()
+        .skip(1)
+        .any(|p| !p.radius.is_some_and(|r| r > 0.0 && r.is_finite()));
+    PrepOptions {
+        scale,
+        default_diameter_um: no_radius.then_some(0.5),
+    }
+}
+
+fn flags(p: &PrepOptions) -> String {
+    let mut s = Vec::new();
+    if let Some(x) = p.scale {
+        s.push(format!("--scale {x}"));
+    }
+    if let Some(d) = p.default_diameter_um {
+        s.push(format!("--default-diameter {d}"));
+    }
+    s.join(" ")
+}
+
+fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, String> {
+    let name = path.file_stem().unwrap().to_string_lossy().to_string();
+    let m = Morphology::read(path).map_err(|e| e.to_string())?;
+    let prep = prep_for(&m);
+    let flat = prepare(&m, &prep).map_err(|e| e.to_string())?;
+    let t0 = Instant::now();
+    let red = Reducer::new(&flat, &Params::default(), &ReduceOptions::default())
+        .map_err(|e| e.to_string())?;
+    let fid = Fidelity::new(&red, opts).map_err(|e| e.to_string())?;
+    let setup = t0.elapsed().as_secs_f64();
+    let mut rows = Vec::new();
+    for b in BUDGETS {
+        let tree = red.tree(b);
+        let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
+        let (e, pe) = (r.epsp_peak_error_np, r.epsp_peak_error_percent);
+        let got = if tree.len() < b {
+            format!("{b} (max {})", tree.len())
+        } else {
+            b.to_string()
+        };
+        rows.push(format!(
+            "| {name} | {} | {got} | {:.2} / {:.2} | {:.2} / {:.2} | {:.0} % / {:.0} % ({:.2} / {:.2} Np) | {:.0} % | {:.1} % ({:.3} Np) | {} | {} | {:.0} | {} | {:.1} |",
+            flags(&prep),
+            r.ln_attenuation_to_soma_error_np.median,
+            r.ln_attenuation_to_soma_error_np.p95,
+            r.ln_attenuation_from_soma_error_np.median,
+            r.ln_attenuation_from_soma_error_np.p95,
+            pe.median,
+            pe.p95,
+            e.median,
+            e.p95,
+            r.time_to_peak_error.p95 * 100.0,
+            percent(r.soma_epsp_peak_error_np),
+            r.soma_epsp_peak_error_np,
+            r.sites,
+            r.fine_nodes,
+            r.duration_ms,
+            r.sites_not_peaked,
+            setup,
+        ));
+    }
+    Ok(rows)
+}
+
+fn main() {
+    let mut dirs: Vec<std::path::PathBuf> = std::env::args().skip(1).map(Into::into).collect();
+    if dirs.is_empty() {
+        dirs = vec!["tests/data/real".into(), "../shared/cells".into()];
+    }
+    let mut files: Vec<std::path::PathBuf> = Vec::new();
+    for d in &dirs {
+        let Ok(rd) = std::fs::read_dir(d) else {
+            eprintln!("skipping {}: not a folder", d.display());
+            continue;
+        };
+        for e in rd.flatten() {
+            let p = e.path();
+            let dup = files.iter().any(|f| f.file_name() == p.file_name());
+            if p.extension().is_some_and(|x| x == "swc") && !dup {
+                files.push(p);
+            }
+        }
+    }
+    files.sort_by_key(|p| p.file_name().map(|s| s.to_owned()));
+    let opts = FidelityOptions::default();
+    println!(
+        "EPSP: alpha current τ = {} ms at each site (by reciprocity: at the soma), {:?}, dt = {} ms, \
+         full cell cut into pieces ≤ {} λ; default membrane {:?}.\n",
+        opts.tau_ms,
+        opts.method,
+        opts.dt(),
+        opts.pieces.lambda_fraction,
+        Params::default()
+    );
+    println!(
+        "| cell | flags | budget | DC to soma (Np) median / p95 | DC from soma (Np) median / p95 | EPSP peak error median / p95 | time-to-peak error p95 | soma's own EPSP peak error | sites | fine nodes | run (ms) | not peaked | setup (s) |"
+    );
+    println!("|---|---|---|---|---|---|---|---|---|---|---|---|---|");
+    for f in files {
+        match cell(&f, &opts) {
+            Ok(rows) => rows.iter().for_each(|r| println!("{r}")),
+            Err(e) => println!(
+                "| {} | | – | cannot be reduced: {e} | | | | | | | | | |",
+                f.file_stem().unwrap().to_string_lossy()
+            ),
+        }
+    }
+}
