@@ -21,6 +21,7 @@
 pub mod cell;
 pub mod maps;
 pub mod prep;
+pub mod solve;
 
 use crate::morphology::{Flat, NONE};
 
