@@ -251,7 +251,7 @@ pub struct FidelityReport {
 /// DC log attenuation from the soma ln(Z_00/Z_0k) of every node of a parents-first network
 /// (one tree sweep, Hines 1984; Koch & Poggio 1985).
 fn ln_from_soma(parent: &[u32], g: &[f64], shunt: &[f64]) -> Vec<f64> {
-    let z = crate::cable::maps::sweep(parent, g, shunt).z_soma;
+    let z = crate::cable::solve::TreeFactor::new(parent, g, shunt).soma_transfer();
     z.iter().map(|&zk| (z[0] / zk).ln()).collect()
 }
 

@@ -14,13 +14,12 @@
 //! the running peak and its time are kept, the time refined by a parabola through the three
 //! samples around the largest one.
 
-mod factor;
 mod network;
 
 pub use network::{FineNetwork, PieceRule, RcNetwork, fine_network};
 
 use crate::cable::CableError;
-use factor::TreeFactor;
+use crate::cable::solve::TreeFactor;
 
 /// Why a time-domain computation cannot run.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -437,17 +436,6 @@ pub fn simulate(
 mod tests {
     use super::*;
     use crate::morphology::NONE;
-
-    #[test]
-    fn stand_in_factor_solves_a_small_tree() {
-        // A = [[3,-1,-1],[-1,2,0],[-1,0,1.5]] (g 1, 1; shunts 1, 1, 0.5); A·[1,2,3] by hand
-        let f = TreeFactor::new(&[NONE, 0, 0], &[0.0, 1.0, 1.0], &[1.0, 1.0, 0.5]);
-        let mut b = vec![3.0 - 2.0 - 3.0, -1.0 + 4.0, -1.0 + 4.5];
-        f.solve_in_place(&mut b);
-        for (x, want) in b.iter().zip([1.0, 2.0, 3.0]) {
-            assert!((x - want).abs() < 1e-12, "{b:?}");
-        }
-    }
 
     #[test]
     fn bad_options_are_refused_by_name() {
