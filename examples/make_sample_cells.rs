@@ -12,5 +12,10 @@ fn main() -> anyhow::Result<()> {
         let points = text.lines().filter(|l| !l.starts_with('#')).count();
         println!("{}: {points} points, {} bytes", path.display(), text.len());
     }
+    let (name, text) = pollard::samples::generate_synapses();
+    let path = dir.join(name);
+    pollard::export::write_atomic(&path, text.as_bytes(), &[])?;
+    let rows = text.lines().filter(|l| !l.starts_with('#')).count() - 1;
+    println!("{}: {rows} synapses, {} bytes", path.display(), text.len());
     Ok(())
 }

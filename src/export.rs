@@ -134,6 +134,9 @@ struct TreeFile<'a, B: serde::Serialize> {
     feed_forward: crate::reduce::FeedForward,
     site_map: SiteMap,
     report: &'a crate::reduce::Report,
+    /// The synapse table's map ([`crate::synapses`]), when the sites came from one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    synapses: Option<crate::synapses::SynapseJson<'a>>,
     /// A caller's own last member (batch: the cell's record).
     #[serde(skip_serializing_if = "Option::is_none")]
     batch: Option<&'a B>,
@@ -150,7 +153,7 @@ pub fn reduced_tree_json(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json::<()>(src, reducer, tree, report, None, true)
+    tree_json::<()>(src, reducer, tree, report, None, None, true)
 }
 
 /// The same document as [`reduced_tree_json`] without indentation (smaller and faster to write:
@@ -161,7 +164,7 @@ pub fn reduced_tree_json_compact(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json::<()>(src, reducer, tree, report, None, false)
+    tree_json::<()>(src, reducer, tree, report, None, None, false)
 }
 
 /// [`reduced_tree_json_compact`] with one more member, `batch`, last: the batch run's record of
@@ -173,7 +176,21 @@ pub fn reduced_tree_json_with_batch<B: serde::Serialize>(
     report: &crate::reduce::Report,
     batch: &B,
 ) -> Result<String, serde_json::Error> {
-    tree_json(src, reducer, tree, report, Some(batch), false)
+    tree_json(src, reducer, tree, report, None, Some(batch), false)
+}
+
+/// The tree JSON with the optional members: `synapses` (a synapse table's map) and `batch`
+/// (last); `pretty` indents it as [`reduced_tree_json`] does.
+pub fn reduced_tree_json_with<B: serde::Serialize>(
+    src: &TreeSource<'_>,
+    reducer: &crate::reduce::Reducer,
+    tree: &crate::reduce::ReducedTree,
+    report: &crate::reduce::Report,
+    synapses: Option<crate::synapses::SynapseJson<'_>>,
+    batch: Option<&B>,
+    pretty: bool,
+) -> Result<String, serde_json::Error> {
+    tree_json(src, reducer, tree, report, synapses, batch, pretty)
 }
 
 fn tree_json<B: serde::Serialize>(
@@ -181,6 +198,7 @@ fn tree_json<B: serde::Serialize>(
     reducer: &crate::reduce::Reducer,
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
+    synapses: Option<crate::synapses::SynapseJson<'_>>,
     batch: Option<&B>,
     pretty: bool,
 ) -> Result<String, serde_json::Error> {
@@ -240,6 +258,7 @@ fn tree_json<B: serde::Serialize>(
             sites,
         },
         report,
+        synapses,
         batch,
     };
     if pretty {

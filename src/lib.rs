@@ -14,6 +14,7 @@ pub mod neuroml;
 pub mod reduce;
 pub mod samples;
 pub mod swc;
+pub mod synapses;
 pub mod synth;
 pub mod transient;
 

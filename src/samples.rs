@@ -50,6 +50,34 @@ pub const RALL: (usize, f64, f64) = (4, 4.0, 150.0);
 /// y_junction(parent length µm, parent diameter µm, child length µm, child diameter µm, segments)
 pub const Y: (f64, f64, f64, f64, usize) = (200.0, 2.0, 150.0, 1.26, 10);
 
+/// File name and text of the demo cell's invented synapse table (beside the cell, by the
+/// batch naming rule `CELL.synapses.csv`).
+pub const DEMO_SYNAPSES: (&str, &str) = (
+    "practice_pyramidal.synapses.csv",
+    include_str!("../sample_cells/practice_pyramidal.synapses.csv"),
+);
+
+/// The demo synapse table as the generator makes it now (see [`crate::synapses::demo_table`]).
+pub fn generate_synapses() -> (&'static str, String) {
+    use crate::synapses::{DEMO_AFFERENTS, DEMO_SEED, demo_table};
+    let call = format!(
+        "generator: pollard::synapses::demo_table(synth::pyramidal({PYRAMIDAL_SEED}), afferents = {DEMO_AFFERENTS}, seed = {DEMO_SEED})"
+    );
+    let text = demo_table(
+        &synth::pyramidal(PYRAMIDAL_SEED),
+        DEMO_AFFERENTS,
+        DEMO_SEED,
+        &[
+            "INVENTED SYNAPSE TABLE for practice cell 'Larkspur P-11' (practice_pyramidal.swc): made up by a program, not from any recording.",
+            "Part of the Larkspur practice set (a fictional teaching set; see sample_cells/README.md).",
+            &call,
+            "Units: micrometres. Columns: synapse id (ignored by pollard), input, x, y, z, weight.",
+            "Regenerate with: cargo run --example make_sample_cells",
+        ],
+    );
+    (DEMO_SYNAPSES.0, text)
+}
+
 /// The text of the default sample (the pyramidal-like cell).
 pub fn demo_text() -> &'static str {
     SAMPLES[0].text
@@ -170,6 +198,16 @@ mod tests {
                 "{name} differs from its generator: run cargo run --example make_sample_cells"
             );
         }
+    }
+
+    #[test]
+    fn demo_synapse_table_equals_what_the_generator_makes() {
+        let (name, text) = generate_synapses();
+        assert_eq!(name, DEMO_SYNAPSES.0);
+        assert!(
+            text == DEMO_SYNAPSES.1,
+            "{name} differs from its generator: run cargo run --example make_sample_cells"
+        );
     }
 
     #[test]

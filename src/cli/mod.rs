@@ -8,6 +8,7 @@ mod cable;
 mod common;
 mod inspect;
 mod reduce;
+mod synapses;
 mod view;
 
 /// pollard: open a reconstructed neuron (SWC), check it, compute its passive electrical

@@ -4,8 +4,11 @@
 use anyhow::Context;
 use pollard::Morphology;
 use pollard::cable::prepare;
-use pollard::export::{TreeSource, reduced_tree_json, reduced_tree_swc, write_atomic};
+use pollard::export::{
+    TreeSource, reduced_tree_json, reduced_tree_json_with, reduced_tree_swc, write_atomic,
+};
 use pollard::reduce::{ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
+use pollard::synapses::{SynapseJson, SynapseMap, synapse_csvs};
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -24,8 +27,19 @@ pub struct Args {
     pub compartments: usize,
     /// Site list: one SWC id, or one x,y,z position (µm, snapped to the nearest point), per
     /// line. Default: every dendritic point, weighted by membrane area.
-    #[arg(long, value_name = "FILE")]
+    #[arg(long, value_name = "FILE", conflicts_with = "synapses")]
     pub sites: Option<PathBuf>,
+    /// Synapse table (CSV with a header): `input`, then `swc_id` or `x,y,z` (cell units;
+    /// --scale applies), and an optional `weight`. Its synapses become the sites (weight each),
+    /// and the JSON gains the input × compartment matrix (member `synapses`).
+    #[arg(long, value_name = "TABLE.csv")]
+    pub synapses: Option<PathBuf>,
+    #[command(flatten)]
+    pub snap: super::synapses::SnapArgs,
+    /// Also write the synapse map as CSV: PREFIX.inputs.csv, PREFIX.matrix.csv and
+    /// PREFIX.synapses.csv (needs --synapses).
+    #[arg(long = "synapse-csv", value_name = "PREFIX", requires = "synapses")]
+    pub synapse_csv: Option<PathBuf>,
     /// SWC types to keep, comma-separated (e.g. 1,3,4 leaves out the axon); the soma is always
     /// kept. Points of other types, and everything beyond them, are left out entirely.
     #[arg(long, value_delimiter = ',', value_name = "LIST")]
@@ -71,9 +85,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let name = a.cell.display().to_string();
     let m = Morphology::read(&a.cell)?;
     let flat = prepare(&m, &a.geometry.prep()).with_context(|| name.clone())?;
-    let sites = match &a.sites {
-        None => Sites::Default,
+    let snapped = match &a.synapses {
+        None => None,
         Some(p) => {
+            let o = a.snap.options(a.geometry.scale, a.types.clone());
+            Some(super::synapses::load(p, &m, &flat, &o)?)
+        }
+    };
+    let sites = match (&a.sites, &snapped) {
+        (_, Some(s)) => s.sites(),
+        (None, None) => Sites::Default,
+        (Some(p), None) => {
             let text = std::fs::read_to_string(p)
                 .with_context(|| format!("{}: cannot read the site list", p.display()))?;
             Sites::List(parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?)
@@ -96,11 +118,36 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         point_pos: &pos,
     };
     let mut inputs = vec![a.cell.as_path()];
-    if let Some(s) = &a.sites {
-        inputs.push(s.as_path());
-    }
-    let json = reduced_tree_json(&src, &reducer, &tree, &report)?;
+    inputs.extend(a.sites.iter().chain(&a.synapses).map(|p| p.as_path()));
+    let map = match &snapped {
+        Some(s) => Some(SynapseMap::new(s, &tree)?.with_curve(s, &reducer)?),
+        None => None,
+    };
+    let json = match (&snapped, &map) {
+        (Some(s), Some(mp)) => {
+            let member = SynapseJson::new(s, mp, tree.len());
+            reduced_tree_json_with::<()>(&src, &reducer, &tree, &report, Some(member), None, true)?
+        }
+        _ => reduced_tree_json(&src, &reducer, &tree, &report)?,
+    };
+    let csvs = match (&a.synapse_csv, &snapped, &map) {
+        (Some(prefix), Some(s), Some(mp)) => {
+            let texts = synapse_csvs(s, mp, &ids);
+            let names = ["inputs", "matrix", "synapses"];
+            let mut out = Vec::new();
+            for (n, t) in names.iter().zip(texts) {
+                let mut p = prefix.clone().into_os_string();
+                p.push(format!(".{n}.csv"));
+                out.push((PathBuf::from(p), t));
+            }
+            out
+        }
+        _ => Vec::new(),
+    };
     write_atomic(&a.out, json.as_bytes(), &inputs)?;
+    for (p, t) in &csvs {
+        write_atomic(p, t.as_bytes(), &inputs)?;
+    }
     if let Some(path) = &a.swc {
         let header = vec![
             format!("reduced tree of {name}: {} compartments", tree.len()),
@@ -120,7 +167,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             .map_err(std::io::Error::from)
             .and_then(|_| writeln!(out))
     } else {
-        write_report(&mut out, &name, &report, reducer.max_compartments())
+        write_report(&mut out, &name, &report, reducer.max_compartments()).and_then(|_| {
+            match (&snapped, &map) {
+                (Some(s), Some(mp)) => super::synapses::write_summary(&mut out, s, mp),
+                _ => Ok(()),
+            }
+        })
     };
     match written {
         Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),

@@ -109,7 +109,8 @@ pub enum Sites {
     /// Every kept non-soma, non-axon point, weighted by its segment's membrane area.
     #[default]
     Default,
-    /// Listed sites, weight 1 each (see [`parse_sites_csv`]).
+    /// Listed sites: weight 1 each (see [`parse_sites_csv`]), or their own weight
+    /// ([`SiteSpec::Weighted`], from a synapse table).
     List(Vec<SiteSpec>),
 }
 
@@ -447,20 +448,30 @@ impl Reducer {
                 }
                 let mut out = Vec::with_capacity(list.len());
                 for (i, s) in list.iter().enumerate() {
-                    let node = match *s {
-                        SiteSpec::Node { node, line } => {
-                            if node as usize >= n0 {
-                                return Err(ReduceError::SiteOutOfRange { index: i, node });
-                            }
-                            let m = old_to_kept[node as usize];
-                            if m == NONE {
-                                return Err(ReduceError::SiteExcluded { index: i, line });
-                            }
-                            m
+                    let (node, line, weight) = match *s {
+                        SiteSpec::Node { node, line } => (node, line, 1.0),
+                        SiteSpec::Weighted { node, weight, line } => (node, line, weight),
+                        SiteSpec::Position { pos, .. } => {
+                            out.push((nearest(&kept.pos, pos), 1.0));
+                            continue;
                         }
-                        SiteSpec::Position { pos, .. } => nearest(&kept.pos, pos),
                     };
-                    out.push((node, 1.0));
+                    if !(weight.is_finite() && weight > 0.0) {
+                        return Err(ReduceError::OptionRange {
+                            name: "site weight",
+                            value: weight,
+                            lo: f64::MIN_POSITIVE,
+                            hi: f64::MAX,
+                        });
+                    }
+                    if node as usize >= n0 {
+                        return Err(ReduceError::SiteOutOfRange { index: i, node });
+                    }
+                    let m = old_to_kept[node as usize];
+                    if m == NONE {
+                        return Err(ReduceError::SiteExcluded { index: i, line });
+                    }
+                    out.push((m, weight));
                 }
                 out
             }

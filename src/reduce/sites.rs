@@ -16,6 +16,9 @@ pub enum SiteSpec {
     Node { node: u32, line: usize },
     /// A position (µm), snapped to the nearest kept point when the reduction runs.
     Position { pos: [f64; 3], line: usize },
+    /// A node of the [`Flat`] arrays with its own weight (a synapse of a synapse table, see
+    /// [`crate::synapses`]). `line` is the table's line.
+    Weighted { node: u32, weight: f64, line: usize },
 }
 
 /// Reads a site list (see the module doc) for `morph` and its flat arrays `flat`.
