@@ -17,8 +17,7 @@ use criterion::measurement::{Measurement, ValueFormatter};
 use criterion::{BenchmarkId, Criterion, Throughput, criterion_group};
 use nalgebra::DMatrix;
 use num_complex::Complex64 as C64;
-use pollard::cable::maps::sweep;
-use pollard::cable::{CellMaps, Params, PrepOptions, network_arrays, prepare};
+use pollard::cable::{CellMaps, Params, PrepOptions, TreeMaps, network_arrays, prepare};
 use pollard::morphology::Flat;
 use pollard::{Morphology, synth};
 use std::hint::black_box;
@@ -141,11 +140,11 @@ fn maps<M: Measurement>(c: &mut Criterion<M>, name: &str) {
         // the sweeps alone, on a built network
         let (gd, sd) = network_arrays::<f64>(&fl, &p, 0.0).expect("radii are set");
         g.bench_function(BenchmarkId::new("sweeps_dc", label(n)), |b| {
-            b.iter(|| sweep(black_box(&fl.parent), &gd, &sd).z_in.len())
+            b.iter(|| TreeMaps::new(black_box(&fl.parent), &gd, &sd).len())
         });
         let (gc, sc) = network_arrays::<C64>(&fl, &p, 100.0).expect("radii are set");
         g.bench_function(BenchmarkId::new("sweeps_100hz", label(n)), |b| {
-            b.iter(|| sweep(black_box(&fl.parent), &gc, &sc).z_in.len())
+            b.iter(|| TreeMaps::new(black_box(&fl.parent), &gc, &sc).len())
         });
         let m = CellMaps::compute(&fl, &p, 0.0).expect("maps");
         let j = fl.len() - 1;

@@ -20,7 +20,7 @@
 //! Nothing recurses: sections are made breadth-first from a queue, and every pass over nodes is a
 //! loop over the parents-first order.
 
-use crate::cable::{C64, CableError, Maps, Network, Params, UM};
+use crate::cable::{C64, CableError, Network, Params, TreeMaps, UM};
 use crate::morphology::{Flat, Morphology, NONE};
 use crate::swc::{SwcError, SwcFile, SwcPoint};
 use std::collections::{BTreeMap, VecDeque};
@@ -390,7 +390,7 @@ pub struct LabTree {
     pub flat: Flat,
     /// The network with killed tips held at rest.
     pub net: Network,
-    pub maps: Maps,
+    pub maps: TreeMaps<C64>,
     /// Section of each node (node 0, the soma: `NONE`).
     pub node_section: Vec<u32>,
     /// Last node of each section (its tip or fork).
@@ -461,7 +461,7 @@ impl LabTree {
                 killed[k] = true;
             }
         }
-        let maps = Maps::new(&net);
+        let maps = net.maps();
         Ok(LabTree {
             spec: spec.clone(),
             sections: secs,
@@ -497,7 +497,7 @@ impl LabTree {
         if self.killed[k] {
             C64::new(0.0, 0.0)
         } else {
-            self.maps.input_impedance(k)
+            self.maps.input_impedance()[k]
         }
     }
 
@@ -657,9 +657,9 @@ impl LabResult {
             nodes.len() - 1
         };
         let j = nodes[inject_at];
-        let zs = tree.maps.soma_transfer(&tree.net.parent);
+        let zs = tree.maps.soma_transfer();
         let zss = zs[0];
-        let from_tip = tree.maps.site_ratio(&tree.net, j);
+        let from_tip = tree.maps.site_ratio(j).unwrap_or_default();
         let dist_all = tree.path_distance();
         let x_all = tree.electrotonic_distance();
         let v_from_soma_all: Vec<f64> = (0..n).map(|k| (zs[k] / zss).norm()).collect();
@@ -682,9 +682,8 @@ impl LabResult {
                 path.melec_in.push(f64::NAN);
                 path.melec_out.push(f64::NAN);
             } else {
-                let zkk = tree.input_impedance(k);
-                path.melec_in.push((zkk / zs[k]).norm().ln());
-                path.melec_out.push((zss / zs[k]).norm().ln());
+                path.melec_in.push(tree.maps.ln_attenuation_to_soma(k));
+                path.melec_out.push(tree.maps.ln_attenuation_from_soma(k));
             }
         }
         path.nodes = nodes;

@@ -2,7 +2,7 @@
 //! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
 //! values that colour both drawings. Tests and benchmarks drive this directly.
 
-use crate::cable::{C64, Maps, Network, Params};
+use crate::cable::{C64, Network, Params, TreeMaps};
 use crate::morphology::{Flat, Morphology, NONE, kind};
 use std::collections::BTreeMap;
 use std::sync::Arc;
@@ -181,7 +181,7 @@ pub enum LogUnit {
 impl LogUnit {
     pub fn from_ln(self, ln: f64) -> f64 {
         match self {
-            LogUnit::Decibel => ln * 20.0 / std::f64::consts::LN_10,
+            LogUnit::Decibel => crate::cable::solve::db_from_neper(ln),
             LogUnit::Neper => ln,
         }
     }
@@ -532,46 +532,49 @@ impl Model {
     }
 }
 
+/// A voltage level from a log attenuation: ln|V_far/V_near| = −ln A (≤ 0 at DC). The app shows
+/// levels (0 at the source, falling away from it); the library's convention is ln A ≥ 0.
+fn levels(ln_attenuation: Vec<f64>) -> Vec<f64> {
+    ln_attenuation.into_iter().map(|a| -a).collect()
+}
+
 /// Per-node electrical maps of the model at one parameter set and frequency.
 #[derive(Debug, Clone)]
 pub struct Electrical {
-    pub net: Network,
-    pub maps: Maps,
+    pub maps: TreeMaps<C64>,
     /// |Z_kk| (MΩ) per model node.
     pub input_mohm: Vec<f64>,
-    /// ln|V_soma / V_k| for a current at k, per model node (≤ 0).
+    /// ln|V_soma / V_k| for a current at k, per model node (≤ 0): −ln A_{k→s}.
     pub ln_to_soma: Vec<f64>,
 }
 
 impl Electrical {
     pub fn new(flat: &Flat, params: &Params, freq_hz: f64) -> anyhow::Result<Electrical> {
-        let net = Network::build(flat, params, freq_hz)?;
-        let maps = Maps::new(&net);
-        let zs = maps.soma_transfer(&net.parent);
-        let n = net.len();
-        let mut input_mohm = Vec::with_capacity(n);
-        let mut ln_to_soma = Vec::with_capacity(n);
-        for (k, z0) in zs.iter().enumerate() {
-            let zkk = maps.input_impedance(k);
-            input_mohm.push(zkk.norm() * 1e-6);
-            // V_soma/V_k for a current at k = Z_k0 / Z_kk (reciprocity; Koch 1999 ch. 3)
-            ln_to_soma.push((z0 / zkk).norm().ln());
-        }
-        Ok(Electrical {
-            net,
+        let maps = Network::build(flat, params, freq_hz)?.maps();
+        Ok(Electrical::from_maps(maps))
+    }
+
+    fn from_maps(maps: TreeMaps<C64>) -> Electrical {
+        let input_mohm = maps
+            .input_impedance()
+            .iter()
+            .map(|z| z.norm() * 1e-6)
+            .collect();
+        let ln_to_soma = levels(maps.ln_attenuations_to_soma());
+        Electrical {
             maps,
             input_mohm,
             ln_to_soma,
-        })
+        }
     }
 
-    /// ln|V_k / V_site| for a current at `site` (model node).
+    /// ln|V_k / V_site| for a current at `site` (model node; ≤ 0): −ln A_{site→k}. NaN
+    /// everywhere if `site` is not a node.
     pub fn ln_from_site(&self, site: usize) -> Vec<f64> {
-        self.maps
-            .site_ratio(&self.net, site)
-            .iter()
-            .map(|v| v.norm().ln())
-            .collect()
+        match self.maps.ln_attenuations_from_site(site) {
+            Some(a) => levels(a),
+            None => vec![f64::NAN; self.maps.len()],
+        }
     }
 }
 
@@ -579,11 +582,8 @@ impl Electrical {
 #[derive(Clone)]
 pub struct Reduced {
     pub tree: RTree,
-    pub net: Network,
-    pub maps: Maps,
-    pub input_mohm: Vec<f64>,
-    pub ln_to_soma: Vec<f64>,
-    /// ln|V_c / V_site| for the current site (injected at the site's compartment).
+    pub elec: Electrical,
+    /// ln|V_c / V_site| for the current site (injected at the site's compartment; ≤ 0).
     pub ln_from_site: Vec<f64>,
     /// The compartment the site maps to.
     pub site_comp: Option<usize>,
@@ -591,22 +591,10 @@ pub struct Reduced {
 
 impl Reduced {
     fn new(tree: RTree, params: &Params, freq_hz: f64) -> Reduced {
-        let net = tree.network(params, freq_hz);
-        let maps = Maps::new(&net);
-        let zs = maps.soma_transfer(&net.parent);
-        let mut input_mohm = Vec::with_capacity(tree.len());
-        let mut ln_to_soma = Vec::with_capacity(tree.len());
-        for (c, z0) in zs.iter().enumerate() {
-            let z = maps.input_impedance(c);
-            input_mohm.push(z.norm() * 1e-6);
-            ln_to_soma.push((z0 / z).norm().ln());
-        }
+        let elec = Electrical::from_maps(tree.network(params, freq_hz).maps());
         Reduced {
             tree,
-            net,
-            maps,
-            input_mohm,
-            ln_to_soma,
+            elec,
             ln_from_site: Vec::new(),
             site_comp: None,
         }
@@ -618,12 +606,7 @@ impl Reduced {
             .filter(|&c| c != NONE)
             .map(|c| c as usize);
         self.ln_from_site = match self.site_comp {
-            Some(c) => self
-                .maps
-                .site_ratio(&self.net, c)
-                .iter()
-                .map(|v| v.norm().ln())
-                .collect(),
+            Some(c) => self.elec.ln_from_site(c),
             None => vec![f64::NAN; self.tree.len()],
         };
     }
@@ -883,8 +866,8 @@ impl CellState {
         };
         match self.colour_by {
             ColourBy::FromSite => self.unit.from_ln(r.ln_from_site[c]),
-            ColourBy::ToSoma => self.unit.from_ln(r.ln_to_soma[c]),
-            ColourBy::InputResistance => r.input_mohm[c],
+            ColourBy::ToSoma => self.unit.from_ln(r.elec.ln_to_soma[c]),
+            ColourBy::InputResistance => r.elec.input_mohm[c],
             ColourBy::Strahler => r.tree.strahler[c] as f64,
             ColourBy::NeuriteType => r.tree.kind[c] as f64,
         }
@@ -989,7 +972,7 @@ impl CellState {
             t.area_um2[c],
             t.n_points.get(c).copied().unwrap_or(0),
             t.site_count[c],
-            r.input_mohm[c]
+            r.elec.input_mohm[c]
         );
         if t.parent[c] == NONE {
             s = s.replacen(
@@ -1027,7 +1010,7 @@ impl CellState {
             Some(r) => (0..r.tree.len())
                 .filter_map(|c| {
                     let v = if to_soma {
-                        r.ln_to_soma[c]
+                        r.elec.ln_to_soma[c]
                     } else {
                         r.ln_from_site[c]
                     };
@@ -1107,8 +1090,7 @@ mod tests {
         // DC: voltage divider g_a/(g_a + g_leak) from the child to the root for a current at the
         // child (Ohm's law, closed form)
         let net = t.network(&Params::default(), 0.0);
-        let maps = Maps::new(&net);
-        let r = maps.site_ratio(&net, 1);
+        let r = net.maps().site_ratio(1).expect("node 1");
         assert!((r[0].re - 2.0 / 3.0).abs() < 1e-12);
     }
 

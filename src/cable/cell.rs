@@ -22,64 +22,39 @@
 //! - attenuation from the soma A_{s→k} = |V_s/V_k| for current injected at the soma = |Z_ss/Z_ks|;
 //! - both are ≥ 1 and generally differ (Rall & Rinzel 1973: a thin distal branch attenuates
 //!   strongly towards the soma and hardly at all from it);
-//! - the log attenuation ln A (nepers; [`neper`], or [`db`] for decibels) is additive along a
+//! - the log attenuation ln A (nepers; [`super::neper`], or [`super::db`] for decibels) is additive along a
 //!   path: for m between k and the soma, ln A_{k→s} = ln A_{k→m} + ln A_{m→s} (the
 //!   morphoelectrotonic transform of Zador, Agmon-Snir & Segev 1995).
 //!
 //! At f > 0 every impedance is complex; "resistances" reported in MΩ are magnitudes |Z|.
 //! At DC the work is done in `f64` (a fast path), otherwise in complex numbers.
 
-use super::maps::{Sweep, site_ratio_t, sweep};
+use super::solve::TreeMaps;
 use super::{C64, CableError, Params, Scalar, network_arrays, segment_electrotonic_length};
 use crate::morphology::{Flat, NONE};
 
-/// Log attenuation in nepers: ln A.
-pub fn neper(attenuation: f64) -> f64 {
-    attenuation.ln()
-}
-
-/// Log attenuation in decibels: 20·log10 A (a voltage ratio).
-pub fn db(attenuation: f64) -> f64 {
-    20.0 * attenuation.log10()
-}
-
+/// The kernel's maps, in `f64` at DC (the fast path) or complex above.
 #[derive(Debug, Clone)]
 enum Store {
-    Dc { g: Vec<f64>, s: Sweep<f64> },
-    Ac { g: Vec<C64>, s: Sweep<C64> },
+    Dc(TreeMaps<f64>),
+    Ac(TreeMaps<C64>),
 }
 
 /// Passive maps of one cell at one frequency (see the module doc).
 ///
 /// Nodes are those of [`Flat`]: node 0 is the whole soma, node k > 0 one main-tree point.
 /// Per-point access goes through `Flat::point_node`; points outside the main tree have none.
+/// Every number comes from the one tree kernel ([`super::solve::TreeMaps`]), which also owns
+/// the log attenuations and their fallback when |Z_ks| underflows.
 #[derive(Debug, Clone)]
 pub struct CellMaps {
     pub freq_hz: f64,
     pub params: Params,
-    /// Parent node of each node (`NONE` for node 0), parents first.
-    pub parent: Vec<u32>,
     /// For each morphology point, its node or `NONE` (copied from [`Flat`]).
     pub point_node: Vec<u32>,
     /// For each node, one morphology point it stands for (copied from [`Flat`]).
     pub node_point: Vec<u32>,
     store: Store,
-    /// ln|Z_ks| per node, kept only when some |Z_ks| left the range of f64 (a cell many length
-    /// constants long, or a high frequency): then attenuations are taken from logs, summed along
-    /// the path (additive, Zador, Agmon-Snir & Segev 1995), so they saturate at +∞, never NaN.
-    ln_z_soma: Option<Vec<f64>>,
-}
-
-/// ln|Z_k0| at every node from the link ratios: ln|Z_00| + Σ ln|g_k/(g_k + D_k)| along the path.
-fn ln_soma_transfer<T: Scalar>(parent: &[u32], s: &Sweep<T>) -> Vec<f64> {
-    let mut l = vec![0.0; parent.len()];
-    if let Some(first) = l.first_mut() {
-        *first = s.z_in[0].abs().ln();
-    }
-    for k in 1..parent.len() {
-        l[k] = l[parent[k] as usize] + s.down[k].abs().ln();
-    }
-    l
 }
 
 /// The maps at one SWC point.
@@ -136,10 +111,10 @@ pub struct Summary {
 }
 
 macro_rules! with_store {
-    ($self:expr, |$g:ident, $s:ident| $body:expr) => {
+    ($self:expr, |$m:ident| $body:expr) => {
         match &$self.store {
-            Store::Dc { g: $g, s: $s } => $body,
-            Store::Ac { g: $g, s: $s } => $body,
+            Store::Dc($m) => $body,
+            Store::Ac($m) => $body,
         }
     };
 }
@@ -151,57 +126,45 @@ impl CellMaps {
         if flat.is_empty() {
             return Err(CableError::Empty);
         }
+        let parent = flat.parent.clone();
         let store = if freq_hz == 0.0 {
             let (g, shunt) = network_arrays::<f64>(flat, params, freq_hz)?;
-            let s = sweep(&flat.parent, &g, &shunt);
-            Store::Dc { g, s }
+            Store::Dc(TreeMaps::from_vecs(parent, g, shunt))
         } else {
             let (g, shunt) = network_arrays::<C64>(flat, params, freq_hz)?;
-            let s = sweep(&flat.parent, &g, &shunt);
-            Store::Ac { g, s }
-        };
-        // |Z_ks| is a product of link ratios: far from the soma it can underflow
-        let tiny = |x: f64| !(x >= f64::MIN_POSITIVE && x.is_finite());
-        let ln_z_soma = match &store {
-            Store::Dc { s, .. } => s
-                .z_soma
-                .iter()
-                .any(|z| tiny(z.abs()))
-                .then(|| ln_soma_transfer(&flat.parent, s)),
-            Store::Ac { s, .. } => s
-                .z_soma
-                .iter()
-                .any(|z| tiny(z.abs()))
-                .then(|| ln_soma_transfer(&flat.parent, s)),
+            Store::Ac(TreeMaps::from_vecs(parent, g, shunt))
         };
         Ok(CellMaps {
             freq_hz,
             params: *params,
-            parent: flat.parent.clone(),
             point_node: flat.point_node.clone(),
             node_point: flat.node_point.clone(),
             store,
-            ln_z_soma,
         })
+    }
+
+    /// Parent node of each node (`NONE` for node 0), parents first.
+    pub fn parent(&self) -> &[u32] {
+        with_store!(self, |m| m.parent())
     }
 
     /// Number of nodes.
     pub fn len(&self) -> usize {
-        self.parent.len()
+        with_store!(self, |m| m.len())
     }
 
     pub fn is_empty(&self) -> bool {
-        self.parent.is_empty()
+        self.len() == 0
     }
 
     /// Input impedance Z_kk of node k (Ω).
     pub fn z_in(&self, k: usize) -> C64 {
-        with_store!(self, |_g, s| s.z_in[k].to_c64())
+        with_store!(self, |m| m.input_impedance()[k].to_c64())
     }
 
     /// Transfer impedance Z_ks between node k and the soma (Ω).
     pub fn z_soma(&self, k: usize) -> C64 {
-        with_store!(self, |_g, s| s.z_soma[k].to_c64())
+        with_store!(self, |m| m.soma_transfer()[k].to_c64())
     }
 
     /// Z_ss, the soma's input impedance (Ω).
@@ -211,50 +174,46 @@ impl CellMaps {
 
     /// Input impedance at every node (Ω).
     pub fn input_impedances(&self) -> Vec<C64> {
-        with_store!(self, |_g, s| s.z_in.iter().map(|z| z.to_c64()).collect())
+        with_store!(self, |m| m
+            .input_impedance()
+            .iter()
+            .map(|z| z.to_c64())
+            .collect())
     }
 
     /// Transfer impedance to the soma at every node (Ω).
     pub fn soma_transfers(&self) -> Vec<C64> {
-        with_store!(self, |_g, s| s.z_soma.iter().map(|z| z.to_c64()).collect())
+        with_store!(self, |m| m
+            .soma_transfer()
+            .iter()
+            .map(|z| z.to_c64())
+            .collect())
     }
 
     /// |Z_kk| in MΩ.
     pub fn input_resistance_mohm(&self, k: usize) -> f64 {
-        with_store!(self, |_g, s| s.z_in[k].abs() * 1e-6)
+        with_store!(self, |m| m.input_impedance()[k].abs() * 1e-6)
     }
 
     /// A_{k→s} = |Z_kk / Z_ks| (+∞ when it exceeds the range of f64; never NaN).
     pub fn attenuation_to_soma(&self, k: usize) -> f64 {
-        match &self.ln_z_soma {
-            Some(_) => self.log_attenuation_to_soma(k).exp(),
-            None => with_store!(self, |_g, s| (s.z_in[k] / s.z_soma[k]).abs()),
-        }
+        with_store!(self, |m| m.attenuation_to_soma(k))
     }
 
     /// A_{s→k} = |Z_ss / Z_ks| (+∞ when it exceeds the range of f64; never NaN).
     pub fn attenuation_from_soma(&self, k: usize) -> f64 {
-        match &self.ln_z_soma {
-            Some(_) => self.log_attenuation_from_soma(k).exp(),
-            None => with_store!(self, |_g, s| (s.z_in[0] / s.z_soma[k]).abs()),
-        }
+        with_store!(self, |m| m.attenuation_from_soma(k))
     }
 
-    /// ln A_{k→s} (nepers), additive along paths (Zador, Agmon-Snir & Segev 1995); finite even
-    /// where A itself is too large for f64.
+    /// ln A_{k→s} (nepers, ≥ 0), additive along paths (Zador, Agmon-Snir & Segev 1995); finite
+    /// even where A itself is too large for f64.
     pub fn log_attenuation_to_soma(&self, k: usize) -> f64 {
-        match &self.ln_z_soma {
-            Some(l) => with_store!(self, |_g, s| s.z_in[k].abs().ln() - l[k]),
-            None => neper(self.attenuation_to_soma(k)),
-        }
+        with_store!(self, |m| m.ln_attenuation_to_soma(k))
     }
 
-    /// ln A_{s→k} (nepers); finite even where A itself is too large for f64.
+    /// ln A_{s→k} (nepers, ≥ 0); finite even where A itself is too large for f64.
     pub fn log_attenuation_from_soma(&self, k: usize) -> f64 {
-        match &self.ln_z_soma {
-            Some(l) => with_store!(self, |_g, s| s.z_in[0].abs().ln() - l[k]),
-            None => neper(self.attenuation_from_soma(k)),
-        }
+        with_store!(self, |m| m.ln_attenuation_from_soma(k))
     }
 
     /// The maps at node k.
@@ -287,13 +246,15 @@ impl CellMaps {
     /// V_k / V_j at every node k for a current injected at node `j` (complex; one O(N) pass).
     /// None when `j` is not a node.
     pub fn site_ratio(&self, j: usize) -> Option<Vec<C64>> {
-        with_store!(self, |g, s| site_ratio_t(&self.parent, g, &s.p, &s.down, j)
+        with_store!(self, |m| m
+            .site_ratio(j)
             .map(|v| v.into_iter().map(|x| x.to_c64()).collect()))
     }
 
     /// |V_k / V_j| at every node k for a current injected at node `j`. None when `j` is not a node.
     pub fn site_ratio_abs(&self, j: usize) -> Option<Vec<f64>> {
-        with_store!(self, |g, s| site_ratio_t(&self.parent, g, &s.p, &s.down, j)
+        with_store!(self, |m| m
+            .site_ratio(j)
             .map(|v| v.into_iter().map(|x| x.abs()).collect()))
     }
 

@@ -14,9 +14,13 @@
 //!   resistance, τ, Σ l/λ of every tip's path). Per SWC point through `Flat::point_node`.
 //! - [`prep`]: a morphology (or parsed file) → prepared [`Flat`] (`--scale`, `--default-diameter`,
 //!   extent check; [`prep::cable_input`] skips the full morphology for plain files).
-//! - [`Network::build`] + [`Maps::new`]: the complex network and the sweeps' raw quantities
-//!   (D, P, U, down) for code that needs them (reduction).
-//! - [`network_arrays`] + [`maps::sweep`]: the same in any [`Scalar`] (`f64` at DC).
+//! - [`solve`]: the one tree-solve kernel. [`TreeFactor`] (O(N) elimination, in-place solves)
+//!   and [`TreeMaps`] (D, P, U, Z_kk, Z_k0, down, site columns, log attenuations ln A ≥ 0 with
+//!   the summed-log fallback), in any [`Scalar`] (`f64` at DC, [`C64`] above). Everything that
+//!   solves a tree network calls it.
+//! - [`Network::build`] + [`Network::maps`], or [`network_arrays`] + [`TreeMaps::new`]: the
+//!   network of a prepared cell and its maps. ([`maps`] keeps thin array adapters for callers
+//!   not yet moved.)
 
 pub mod cell;
 pub mod maps;
@@ -25,10 +29,11 @@ pub mod solve;
 
 use crate::morphology::{Flat, NONE};
 
-pub use cell::{CellMaps, PointMaps, Summary, TipPath, db, neper};
+pub use cell::{CellMaps, PointMaps, Summary, TipPath};
 pub use maps::Maps;
 use num_complex::Complex64;
 pub use prep::{PrepOptions, prepare};
+pub use solve::{TreeFactor, TreeMaps, db, neper};
 use std::ops::{Add, AddAssign, Div, Mul, Sub};
 
 pub type C64 = Complex64;
@@ -446,6 +451,12 @@ impl Network {
 
     pub fn is_empty(&self) -> bool {
         self.parent.is_empty()
+    }
+
+    /// The one tree kernel's maps of this network ([`TreeMaps`]): D, P, U, Z_kk, Z_k0, site
+    /// columns and log attenuations, O(N).
+    pub fn maps(&self) -> TreeMaps<C64> {
+        TreeMaps::new(&self.parent, &self.g, &self.shunt)
     }
 
     /// Children lists in CSR form (start offsets, child nodes), built with two loops.
