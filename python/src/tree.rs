@@ -1,0 +1,482 @@
+//! `pollard.reduce` and the `ReducedTree` it returns (also loaded back with `from_json`).
+
+use crate::{arr, arr3, cell_of, fail, flat_of, json_to_py, work};
+use numpy::ndarray::Array2;
+use numpy::{IntoPyArray, PyArray1, PyArray2};
+use pollard::cable::Params;
+use pollard::export::{TreeSource, reduced_tree_json, write_atomic};
+use pollard::morphology::NONE;
+use pollard::reduce::{Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv};
+use pyo3::prelude::*;
+use pyo3::types::{PyDict, PyList};
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+/// How the tree's JSON is had: made from the reducer, or as it was read.
+enum Origin {
+    Made {
+        reducer: Arc<Reducer>,
+        report: Box<Report>,
+        ids: Vec<i64>,
+        pos: Vec<[f64; 3]>,
+        source: String,
+        inputs: Vec<PathBuf>,
+    },
+    Loaded {
+        text: String,
+        path: PathBuf,
+    },
+}
+
+/// A strict binary compartment tree: per compartment (ids parents-first, the soma is 0) numpy
+/// arrays of its parent, children, axial and leak conductance (nS), capacitance (pF), position
+/// (µm), membrane area (µm²) and depth; the point → compartment and site → compartment maps;
+/// the exact DC feed-forward form; and the report.
+#[pyclass(module = "pollard._pollard", frozen)]
+pub struct ReducedTree {
+    tree: pollard::reduce::ReducedTree,
+    report_json: String,
+    point_ids: Vec<i64>,
+    origin: Origin,
+}
+
+fn opt_index(v: Option<u32>) -> i64 {
+    v.map_or(-1, |x| x as i64)
+}
+
+#[pymethods]
+impl ReducedTree {
+    fn __len__(&self) -> usize {
+        self.tree.len()
+    }
+    fn __repr__(&self) -> String {
+        format!("<pollard.ReducedTree ({} compartments)>", self.tree.len())
+    }
+    /// Parent compartment of each compartment, -1 at the soma (int64).
+    #[getter]
+    fn parent<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        arr(py, self.col(|c| opt_index(c.parent)))
+    }
+    /// The two children of each compartment, -1 -1 for a leaf (int64, shape (n, 2)).
+    #[getter]
+    fn children<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyArray2<i64>>> {
+        let flat: Vec<i64> = self
+            .tree
+            .compartments
+            .iter()
+            .flat_map(|c| c.children.map_or([-1, -1], |k| k.map(|x| x as i64)))
+            .collect();
+        let a = Array2::from_shape_vec((self.tree.len(), 2), flat).map_err(fail)?;
+        Ok(a.into_pyarray(py))
+    }
+    /// Axial conductance to the parent (nS); 0 at the soma.
+    #[getter]
+    fn g_axial_ns<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        arr(py, self.col(|c| c.g_axial_ns))
+    }
+    /// Leak conductance (nS).
+    #[getter]
+    fn g_leak_ns<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        arr(py, self.col(|c| c.g_leak_ns))
+    }
+    /// Capacitance (pF).
+    #[getter]
+    fn capacitance_pf<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        arr(py, self.col(|c| c.capacitance_pf))
+    }
+    /// Position of the point each compartment is named after (µm, shape (n, 3)).
+    #[getter]
+    fn position_um<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyArray2<f64>>> {
+        arr3(py, &self.col(|c| c.position_um))
+    }
+    /// Membrane area of the points mapped to each compartment (µm²).
+    #[getter]
+    fn membrane_area_um2<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        arr(py, self.col(|c| c.membrane_area_um2))
+    }
+    /// Links to the soma (int64; the soma 0).
+    #[getter]
+    fn depth<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        arr(py, self.col(|c| c.depth as i64))
+    }
+    /// SWC type of the point each compartment is named after (int32).
+    #[getter]
+    fn swc_type<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i32>> {
+        arr(py, self.col(|c| c.swc_type))
+    }
+    /// What each compartment is named after: soma, branch_point, tip, junction, soma_leaf.
+    #[getter]
+    fn role(&self) -> Vec<&'static str> {
+        self.col(|c| role_name(c.role))
+    }
+    /// SWC id of every point of the cell (the order of `point_compartment`).
+    #[getter]
+    fn point_ids<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        arr(py, self.point_ids.clone())
+    }
+    /// Compartment of every point, -1 for points left out (other trees, type filter).
+    #[getter]
+    fn point_compartment<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        let v = self.tree.point_compartment.iter();
+        arr(
+            py,
+            v.map(|&c| if c == NONE { -1 } else { c as i64 }).collect(),
+        )
+    }
+    /// Compartment of every synapse site, in the order of the report's sites.
+    #[getter]
+    fn site_compartment<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        arr(
+            py,
+            self.tree
+                .site_compartment
+                .iter()
+                .map(|&c| c as i64)
+                .collect(),
+        )
+    }
+    /// The exact DC feed-forward form: `w` (current-transfer ratio to the parent, NaN at the
+    /// soma), `subtree_conductance_ns`, `root_input_conductance_ns` and `layers` (compartment
+    /// ids by depth). The soma voltage for injected currents I is
+    /// sum_k I_k * prod(w on k's path) / root_input_conductance_ns (pA / nS = mV).
+    #[getter]
+    fn feed_forward<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let f = self.tree.feed_forward();
+        let d = PyDict::new(py);
+        d.set_item(
+            "w",
+            arr(py, f.w.iter().map(|w| w.unwrap_or(f64::NAN)).collect()),
+        )?;
+        d.set_item("subtree_conductance_ns", arr(py, f.subtree_conductance_ns))?;
+        d.set_item("root_input_conductance_ns", f.root_input_conductance_ns)?;
+        let layers = PyList::empty(py);
+        for l in f.layers {
+            layers.append(arr(py, l.into_iter().map(|x| x as i64).collect()))?;
+        }
+        d.set_item("layers", layers)?;
+        Ok(d)
+    }
+    /// What was lost (the report of `pollard reduce --json`), as a dict.
+    #[getter]
+    fn report<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        json_to_py(py, &self.report_json)
+    }
+    /// Writes the tree exactly as `pollard reduce --out` does (atomically; never over the
+    /// input cell).
+    fn to_json(&self, py: Python<'_>, path: PathBuf) -> PyResult<()> {
+        work(py, || {
+            let (text, inputs) = self.json_text()?;
+            let ins: Vec<&Path> = inputs.iter().map(|p| p.as_path()).collect();
+            write_atomic(&path, text.as_bytes(), &ins).map_err(|e| e.to_string())
+        })
+    }
+    /// Writes the tree as a NeuroML v2 cell, as `pollard reduce --neuroml` does.
+    #[pyo3(signature = (path, cell_id=None, rest_mv=-65.0))]
+    fn to_neuroml(
+        &self,
+        py: Python<'_>,
+        path: PathBuf,
+        cell_id: Option<String>,
+        rest_mv: f64,
+    ) -> PyResult<()> {
+        work(py, || {
+            let (source, inputs) = match &self.origin {
+                Origin::Made { source, inputs, .. } => (source.clone(), inputs.clone()),
+                Origin::Loaded { path, .. } => (path.display().to_string(), vec![path.clone()]),
+            };
+            let id = cell_id.unwrap_or_else(|| pollard::neuroml::cell_id_from(&source));
+            let nml = pollard::neuroml::reduced_tree_neuroml(&self.tree, &id, &source, rest_mv)
+                .map_err(|e| format!("{}: {e}", path.display()))?;
+            let ins: Vec<&Path> = inputs.iter().map(|p| p.as_path()).collect();
+            write_atomic(&path, nml.as_bytes(), &ins).map_err(|e| e.to_string())
+        })
+    }
+    /// Reads a tree written by `pollard reduce --out` or `to_json`.
+    #[staticmethod]
+    fn from_json(py: Python<'_>, path: PathBuf) -> PyResult<ReducedTree> {
+        work(py, || {
+            load(&path).map_err(|e| format!("{}: {e}", path.display()))
+        })
+    }
+}
+
+impl ReducedTree {
+    fn col<T>(&self, f: impl Fn(&Compartment) -> T) -> Vec<T> {
+        self.tree.compartments.iter().map(f).collect()
+    }
+
+    fn json_text(&self) -> Result<(String, Vec<PathBuf>), String> {
+        match &self.origin {
+            Origin::Made {
+                reducer,
+                report,
+                ids,
+                pos,
+                source,
+                inputs,
+            } => {
+                let src = TreeSource {
+                    source,
+                    point_ids: ids,
+                    point_pos: pos,
+                };
+                let text = reduced_tree_json(&src, reducer, &self.tree, report)
+                    .map_err(|e| e.to_string())?;
+                Ok((text, inputs.clone()))
+            }
+            Origin::Loaded { text, path } => Ok((text.clone(), vec![path.clone()])),
+        }
+    }
+}
+
+fn role_name(r: Role) -> &'static str {
+    match r {
+        Role::Soma => "soma",
+        Role::BranchPoint => "branch_point",
+        Role::Tip => "tip",
+        Role::Junction => "junction",
+        Role::SomaLeaf => "soma_leaf",
+    }
+}
+
+/// The site list as the text `parse_sites_csv` reads: a path, SWC ids, or x,y,z positions.
+fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
+    if let Ok(ids) = sites.extract::<Vec<i64>>() {
+        let t: Vec<String> = ids.iter().map(|i| i.to_string()).collect();
+        return Ok((t.join("\n"), None));
+    }
+    if let Ok(xyz) = sites.extract::<Vec<[f64; 3]>>() {
+        let t: Vec<String> = xyz
+            .iter()
+            .map(|p| format!("{:?},{:?},{:?}", p[0], p[1], p[2]))
+            .collect();
+        return Ok((t.join("\n"), None));
+    }
+    if let Ok(p) = sites.extract::<PathBuf>() {
+        let text = std::fs::read_to_string(&p)
+            .map_err(|e| fail(format!("{}: cannot read the site list: {e}", p.display())))?;
+        return Ok((text, Some(p)));
+    }
+    Err(fail(
+        "sites: expected a path to a site list, a list of SWC ids, or a list of (x, y, z)",
+    ))
+}
+
+/// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
+/// command `pollard reduce`).
+#[pyfunction]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, freq=100.0, junction_fraction=1e-4, scale=None, default_diameter=None))]
+#[allow(clippy::too_many_arguments)]
+pub fn reduce(
+    py: Python<'_>,
+    cell: &Bound<'_, PyAny>,
+    compartments: usize,
+    sites: Option<&Bound<'_, PyAny>>,
+    types: Option<Vec<i32>>,
+    rm: f64,
+    ra: f64,
+    cm: f64,
+    freq: f64,
+    junction_fraction: f64,
+    scale: Option<f64>,
+    default_diameter: Option<f64>,
+) -> PyResult<ReducedTree> {
+    let (m, prep) = cell_of(py, cell, scale, default_diameter)?;
+    let site_text = sites.map(sites_text).transpose()?;
+    let params = Params {
+        rm_ohm_cm2: rm,
+        ra_ohm_cm: ra,
+        cm_uf_cm2: cm,
+    };
+    work(py, move || {
+        let name = m.source.clone();
+        let flat = flat_of(&m, &prep)?;
+        let mut inputs = vec![PathBuf::from(&name)];
+        let sites = match &site_text {
+            None => Sites::Default,
+            Some((text, file)) => {
+                let label = file
+                    .as_ref()
+                    .map_or("sites".to_string(), |p| p.display().to_string());
+                inputs.extend(file.iter().cloned());
+                Sites::List(parse_sites_csv(text, &m, &flat).map_err(|e| format!("{label}: {e}"))?)
+            }
+        };
+        let opts = ReduceOptions {
+            types,
+            sites,
+            freq_hz: freq,
+            junction_length_fraction: junction_fraction,
+        };
+        let reducer = Reducer::new(&flat, &params, &opts).map_err(|e| format!("{name}: {e}"))?;
+        let tree = reducer.tree(compartments);
+        let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
+        let report_json = serde_json::to_string(&report).map_err(|e| e.to_string())?;
+        let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
+        Ok(ReducedTree {
+            tree,
+            report_json,
+            point_ids: ids.clone(),
+            origin: Origin::Made {
+                reducer: Arc::new(reducer),
+                report: Box::new(report),
+                ids,
+                pos: m.points.iter().map(|p| p.pos).collect(),
+                source: name,
+                inputs,
+            },
+        })
+    })
+}
+
+fn num(v: &Value, what: &str) -> Result<f64, String> {
+    v.as_f64()
+        .ok_or_else(|| format!("{what} is not a number: {v}"))
+}
+
+fn int(v: &Value, what: &str) -> Result<u64, String> {
+    v.as_u64()
+        .ok_or_else(|| format!("{what} is not a whole number: {v}"))
+}
+
+fn role_of(s: &str) -> Result<Role, String> {
+    Ok(match s {
+        "soma" => Role::Soma,
+        "branch_point" => Role::BranchPoint,
+        "tip" => Role::Tip,
+        "junction" => Role::Junction,
+        "soma_leaf" => Role::SomaLeaf,
+        _ => return Err(format!("unknown compartment role {s:?}")),
+    })
+}
+
+fn compartment(c: &Value, k: usize) -> Result<Compartment, String> {
+    let at = |f: &str| format!("compartment {k}: {f}");
+    let get = |f: &str| c.get(f).ok_or_else(|| at(&format!("{f} is missing")));
+    let parent = match get("parent")? {
+        Value::Null => None,
+        v => Some(int(v, &at("parent"))? as u32),
+    };
+    let kids = get("children")?
+        .as_array()
+        .ok_or_else(|| at("children is not a list"))?;
+    let children = match kids.as_slice() {
+        [] => None,
+        [a, b] => Some([int(a, &at("child"))? as u32, int(b, &at("child"))? as u32]),
+        _ => return Err(at("has neither 0 nor 2 children")),
+    };
+    let pos = get("position_um")?
+        .as_array()
+        .filter(|p| p.len() == 3)
+        .ok_or_else(|| at("position_um is not 3 numbers"))?;
+    let mut position_um = [0.0; 3];
+    for (x, v) in position_um.iter_mut().zip(pos) {
+        *x = num(v, &at("position_um"))?;
+    }
+    Ok(Compartment {
+        id: int(get("id")?, &at("id"))? as u32,
+        parent,
+        children,
+        g_axial_ns: num(get("g_axial_ns")?, &at("g_axial_ns"))?,
+        g_leak_ns: num(get("g_leak_ns")?, &at("g_leak_ns"))?,
+        capacitance_pf: num(get("capacitance_pf")?, &at("capacitance_pf"))?,
+        position_um,
+        membrane_area_um2: num(get("membrane_area_um2")?, &at("membrane_area_um2"))?,
+        site_count: int(get("site_count")?, &at("site_count"))? as u32,
+        depth: int(get("depth")?, &at("depth"))? as u32,
+        swc_type: get("swc_type")?.as_i64().unwrap_or(0) as i32,
+        role: role_of(get("role")?.as_str().unwrap_or(""))?,
+        swc_line: int(get("swc_line")?, &at("swc_line"))? as usize,
+    })
+}
+
+/// A reduced-tree JSON file back into a tree (errors name the fault; serde's name the line).
+fn load(path: &Path) -> Result<ReducedTree, String> {
+    let text = std::fs::read_to_string(path).map_err(|e| format!("cannot read the file: {e}"))?;
+    let doc: Value = serde_json::from_str(&text).map_err(|e| e.to_string())?;
+    if doc.get("format").and_then(Value::as_str) != Some(pollard::export::REDUCED_TREE_FORMAT) {
+        return Err(
+            "not a pollard reduced tree (its \"format\" is not pollard.reduced-tree)".into(),
+        );
+    }
+    let version = doc.get("schema_version").and_then(Value::as_u64);
+    if version != Some(pollard::export::REDUCED_TREE_SCHEMA_VERSION as u64) {
+        return Err(format!(
+            "schema_version {version:?} is not one this version reads"
+        ));
+    }
+    let field = |f: &str| doc.get(f).ok_or_else(|| format!("{f} is missing"));
+    let p = field("parameters")?;
+    let params = Params {
+        rm_ohm_cm2: num(&p["rm_ohm_cm2"], "parameters.rm_ohm_cm2")?,
+        ra_ohm_cm: num(&p["ra_ohm_cm"], "parameters.ra_ohm_cm")?,
+        cm_uf_cm2: num(&p["cm_uf_cm2"], "parameters.cm_uf_cm2")?,
+    };
+    let comps = field("compartments")?
+        .as_array()
+        .ok_or("compartments is not a list")?;
+    let compartments = comps
+        .iter()
+        .enumerate()
+        .map(|(k, c)| compartment(c, k))
+        .collect::<Result<Vec<_>, _>>()?;
+    for (k, c) in compartments.iter().enumerate() {
+        if c.id as usize != k
+            || c.parent.is_some_and(|q| q as usize >= k)
+            || (k == 0) != c.parent.is_none()
+        {
+            return Err(format!(
+                "compartment {k}: ids are not parents-first from the soma"
+            ));
+        }
+    }
+    let sm = field("site_map")?;
+    let points = &sm["points"];
+    let ids = points["swc_id"]
+        .as_array()
+        .ok_or("site_map.points.swc_id is not a list")?;
+    let point_ids = ids
+        .iter()
+        .map(|v| {
+            v.as_i64()
+                .ok_or("site_map.points.swc_id holds a non-integer")
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+    let pc = points["compartment"]
+        .as_array()
+        .ok_or("site_map.points.compartment is not a list")?;
+    let point_compartment = pc
+        .iter()
+        .map(|v| v.as_u64().map_or(NONE, |c| c as u32))
+        .collect();
+    let sites = sm["sites"]
+        .as_array()
+        .ok_or("site_map.sites is not a list")?;
+    let site_compartment = sites
+        .iter()
+        .map(|s| int(&s["compartment"], "site_map.sites[].compartment").map(|c| c as u32))
+        .collect::<Result<Vec<_>, _>>()?;
+    let report = field("report")?.to_string();
+    let tree = pollard::reduce::ReducedTree {
+        requested: int(
+            &p["compartments_requested"],
+            "parameters.compartments_requested",
+        )? as usize,
+        rounded_down: doc["report"]["rounded_down"].as_bool().unwrap_or(false),
+        clamped: doc["report"]["clamped"].as_bool().unwrap_or(false),
+        params,
+        compartments,
+        point_compartment,
+        site_compartment,
+    };
+    Ok(ReducedTree {
+        tree,
+        report_json: report,
+        point_ids,
+        origin: Origin::Loaded {
+            text,
+            path: path.to_path_buf(),
+        },
+    })
+}

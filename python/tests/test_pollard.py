@@ -1,0 +1,254 @@
+"""Tests of the Python package against the command line and against numpy.
+
+The command line binary is $POLLARD_CLI, else the repository's target/release/pollard or
+target/debug/pollard (CI builds it first).
+"""
+
+import json
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import pollard
+
+REPO = Path(__file__).resolve().parents[2]
+SAMPLES = sorted((REPO / "sample_cells").glob("*.swc"))
+MALFORMED = REPO / "tests" / "malformed"
+sys.path.insert(0, str(REPO / "tests"))
+import neuroml_reader  # noqa: E402  (the independent NeuroML reader, numpy only)
+
+
+def cli_binary():
+    env = os.environ.get("POLLARD_CLI")
+    if env:
+        return env
+    for kind in ("release", "debug"):
+        p = REPO / "target" / kind / "pollard"
+        if p.exists():
+            return str(p)
+    pytest.skip("no pollard binary built")
+
+
+def cli(*args, check=True):
+    return subprocess.run([cli_binary(), *map(str, args)], capture_output=True, text=True,
+                          check=check)
+
+
+def cli_tree(tmp_path, cell, n, *extra):
+    out = tmp_path / f"cli-{cell.stem}-{n}.json"
+    cli("reduce", cell, "--compartments", n, "--out", out, *extra)
+    return out, json.loads(out.read_text())
+
+
+# ---------------------------------------------------------------- arrays agree with the CLI JSON
+
+@pytest.mark.parametrize("cell", SAMPLES, ids=lambda p: p.stem)
+@pytest.mark.parametrize("n", [1, 31, 10000])
+def test_arrays_agree_with_the_cli_json(tmp_path, cell, n):
+    path, doc = cli_tree(tmp_path, cell, n)
+    tree = pollard.reduce(str(cell), compartments=n)
+    comps = doc["compartments"]
+    assert len(tree) == len(comps)
+    # exact equality: the same library computed both, and JSON floats round-trip
+    for name in ("g_axial_ns", "g_leak_ns", "capacitance_pf", "membrane_area_um2"):
+        np.testing.assert_array_equal(getattr(tree, name), [c[name] for c in comps])
+    np.testing.assert_array_equal(tree.parent, [-1 if c["parent"] is None else c["parent"]
+                                                for c in comps])
+    np.testing.assert_array_equal(tree.children, [c["children"] or [-1, -1] for c in comps])
+    np.testing.assert_array_equal(tree.position_um, [c["position_um"] for c in comps])
+    np.testing.assert_array_equal(tree.depth, [c["depth"] for c in comps])
+    assert tree.role == [c["role"] for c in comps]
+    pm = doc["site_map"]["points"]
+    np.testing.assert_array_equal(tree.point_ids, pm["swc_id"])
+    np.testing.assert_array_equal(tree.point_compartment,
+                                  [-1 if c is None else c for c in pm["compartment"]])
+    np.testing.assert_array_equal(tree.site_compartment,
+                                  [s["compartment"] for s in doc["site_map"]["sites"]])
+    ff = tree.feed_forward
+    np.testing.assert_array_equal(ff["w"], [np.nan if w is None else w
+                                            for w in doc["feed_forward"]["w"]])
+    assert ff["root_input_conductance_ns"] == doc["feed_forward"]["root_input_conductance_ns"]
+    assert [list(layer) for layer in ff["layers"]] == doc["feed_forward"]["layers"]
+    assert tree.report == doc["report"]
+    # to_json writes the same bytes as the command (same source string)
+    mine = tmp_path / "py.json"
+    tree.to_json(mine)
+    assert mine.read_bytes() == path.read_bytes()
+    # and from_json gives the same arrays back
+    back = pollard.ReducedTree.from_json(path)
+    for name in ("g_axial_ns", "g_leak_ns", "capacitance_pf", "parent", "children",
+                 "point_compartment", "site_compartment"):
+        np.testing.assert_array_equal(getattr(back, name), getattr(tree, name))
+    assert back.report == tree.report
+
+
+def test_options_reach_the_reduction(tmp_path):
+    cell = REPO / "sample_cells" / "practice_pyramidal.swc"
+    _, doc = cli_tree(tmp_path, cell, 15, "--types", "1,3", "--rm", "15000", "--ra", "100",
+                      "--cm", "0.9")
+    m = pollard.read_swc(cell)
+    tree = pollard.reduce(m, compartments=15, types=[1, 3], rm=15000, ra=100, cm=0.9)
+    np.testing.assert_array_equal(tree.g_leak_ns, [c["g_leak_ns"] for c in doc["compartments"]])
+    sites = tmp_path / "sites.txt"
+    ids = [int(i) for i in m.ids[m.types == 3][::40]]
+    sites.write_text("\n".join(map(str, ids)) + "\n")
+    _, doc2 = cli_tree(tmp_path, cell, 7, "--sites", sites)
+    from_list = pollard.reduce(m, compartments=7, sites=ids)
+    from_file = pollard.reduce(m, compartments=7, sites=str(sites))
+    want = [s["compartment"] for s in doc2["site_map"]["sites"]]
+    np.testing.assert_array_equal(from_list.site_compartment, want)
+    np.testing.assert_array_equal(from_file.site_compartment, want)
+
+
+# ------------------------------------------------------------------ numpy rebuilds the matrix
+
+def conductance_factor(tree):
+    """M with G = M^T M: one row sqrt(g)(e_k - e_parent) per link, sqrt(G_leak) e_k per leak.
+    Solving through M's QR keeps the digits that stiff junction links take from G itself."""
+    n = len(tree)
+    rows = []
+    for k in range(1, n):
+        r = np.zeros(n)
+        r[k] = r[tree.parent[k]] = np.sqrt(tree.g_axial_ns[k])
+        r[tree.parent[k]] *= -1.0
+        rows.append(r)
+    rows.extend(np.sqrt(tree.g_leak_ns[k]) * np.eye(n)[k] for k in range(n))
+    return np.array(rows)
+
+
+def solve(tree, currents):
+    _, r = np.linalg.qr(conductance_factor(tree))
+    return np.linalg.solve(r, np.linalg.solve(r.T, currents))
+
+
+@pytest.mark.parametrize("cell", SAMPLES, ids=lambda p: p.stem)
+def test_numpy_matrix_gives_input_resistance_and_feed_forward(cell):
+    tree = pollard.reduce(cell, compartments=63)
+    n = len(tree)
+    e0 = np.zeros(n)
+    e0[0] = 1.0
+    r_mohm = solve(tree, e0)[0] * 1e3  # 1/nS = 1000 MOhm
+    assert r_mohm == pytest.approx(tree.report["soma_input_resistance_dc_reduced_mohm"],
+                                   rel=1e-9)
+    # feed-forward form: V_0 = sum_k I_k prod(w on k's path) / Y_0 (docstring of feed_forward)
+    ff = tree.feed_forward
+    gain = np.ones(n)
+    for k in range(1, n):
+        gain[k] = gain[tree.parent[k]] * ff["w"][k]
+    rng = np.random.default_rng(7)
+    for _ in range(3):
+        i = rng.uniform(0.0, 1.0, n)
+        v0 = solve(tree, i)[0]
+        assert v0 == pytest.approx(gain @ i / ff["root_input_conductance_ns"], rel=1e-9)
+
+
+def test_neuroml_from_python_reads_back(tmp_path):
+    cell = REPO / "sample_cells" / "practice_stellate.swc"
+    tree = pollard.reduce(cell, compartments=41)
+    tree.to_json(tmp_path / "t.json")
+    tree.to_neuroml(tmp_path / "t.cell.nml", rest_mv=-70.0)
+    assert neuroml_reader.check(tmp_path / "t.cell.nml", tmp_path / "t.json") == []
+    text = (tmp_path / "t.cell.nml").read_text()
+    assert 'erev="-7e1 mV"' in text and text.count("<segment id=") == len(tree)
+
+
+def test_morphology_and_cable_maps():
+    cell = REPO / "sample_cells" / "y_junction.swc"
+    m = pollard.read_swc(cell)
+    lines = [ln.split() for ln in cell.read_text().splitlines()
+             if ln.strip() and not ln.startswith("#")]
+    by_id = {int(f[0]): f for f in lines}
+    assert len(m) == len(lines) and set(m.ids.tolist()) == set(by_id)
+    for k in (0, len(m) // 2, len(m) - 1):
+        f = by_id[int(m.ids[k])]
+        np.testing.assert_array_equal(m.xyz[k], [float(x) for x in f[2:5]])
+        assert m.radii[k] == float(f[5])
+        parent_id = int(f[6])
+        assert (m.parent[k] == -1) == (parent_id == -1)
+        if parent_id != -1:
+            assert m.ids[m.parent[k]] == parent_id
+    assert m.metrics["points"] == len(m)
+    maps = pollard.cable_maps(m)
+    soma = int(np.flatnonzero(m.types == 1)[0])
+    assert maps["input_impedance_mohm"][soma] == pytest.approx(
+        maps["summary"]["soma_input_resistance_mohm"], rel=1e-12)
+    # attenuation to the soma is 1 at the soma and grows towards the tips (passive tree)
+    assert maps["attenuation_to_soma"][soma] == pytest.approx(1.0, rel=1e-12)
+    assert np.nanmax(maps["attenuation_to_soma"]) > 1.0
+    tip = int(m.ids[-1])
+    v = pollard.cable_maps(m, site=tip)["v_over_v_site"]
+    assert v[-1] == pytest.approx(1.0, rel=1e-12) and np.nanmax(v) <= 1.0 + 1e-12
+
+
+# ------------------------------------------------------------------------ errors are exceptions
+
+@pytest.mark.parametrize("name", ["not_a_number.swc", "negative_radius.swc", "cycle_two.swc",
+                                  "empty.swc", "not_utf8.swc"])
+def test_bad_files_raise_with_the_cli_message(name):
+    path = MALFORMED / name
+    r = cli("inspect", path, check=False)
+    assert r.returncode != 0
+    with pytest.raises(pollard.PollardError) as e:
+        pollard.read_swc(path)
+    msg = str(e.value)
+    assert msg.startswith(str(path)) and msg in r.stderr
+    with pytest.raises(ValueError):  # PollardError is a ValueError
+        pollard.reduce(str(path), compartments=3)
+
+
+def test_bad_options_and_inputs_raise(tmp_path):
+    cell = REPO / "sample_cells" / "rall_tree.swc"
+    with pytest.raises(pollard.PollardError, match="no_such.swc"):
+        pollard.read_swc(tmp_path / "no_such.swc")
+    with pytest.raises(pollard.PollardError, match="outside the accepted range"):
+        pollard.reduce(cell, compartments=3, rm=-1.0)
+    with pytest.raises(pollard.PollardError, match="sites"):
+        pollard.reduce(cell, compartments=3, sites=[123456789])
+    with pytest.raises(pollard.PollardError, match="expected a path"):
+        pollard.reduce(12, compartments=3)
+    other = tmp_path / "other.json"
+    other.write_text('{"format": "other"}')
+    with pytest.raises(pollard.PollardError, match="not a pollard reduced tree"):
+        pollard.ReducedTree.from_json(other)
+    bad = tmp_path / "broken.json"
+    bad.write_text('{"format": "pollard.reduced-tree",\n "schema_version": 1,\n "x": [1,}')
+    with pytest.raises(pollard.PollardError, match=r"broken.json: .*line 3"):
+        pollard.ReducedTree.from_json(bad)
+    tree = pollard.reduce(cell, compartments=3)
+    with pytest.raises(pollard.PollardError, match="refusing to overwrite an input"):
+        tree.to_json(cell)
+    with pytest.raises(pollard.PollardError, match="does not exist"):
+        tree.to_json(tmp_path / "no" / "dir.json")
+
+
+# ------------------------------------------------------------------------------------- speed
+
+def test_100k_point_cell_from_python_within_1_2x_of_the_cli(tmp_path):
+    """Python's read + reduce + to_json against `pollard reduce --out` on the same cell; best of
+    three each. Only meaningful against an optimised binary (POLLARD_CLI, set by CI)."""
+    if "POLLARD_CLI" not in os.environ:
+        pytest.skip("set POLLARD_CLI to a release build of pollard to time it")
+    cell = tmp_path / "big.swc"
+    pollard.synth_cell(cell, 100_000, seed=3)
+    assert len(pollard.read_swc(cell)) >= 100_000
+
+    def run_cli():
+        t = time.perf_counter()
+        cli("reduce", cell, "-n", 101, "--out", tmp_path / "cli.json")
+        return time.perf_counter() - t
+
+    def run_py():
+        t = time.perf_counter()
+        pollard.reduce(str(cell), compartments=101).to_json(tmp_path / "py.json")
+        return time.perf_counter() - t
+
+    t_cli = min(run_cli() for _ in range(3))
+    t_py = min(run_py() for _ in range(3))
+    print(f"\n100k-point cell: CLI {t_cli:.3f} s, Python {t_py:.3f} s, ratio {t_py / t_cli:.2f}")
+    assert (tmp_path / "py.json").read_bytes() == (tmp_path / "cli.json").read_bytes()
+    assert t_py <= 1.2 * t_cli
