@@ -364,3 +364,58 @@ fn the_type_filter_applies_to_synapses() {
         assert_ne!(flat.kind[s.synapses[0].node as usize], 2);
     }
 }
+
+#[test]
+fn batch_picks_up_the_table_beside_each_cell() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("cells");
+    let out = dir.path().join("out");
+    std::fs::create_dir_all(input.join("sub")).unwrap();
+    let cell = std::fs::read(manifest("sample_cells/practice_pyramidal.swc")).unwrap();
+    // with the demo table; with a bad table; with none
+    std::fs::write(input.join("a.swc"), &cell).unwrap();
+    std::fs::write(input.join("a.synapses.csv"), DEMO_SYNAPSES.1).unwrap();
+    std::fs::write(input.join("sub/b.swc"), &cell).unwrap();
+    std::fs::write(
+        input.join("sub/b.synapses.csv"),
+        "input,swc_id\nx,2\ny,oops\n",
+    )
+    .unwrap();
+    std::fs::write(input.join("c.swc"), &cell).unwrap();
+    let o = pollard(&[
+        "batch",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--compartments",
+        "21",
+        "--synapse-tables",
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(3),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let summary = std::fs::read_to_string(out.join("summary.csv")).unwrap();
+    let head: Vec<&str> = summary.lines().next().unwrap().split(',').collect();
+    let col = |name: &str| head.iter().position(|h| *h == name).unwrap();
+    let rows: Vec<Vec<&str>> = summary
+        .lines()
+        .skip(1)
+        .map(|l| l.split(',').collect())
+        .collect();
+    let row = |f: &str| rows.iter().find(|r| r[0] == f).unwrap().clone();
+    assert_eq!(row("a.swc")[col("synapses")], "765");
+    assert_eq!(row("a.swc")[col("inputs")], "160");
+    assert_eq!(row("c.swc")[col("synapses")], "");
+    assert_eq!(row("sub/b.swc")[col("status")], "failed");
+    assert!(summary.contains("sub/b.synapses.csv:3: the SWC id `oops` is not an integer"));
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("a.json")).unwrap()).unwrap();
+    assert_eq!(v["synapses"]["summary"]["synapses"], 765);
+    assert!(v["batch"].is_object());
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("c.json")).unwrap()).unwrap();
+    assert!(v.get("synapses").is_none());
+}

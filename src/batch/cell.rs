@@ -3,9 +3,10 @@
 use super::record::Record;
 use super::{BatchError, Cell, Row, Settings, Status};
 use crate::cable::prepare;
-use crate::export::{TreeSource, reduced_tree_json_with_batch, write_atomic};
+use crate::export::{TreeSource, reduced_tree_json_with, write_atomic};
 use crate::morphology::Morphology;
 use crate::reduce::Reducer;
+use crate::synapses::{SynapseJson, SynapseMap, table_for_cell};
 use std::path::Path;
 use std::time::Instant;
 
@@ -25,10 +26,30 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
     let m = Morphology::from_swc(swc).map_err(|e| e.to_string())?;
     let met = m.metrics();
     let flat = prepare(&m, &settings.prep()).map_err(|e| format!("{name}: {e}"))?;
-    let reducer = Reducer::new(&flat, &settings.params, &settings.reduce_options())
-        .map_err(|e| format!("{name}: {e}"))?;
+    let snapped = match &settings.synapses {
+        Some(rule) => {
+            let (scale, types) = (settings.scale, settings.types.clone());
+            table_for_cell(&cell.input, name, &m, &flat, rule, scale, types)
+                .map_err(|e| e.to_string())?
+        }
+        None => None,
+    };
+    let mut opts = settings.reduce_options();
+    if let Some(s) = &snapped {
+        opts.sites = s.sites();
+    }
+    let reducer =
+        Reducer::new(&flat, &settings.params, &opts).map_err(|e| format!("{name}: {e}"))?;
     let tree = reducer.tree(settings.compartments);
     let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
+    let map = match &snapped {
+        Some(s) => Some(
+            SynapseMap::new(s, &tree)
+                .and_then(|m| m.with_curve(s, &reducer))
+                .map_err(|e| e.to_string())?,
+        ),
+        None => None,
+    };
     let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
     let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
     let src = TreeSource {
@@ -50,12 +71,18 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         site_error_median_np: (report.sites > 0).then_some(e.median).and_then(finite),
         site_error_p95_np: (report.sites > 0).then_some(e.p95).and_then(finite),
         site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
+        synapses: map.as_ref().map(|m| m.summary.synapses),
+        inputs: map.as_ref().map(|m| m.summary.inputs),
         seconds: None,
         error: None,
     };
     // the tree with the record as its last member: one file (one safe write) per cell
     let record = Record::new(settings_key, bytes.len() as u64, &row);
-    let json = reduced_tree_json_with_batch(&src, &reducer, &tree, &report, &record)
+    let member = snapped
+        .as_ref()
+        .zip(map.as_ref())
+        .map(|(s, m)| SynapseJson::new(s, m, tree.len()));
+    let json = reduced_tree_json_with(&src, &reducer, &tree, &report, member, Some(&record), false)
         .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
     Ok(Computed {
         json: json.into_bytes(),

@@ -105,6 +105,10 @@ pub struct Settings {
     pub freq_hz: f64,
     /// Junction link length as a fraction of the branch point's radius.
     pub junction_length_fraction: f64,
+    /// Use each cell's synapse table (`NAME.synapses.csv` beside `NAME.swc`, see
+    /// [`crate::synapses::table_beside`]) as its sites; cells without one keep the default sites.
+    #[serde(default)]
+    pub synapses: Option<crate::synapses::TableRule>,
 }
 
 impl Default for Settings {
@@ -119,6 +123,7 @@ impl Default for Settings {
             types: None,
             freq_hz: o.freq_hz,
             junction_length_fraction: o.junction_length_fraction,
+            synapses: None,
         }
     }
 }
@@ -214,6 +219,11 @@ pub struct Row {
     pub site_error_median_np: Option<f64>,
     pub site_error_p95_np: Option<f64>,
     pub site_error_max_np: Option<f64>,
+    /// Synapses and inputs of the cell's synapse table (empty without one).
+    #[serde(default)]
+    pub synapses: Option<usize>,
+    #[serde(default)]
+    pub inputs: Option<usize>,
     /// Wall time of the cell's job in this run (s), rounded to µs; empty for a cell reused
     /// from an earlier run.
     pub seconds: Option<f64>,
@@ -235,6 +245,8 @@ impl Row {
             site_error_median_np: None,
             site_error_p95_np: None,
             site_error_max_np: None,
+            synapses: None,
+            inputs: None,
             seconds,
             error: Some(error),
         }

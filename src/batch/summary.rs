@@ -5,7 +5,7 @@ use crate::export::write_atomic;
 use std::path::{Path, PathBuf};
 
 /// The CSV header, in the column order of [`csv_line`].
-pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,seconds,error";
+pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,synapses,inputs,seconds,error";
 
 /// Quotes a CSV field when it holds a comma, quote or line break (RFC 4180).
 fn csv_field(s: &str) -> String {
@@ -36,6 +36,8 @@ pub fn csv_line(r: &Row) -> String {
         opt(r.site_error_median_np),
         opt(r.site_error_p95_np),
         opt(r.site_error_max_np),
+        opt(r.synapses),
+        opt(r.inputs),
         opt(r.seconds),
         csv_field(r.error.as_deref().unwrap_or("")),
     ]

@@ -47,6 +47,13 @@ pub struct Args {
     /// Keep only these SWC types (comma-separated codes, e.g. 1,3,4 drops the axon).
     #[arg(long, value_name = "CODES", value_delimiter = ',')]
     pub types: Option<Vec<i32>>,
+    /// Use each cell's synapse table as its sites: NAME.synapses.csv beside NAME.swc (the
+    /// format of `pollard reduce --synapses`). Cells without one keep the default sites; the
+    /// summary gains their synapse and input counts, each tree JSON the member `synapses`.
+    #[arg(long = "synapse-tables")]
+    pub synapse_tables: bool,
+    #[command(flatten)]
+    pub snap: super::synapses::SnapArgs,
     /// Worker threads that compute (default: one per core). Writes are finished by a few
     /// extra threads per worker that mostly wait for the disk.
     #[arg(long, short = 'j', value_name = "J")]
@@ -189,8 +196,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         types,
         freq_hz: a.freq,
         junction_length_fraction: a.junction_fraction,
+        synapses: a.synapse_tables.then_some(pollard::synapses::TableRule {
+            snap_limit_um: a.snap.snap_limit,
+            skip_far: a.snap.skip_far,
+        }),
     };
     // a flag error would fail every cell alike: say it once, before any work
+    anyhow::ensure!(
+        a.snap.snap_limit.is_finite() && a.snap.snap_limit >= 0.0,
+        "--snap-limit {} is not a finite number ≥ 0",
+        a.snap.snap_limit
+    );
     settings.validate()?;
     let shard = a.shard.unwrap_or(Shard::ALL);
     std::fs::create_dir_all(&a.out)

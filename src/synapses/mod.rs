@@ -39,6 +39,49 @@ pub use snap::{LeftOut, SnapOptions, Snapped, Synapse, snap};
 pub use table::{Location, Row, SynapseTable, parse_table, read_table};
 pub use write::{SynapseJson, synapse_csvs};
 
+/// Batch runs: where a cell's table lies (`NAME.swc` → `NAME.synapses.csv`, beside it).
+pub fn table_beside(swc: &std::path::Path) -> std::path::PathBuf {
+    swc.with_extension("synapses.csv")
+}
+
+/// Batch settings for synapse tables found by [`table_beside`]: how they are snapped.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct TableRule {
+    pub snap_limit_um: f64,
+    pub skip_far: bool,
+}
+
+/// Batch runs: the synapse table beside the cell file `swc` (named `name` in messages, e.g.
+/// its path relative to the archive), placed on the cell; `None` when there is none.
+pub fn table_for_cell(
+    swc: &std::path::Path,
+    name: &str,
+    morph: &crate::Morphology,
+    flat: &crate::Flat,
+    rule: &TableRule,
+    scale: Option<f64>,
+    types: Option<Vec<i32>>,
+) -> Result<Option<Snapped>, SynapseError> {
+    let path = table_beside(swc);
+    if !path.is_file() {
+        return Ok(None);
+    }
+    let file = table_beside(std::path::Path::new(name))
+        .display()
+        .to_string();
+    let bytes = std::fs::read(&path).map_err(|e| SynapseError::Io {
+        file: file.clone(),
+        message: e.to_string(),
+    })?;
+    let opts = SnapOptions {
+        scale,
+        limit_um: rule.snap_limit_um,
+        skip_far: rule.skip_far,
+        types,
+    };
+    snap(&parse_table(&bytes, &file)?, morph, flat, &opts).map(Some)
+}
+
 /// Default snap limit (µm): how far outside the nearest point's sphere a synapse may lie.
 pub const DEFAULT_SNAP_LIMIT_UM: f64 = 3.0;
 
