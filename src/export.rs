@@ -7,6 +7,9 @@
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
+mod cable_json;
+pub use cable_json::{CableDoc, CableJsonError, PointsOut, TipOut};
+
 /// Why an output could not be written.
 #[derive(Debug, thiserror::Error)]
 pub enum WriteError {

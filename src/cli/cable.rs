@@ -4,7 +4,7 @@
 use anyhow::Context;
 use pollard::cable::prep::{CableInput, cable_input};
 use pollard::cable::{CellMaps, Summary};
-use serde::Serialize;
+use pollard::export::CableDoc;
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -36,111 +36,6 @@ pub struct Args {
     pub output: Option<PathBuf>,
 }
 
-/// A JSON number, or null when not finite (serde_json's rules: shortest round-trip digits).
-fn push_f64(buf: &mut Vec<u8>, x: f64) {
-    // writing into a Vec cannot fail
-    let _ = serde_json::to_writer(&mut *buf, &x);
-}
-
-/// The JSON objects of points `range` (comma-separated, with a leading comma unless the range
-/// starts at point 0). Points outside the main tree get nulls.
-fn push_points(
-    buf: &mut Vec<u8>,
-    ids: &[i64],
-    maps: &CellMaps,
-    site: Option<&[f64]>,
-    range: std::ops::Range<usize>,
-) {
-    for i in range {
-        if i > 0 {
-            buf.push(b',');
-        }
-        buf.extend_from_slice(b"{\"id\":");
-        let _ = serde_json::to_writer(&mut *buf, &ids[i]);
-        let node = maps.node_of_point(i);
-        let val = |f: &dyn Fn(usize) -> f64| node.map(f).unwrap_or(f64::NAN);
-        buf.extend_from_slice(b",\"input_resistance_mohm\":");
-        push_f64(buf, val(&|k| maps.input_resistance_mohm(k)));
-        buf.extend_from_slice(b",\"attenuation_to_soma\":");
-        push_f64(buf, val(&|k| maps.attenuation_to_soma(k)));
-        buf.extend_from_slice(b",\"attenuation_from_soma\":");
-        push_f64(buf, val(&|k| maps.attenuation_from_soma(k)));
-        if let Some(v) = site {
-            buf.extend_from_slice(b",\"site_ratio\":");
-            push_f64(buf, val(&|k| v[k]));
-        }
-        buf.push(b'}');
-    }
-}
-
-/// Writes the `points` array: chunks of points are formatted in parallel (rayon), a wave at a
-/// time into reused buffers, and written in order.
-fn write_points(
-    w: &mut dyn Write,
-    ids: &[i64],
-    maps: &CellMaps,
-    site: Option<&[f64]>,
-) -> std::io::Result<()> {
-    use rayon::prelude::*;
-    const CHUNK: usize = 16_384;
-    let threads = rayon::current_num_threads().max(1);
-    let mut bufs: Vec<Vec<u8>> = vec![Vec::new(); threads * 2];
-    let n = ids.len();
-    let mut start = 0;
-    w.write_all(b"[")?;
-    while start < n {
-        bufs.par_iter_mut().enumerate().for_each(|(c, buf)| {
-            buf.clear();
-            let a = (start + c * CHUNK).min(n);
-            let b = (a + CHUNK).min(n);
-            push_points(buf, ids, maps, site, a..b);
-        });
-        for buf in &bufs {
-            w.write_all(buf)?;
-        }
-        start += bufs.len() * CHUNK;
-    }
-    w.write_all(b"]")
-}
-
-#[derive(Serialize)]
-struct Tip {
-    id: i64,
-    electrotonic_length: f64,
-    path_length_um: f64,
-}
-
-#[derive(Serialize)]
-struct Output<'a> {
-    file: String,
-    freq_hz: f64,
-    rm_ohm_cm2: f64,
-    ra_ohm_cm: f64,
-    cm_uf_cm2: f64,
-    soma_input_resistance_mohm: f64,
-    soma_input_phase_deg: f64,
-    tau_ms: f64,
-    electrotonic_extent: f64,
-    mean_tip_electrotonic_length: f64,
-    max_attenuation_to_soma: f64,
-    max_attenuation_from_soma: f64,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    site: Option<i64>,
-    warnings: &'a [pollard::Warning],
-    tips: Vec<Tip>,
-}
-
-fn tips(ids: &[i64], s: &Summary) -> Vec<Tip> {
-    s.tips
-        .iter()
-        .map(|t| Tip {
-            id: ids[t.point],
-            electrotonic_length: t.electrotonic_length,
-            path_length_um: t.path_length_um,
-        })
-        .collect()
-}
-
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let params = a.membrane.params();
     params.validate(a.freq)?;
@@ -170,79 +65,57 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let site = site_node.and_then(|k| maps.site_ratio_abs(k));
     let summary = maps.summary(flat);
-
-    let mut out: Vec<u8> = Vec::new();
-    let mut sink: Box<dyn Write> = match a.output {
-        Some(_) => Box::new(&mut out),
-        None => Box::new(std::io::BufWriter::with_capacity(
-            1 << 20,
-            std::io::stdout().lock(),
-        )),
-    };
-    let written = if a.json {
-        let o = Output {
-            file: a.cell.display().to_string(),
-            freq_hz: a.freq,
-            rm_ohm_cm2: a.membrane.rm,
-            ra_ohm_cm: a.membrane.ra,
-            cm_uf_cm2: a.membrane.cm,
-            soma_input_resistance_mohm: summary.soma_input_resistance_mohm,
-            soma_input_phase_deg: summary.soma_input_phase_deg,
-            tau_ms: summary.tau_ms,
-            electrotonic_extent: summary.electrotonic_extent,
-            mean_tip_electrotonic_length: summary.mean_tip_electrotonic_length,
-            max_attenuation_to_soma: summary.max_attenuation_to_soma,
-            max_attenuation_from_soma: summary.max_attenuation_from_soma,
-            site: a.site,
-            warnings,
-            tips: tips(ids, &summary),
-        };
-        // the summary object, then the points array spliced in before its closing brace
-        let mut head = serde_json::to_vec(&o)?;
-        head.pop();
-        sink.write_all(&head)
-            .and_then(|_| sink.write_all(b",\"points\":"))
-            .and_then(|_| write_points(&mut sink, ids, &maps, site.as_deref()))
-            .and_then(|_| writeln!(sink, "}}"))
-            .map_err(anyhow::Error::from)
-    } else {
-        write_text(
-            &mut sink,
-            &a,
-            (ids, warnings),
-            &maps,
-            &summary,
-            site_node,
-            site.as_deref(),
-        )
-    };
-    let written = written.and_then(|_| sink.flush().map_err(anyhow::Error::from));
-    drop(sink);
-    if let Err(e) = written {
-        // a reader that stops early (`| head`) is not an error
-        let broken_pipe = e
-            .downcast_ref::<std::io::Error>()
-            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe);
-        if broken_pipe {
-            return Ok(ExitCode::SUCCESS);
+    let name = a.cell.display().to_string();
+    // the text is made from the same checked document as the JSON: no number that is not one
+    let doc = CableDoc::new(
+        &name,
+        ids,
+        &maps,
+        &summary,
+        a.site.zip(site.as_deref()),
+        warnings,
+    )?;
+    match &a.output {
+        Some(path) => {
+            let mut out: Vec<u8> = Vec::new();
+            write_doc(&mut out, &a, &doc, &maps, &summary, site_node)?;
+            pollard::export::write_atomic(path, &out, &[a.cell.as_path()])?;
         }
-        return Err(e);
-    }
-    if let Some(path) = &a.output {
-        pollard::export::write_atomic(path, &out, &[a.cell.as_path()])?;
+        None => {
+            let out = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout().lock());
+            write_doc(out, &a, &doc, &maps, &summary, site_node)?;
+        }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// The JSON document or the readable summary, flushed.
+fn write_doc<W: Write>(
+    mut w: W,
+    a: &Args,
+    doc: &CableDoc<'_>,
+    maps: &CellMaps,
+    s: &Summary,
+    site_node: Option<usize>,
+) -> anyhow::Result<()> {
+    if a.json {
+        doc.write(&mut w)?;
+    } else {
+        write_text(&mut w, a, doc, maps, s, site_node)?;
+    }
+    w.flush()?;
+    Ok(())
 }
 
 fn write_text(
     w: &mut dyn Write,
     a: &Args,
-    (ids, warnings): (&[i64], &[pollard::Warning]),
+    doc: &CableDoc<'_>,
     maps: &CellMaps,
     s: &Summary,
     site_node: Option<usize>,
-    site: Option<&[f64]>,
-) -> anyhow::Result<()> {
+) -> std::io::Result<()> {
+    let (warnings, site) = (doc.warnings, doc.points.site());
     let what = if a.freq > 0.0 {
         format!("|Z| at {} Hz", a.freq)
     } else {
@@ -294,7 +167,7 @@ fn write_text(
             writeln!(
                 w,
                 "    {:>9}: {:.3}, {:.1}, {:.1}, {:.3} / {:.3}",
-                ids[t.point],
+                doc.points.id(t.point),
                 t.electrotonic_length,
                 t.path_length_um,
                 p.input_resistance_mohm,

@@ -51,9 +51,19 @@ pub fn main() -> ExitCode {
     };
     match result {
         Ok(code) => code,
+        // a reader that stops early (`| head`) is not an error: the one place this is decided
+        Err(e) if is_broken_pipe(&e) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("pollard: {e:#}");
             ExitCode::from(1)
         }
     }
+}
+
+/// Is the error (or any error it wraps) a write to a pipe whose reader has gone?
+fn is_broken_pipe(e: &anyhow::Error) -> bool {
+    e.chain().any(|c| {
+        c.downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+    })
 }

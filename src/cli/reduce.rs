@@ -162,22 +162,16 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         write_atomic(path, nml.as_bytes(), &inputs)?;
     }
     let mut out = std::io::stdout().lock();
-    let written = if a.json {
-        serde_json::to_writer_pretty(&mut out, &report)
-            .map_err(std::io::Error::from)
-            .and_then(|_| writeln!(out))
+    if a.json {
+        serde_json::to_writer_pretty(&mut out, &report).map_err(std::io::Error::from)?;
+        writeln!(out)?;
     } else {
-        write_report(&mut out, &name, &report, reducer.max_compartments()).and_then(|_| {
-            match (&snapped, &map) {
-                (Some(s), Some(mp)) => super::synapses::write_summary(&mut out, s, mp),
-                _ => Ok(()),
-            }
-        })
-    };
-    match written {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(ExitCode::SUCCESS),
+        write_report(&mut out, &name, &report, reducer.max_compartments())?;
+        if let (Some(s), Some(mp)) = (&snapped, &map) {
+            super::synapses::write_summary(&mut out, s, mp)?;
+        }
     }
+    Ok(ExitCode::SUCCESS)
 }
 
 fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::io::Result<()> {
