@@ -39,7 +39,7 @@ pub use cell::{Pending, compute_cell, process_cell, write_cell};
 pub use discover::{Cell, Found, discover, plan};
 pub use record::reusable_row;
 pub use shard::{Shard, stable_hash};
-pub use summary::{CSV_HEADER, csv_line, merge_summaries, read_summary, write_summary};
+pub use summary::{CSV_HEADER, csv_fields, merge_summaries, read_summary, write_summary};
 
 use crate::cable::{Params, PrepOptions};
 use crate::export::WriteError;

@@ -4,25 +4,16 @@ use super::{BatchError, Row, Shard, Status};
 use crate::export::write_atomic;
 use std::path::{Path, PathBuf};
 
-/// The CSV header, in the column order of [`csv_line`].
+/// The CSV header, in the column order of [`csv_fields`].
 pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,synapses,inputs,seconds,error";
 
-/// Quotes a CSV field when it holds a comma, quote or line break (RFC 4180).
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s.to_string()
-    }
-}
-
-/// One CSV line (no line break) of a row; missing values are empty fields.
-pub fn csv_line(r: &Row) -> String {
+/// The fields of a row in the order of [`CSV_HEADER`]; missing values are empty fields.
+pub fn csv_fields(r: &Row) -> [String; 15] {
     fn opt<T: ToString>(v: Option<T>) -> String {
         v.map(|x| x.to_string()).unwrap_or_default()
     }
     [
-        csv_field(&r.file),
+        r.file.clone(),
         match r.status {
             Status::Ok => "ok".to_string(),
             Status::Failed => "failed".to_string(),
@@ -39,9 +30,41 @@ pub fn csv_line(r: &Row) -> String {
         opt(r.synapses),
         opt(r.inputs),
         opt(r.seconds),
-        csv_field(r.error.as_deref().unwrap_or("")),
+        r.error.clone().unwrap_or_default(),
     ]
-    .join(",")
+}
+
+/// A CSV table (the `csv` crate: fields quoted where RFC 4180 needs it, `\n` between records)
+/// with [`CSV_HEADER`] first.
+fn csv_table<I, R>(records: I) -> Vec<u8>
+where
+    I: IntoIterator<Item = R>,
+    R: IntoIterator,
+    R::Item: AsRef<[u8]>,
+{
+    let mut w = csv::Writer::from_writer(Vec::new());
+    // writing into memory cannot fail; into_inner only flushes that buffer
+    let _ = w.write_record(CSV_HEADER.split(','));
+    for r in records {
+        let _ = w.write_record(r);
+    }
+    w.into_inner().unwrap_or_default()
+}
+
+/// Reads the records of a summary CSV written by [`write_summary`] (header checked).
+fn read_csv_records(path: &Path) -> Result<Vec<csv::StringRecord>, BatchError> {
+    let err = |message: String| BatchError::SummaryRead {
+        path: path.to_path_buf(),
+        message,
+    };
+    let mut rd = csv::Reader::from_path(path).map_err(|e| err(e.to_string()))?;
+    let header = rd.headers().map_err(|e| err(e.to_string()))?;
+    if !header.iter().eq(CSV_HEADER.split(',')) {
+        return Err(err("the first line is not the summary header".into()));
+    }
+    rd.records()
+        .map(|r| r.map_err(|e| err(e.to_string())))
+        .collect()
 }
 
 /// Writes `rows` (sorted by file first) as `<out>/<stem>.csv` and `<out>/<stem>.jsonl`, where the
@@ -53,20 +76,16 @@ pub fn write_summary(
 ) -> Result<(PathBuf, PathBuf), BatchError> {
     let mut sorted: Vec<&Row> = rows.iter().collect();
     sorted.sort_by(|a, b| a.file.cmp(&b.file));
-    let mut csv = String::with_capacity(128 * (rows.len() + 1));
-    csv.push_str(CSV_HEADER);
-    csv.push('\n');
+    let csv = csv_table(sorted.iter().map(|r| csv_fields(r)));
     let mut jsonl = String::with_capacity(256 * rows.len());
     for r in &sorted {
-        csv.push_str(&csv_line(r));
-        csv.push('\n');
         // a Row holds only strings, numbers and options: serialising it cannot fail
         jsonl.push_str(&serde_json::to_string(r).unwrap_or_default());
         jsonl.push('\n');
     }
     let csv_path = out.join(format!("{stem}.csv"));
     let jsonl_path = out.join(format!("{stem}.jsonl"));
-    write_atomic(&csv_path, csv.as_bytes(), &[])?;
+    write_atomic(&csv_path, &csv, &[])?;
     write_atomic(&jsonl_path, jsonl.as_bytes(), &[])?;
     Ok((csv_path, jsonl_path))
 }
@@ -141,9 +160,9 @@ pub fn merge_summaries(out: &Path) -> Result<Vec<Row>, BatchError> {
             missing.join(", ")
         )));
     }
-    // copy the shards' lines verbatim (re-reading decimals could change their last bit), in
-    // file order; the CSV and JSON lines of a shard list the same files in the same order
-    let mut lines: Vec<(Row, String, String)> = Vec::new();
+    // copy the shards' fields and lines verbatim (re-reading decimals could change their last
+    // bit), in file order; the CSV and JSON lines of a shard list the same files in the same order
+    let mut lines: Vec<(Row, csv::StringRecord, String)> = Vec::new();
     for (shard, path) in &shards {
         let rows = read_summary(path)?;
         let jsonl = std::fs::read_to_string(path).map_err(|e| BatchError::SummaryRead {
@@ -151,15 +170,14 @@ pub fn merge_summaries(out: &Path) -> Result<Vec<Row>, BatchError> {
             message: e.to_string(),
         })?;
         let csv_path = out.join(format!("{}.csv", shard.summary_stem()));
-        let csv = std::fs::read_to_string(&csv_path).map_err(|e| BatchError::SummaryRead {
-            path: csv_path.clone(),
-            message: e.to_string(),
-        })?;
-        let records = csv_records(&csv);
+        let records = read_csv_records(&csv_path)?;
         let json_lines: Vec<&str> = jsonl.lines().filter(|l| !l.trim().is_empty()).collect();
-        if records.first().map(String::as_str) != Some(CSV_HEADER)
-            || records.len() != rows.len() + 1
+        if records.len() != rows.len()
             || json_lines.len() != rows.len()
+            || rows
+                .iter()
+                .zip(&records)
+                .any(|(r, c)| c.get(0) != Some(&r.file))
         {
             return Err(merr(format!(
                 "{} and {} do not match; rerun shard {shard}",
@@ -167,7 +185,7 @@ pub fn merge_summaries(out: &Path) -> Result<Vec<Row>, BatchError> {
                 path.display()
             )));
         }
-        for ((r, c), j) in rows.into_iter().zip(&records[1..]).zip(json_lines) {
+        for ((r, c), j) in rows.into_iter().zip(records).zip(json_lines) {
             lines.push((r, c.clone(), j.to_string()));
         }
     }
@@ -178,40 +196,15 @@ pub fn merge_summaries(out: &Path) -> Result<Vec<Row>, BatchError> {
             w[0].0.file
         )));
     }
-    let mut csv = String::from(CSV_HEADER);
-    csv.push('\n');
+    let csv = csv_table(lines.iter().map(|l| &l.1));
     let mut jsonl = String::new();
-    for (_, c, j) in &lines {
-        csv.push_str(c);
-        csv.push('\n');
+    for (_, _, j) in &lines {
         jsonl.push_str(j);
         jsonl.push('\n');
     }
-    write_atomic(&out.join("summary.csv"), csv.as_bytes(), &[])?;
+    write_atomic(&out.join("summary.csv"), &csv, &[])?;
     write_atomic(&out.join("summary.jsonl"), jsonl.as_bytes(), &[])?;
     Ok(lines.into_iter().map(|l| l.0).collect())
-}
-
-/// Splits CSV text into records (without their line breaks); a line break inside a quoted
-/// field stays in its record (RFC 4180).
-fn csv_records(text: &str) -> Vec<String> {
-    let mut out = Vec::new();
-    let mut cur = String::new();
-    let mut quoted = false;
-    for ch in text.chars() {
-        match ch {
-            '"' => {
-                quoted = !quoted;
-                cur.push(ch);
-            }
-            '\n' if !quoted => out.push(std::mem::take(&mut cur)),
-            _ => cur.push(ch),
-        }
-    }
-    if !cur.is_empty() {
-        out.push(cur);
-    }
-    out
 }
 
 #[cfg(test)]
@@ -219,20 +212,34 @@ mod tests {
     use super::*;
 
     #[test]
-    fn csv_quotes_what_needs_quoting() {
+    fn csv_quotes_what_needs_quoting_and_reads_back() {
         // RFC 4180: a field with a comma, quote or line break is quoted, quotes doubled
-        assert_eq!(csv_field("plain"), "plain");
-        assert_eq!(csv_field("a,b"), "\"a,b\"");
-        assert_eq!(csv_field("say \"x\""), "\"say \"\"x\"\"\"");
-        let r = Row::failed("a,b.swc", Some(0.5), "line 3: bad\nthing".into());
-        let line = csv_line(&r);
-        assert!(line.starts_with("\"a,b.swc\",failed,,"), "{line}");
-        assert!(line.ends_with(",0.5,\"line 3: bad\nthing\""), "{line}");
-        assert_eq!(
-            CSV_HEADER.split(',').count(),
-            csv_line(&Row::failed("x", None, "e".into()))
-                .split(',')
-                .count()
+        let odd = Row::failed("a,b \"c\".swc", Some(0.5), "line 3: bad\nthing".into());
+        let plain = Row::failed("x.swc", None, "e".into());
+        let table = csv_table([csv_fields(&odd), csv_fields(&plain)]);
+        let text = String::from_utf8(table.clone()).unwrap();
+        assert!(text.starts_with(CSV_HEADER), "{text}");
+        assert!(text.contains("\n\"a,b \"\"c\"\".swc\",failed,,"), "{text}");
+        assert!(text.contains(",0.5,\"line 3: bad\nthing\"\n"), "{text}");
+        assert!(text.ends_with("\nx.swc,failed,,,,,,,,,,,,,e\n"), "{text}");
+        // read back with the crate's reader: the same fields
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("s.csv");
+        std::fs::write(&p, &table).unwrap();
+        let recs = read_csv_records(&p).unwrap();
+        assert_eq!(recs.len(), 2);
+        assert!(
+            recs[0]
+                .iter()
+                .eq(csv_fields(&odd).iter().map(String::as_str))
         );
+        assert!(
+            recs[1]
+                .iter()
+                .eq(csv_fields(&plain).iter().map(String::as_str))
+        );
+        // a file with another header is refused
+        std::fs::write(&p, "file,status\nx,ok\n").unwrap();
+        assert!(read_csv_records(&p).is_err());
     }
 }
