@@ -97,6 +97,25 @@ class ReducedTree:
         self, path: PathLike, cell_id: Optional[str] = None, rest_mv: float = -65.0
     ) -> None:
         """Writes a NeuroML v2 cell, as `pollard reduce --neuroml` does."""
+    def fidelity(
+        self,
+        epsp_tau_ms: float = 0.5,
+        peak_pa: float = 10.0,
+        dt_ms: Optional[float] = None,
+        duration_ms: Optional[float] = None,
+        max_duration_ms: float = 500.0,
+    ) -> Dict[str, Any]:
+        """Soma EPSP (peak, time to peak) and DC attenuation errors over the sites, full cell
+        against this tree (trees made by `reduce` only; the full cell runs once per options)."""
+    def fidelity_sites(
+        self,
+        epsp_tau_ms: float = 0.5,
+        peak_pa: float = 10.0,
+        dt_ms: Optional[float] = None,
+        duration_ms: Optional[float] = None,
+        max_duration_ms: float = 500.0,
+    ) -> Dict[str, npt.NDArray[Any]]:
+        """The per-site table behind `fidelity`: one numpy array per column."""
     @staticmethod
     def from_json(path: PathLike) -> "ReducedTree":
         """Reads a tree written by `pollard reduce --out` or `to_json`."""

@@ -5,23 +5,25 @@ use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyArray2};
 use pollard::cable::Params;
 use pollard::export::{TreeSource, reduced_tree_json, write_atomic};
+use pollard::fidelity::{Fidelity, FidelityOptions};
 use pollard::morphology::NONE;
 use pollard::reduce::{Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use serde_json::Value;
 use std::path::{Path, PathBuf};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 
 /// How the tree's JSON is had: made from the reducer, or as it was read.
 enum Origin {
     Made {
         reducer: Arc<Reducer>,
         report: Box<Report>,
-        ids: Vec<i64>,
-        pos: Vec<[f64; 3]>,
+        morph: Arc<pollard::Morphology>,
         source: String,
         inputs: Vec<PathBuf>,
+        /// The full cell's side of the fidelity report, for the options it was made with.
+        fidelity: Mutex<Option<(FidelityOptions, Arc<Fidelity>)>>,
     },
     Loaded {
         text: String,
@@ -192,6 +194,87 @@ impl ReducedTree {
             write_atomic(&path, nml.as_bytes(), &ins).map_err(|e| e.to_string())
         })
     }
+    /// How well the tree behaves like the cell, per synapse site: the soma EPSP for an alpha
+    /// current at each site (peak and time to peak, full cell against this tree) and the DC log
+    /// attenuations, summarised (a dict). The full cell is simulated once per tree and set of
+    /// options (the slow part); only trees made by `reduce` have the cell to compare with.
+    #[pyo3(signature = (epsp_tau_ms=0.5, peak_pa=10.0, dt_ms=None, duration_ms=None, max_duration_ms=500.0))]
+    fn fidelity<'py>(
+        &self,
+        py: Python<'py>,
+        epsp_tau_ms: f64,
+        peak_pa: f64,
+        dt_ms: Option<f64>,
+        duration_ms: Option<f64>,
+        max_duration_ms: f64,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        let opts = fidelity_options(epsp_tau_ms, peak_pa, dt_ms, duration_ms, max_duration_ms);
+        let text = work(py, || {
+            let (f, m) = self.fidelity_of(&opts)?;
+            let r = f.report(&self.tree, Some(&m)).map_err(|e| e.to_string())?;
+            serde_json::to_string(&r).map_err(|e| e.to_string())
+        })?;
+        json_to_py(py, &text)
+    }
+    /// The per-site table behind `fidelity` (same options): a dict of numpy arrays, one entry
+    /// per site (swc_id, compartment, epsp_peak_full_mv, epsp_peak_reduced_mv, …).
+    #[pyo3(signature = (epsp_tau_ms=0.5, peak_pa=10.0, dt_ms=None, duration_ms=None, max_duration_ms=500.0))]
+    fn fidelity_sites<'py>(
+        &self,
+        py: Python<'py>,
+        epsp_tau_ms: f64,
+        peak_pa: f64,
+        dt_ms: Option<f64>,
+        duration_ms: Option<f64>,
+        max_duration_ms: f64,
+    ) -> PyResult<Bound<'py, PyDict>> {
+        let opts = fidelity_options(epsp_tau_ms, peak_pa, dt_ms, duration_ms, max_duration_ms);
+        let rows = work(py, || {
+            let (f, m) = self.fidelity_of(&opts)?;
+            Ok(f.sites(&self.tree, Some(&m)).map_err(|e| e.to_string())?.0)
+        })?;
+        let d = PyDict::new(py);
+        let f64s = |g: &dyn Fn(&pollard::fidelity::SiteFidelity) -> f64| {
+            arr(py, rows.iter().map(g).collect::<Vec<f64>>())
+        };
+        d.set_item(
+            "swc_id",
+            arr(py, rows.iter().map(|r| r.swc_id.unwrap_or(-1)).collect()),
+        )?;
+        d.set_item(
+            "swc_line",
+            arr(py, rows.iter().map(|r| r.swc_line as i64).collect()),
+        )?;
+        d.set_item(
+            "compartment",
+            arr(py, rows.iter().map(|r| r.compartment as i64).collect()),
+        )?;
+        d.set_item("epsp_peak_full_mv", f64s(&|r| r.epsp_peak_full_mv))?;
+        d.set_item("epsp_peak_reduced_mv", f64s(&|r| r.epsp_peak_reduced_mv))?;
+        d.set_item("epsp_peak_error_np", f64s(&|r| r.epsp_peak_error_np))?;
+        d.set_item("time_to_peak_full_ms", f64s(&|r| r.time_to_peak_full_ms))?;
+        d.set_item(
+            "time_to_peak_reduced_ms",
+            f64s(&|r| r.time_to_peak_reduced_ms),
+        )?;
+        d.set_item(
+            "ln_attenuation_to_soma_full",
+            f64s(&|r| r.ln_attenuation_to_soma_full),
+        )?;
+        d.set_item(
+            "ln_attenuation_to_soma_reduced",
+            f64s(&|r| r.ln_attenuation_to_soma_reduced),
+        )?;
+        d.set_item(
+            "ln_attenuation_from_soma_full",
+            f64s(&|r| r.ln_attenuation_from_soma_full),
+        )?;
+        d.set_item(
+            "ln_attenuation_from_soma_reduced",
+            f64s(&|r| r.ln_attenuation_from_soma_reduced),
+        )?;
+        Ok(d)
+    }
     /// Reads a tree written by `pollard reduce --out` or `to_json`.
     #[staticmethod]
     fn from_json(py: Python<'_>, path: PathBuf) -> PyResult<ReducedTree> {
@@ -211,15 +294,17 @@ impl ReducedTree {
             Origin::Made {
                 reducer,
                 report,
-                ids,
-                pos,
+                morph,
                 source,
                 inputs,
+                ..
             } => {
+                let ids: Vec<i64> = morph.points.iter().map(|p| p.id).collect();
+                let pos: Vec<[f64; 3]> = morph.points.iter().map(|p| p.pos).collect();
                 let src = TreeSource {
                     source,
-                    point_ids: ids,
-                    point_pos: pos,
+                    point_ids: &ids,
+                    point_pos: &pos,
                 };
                 let text = reduced_tree_json(&src, reducer, &self.tree, report)
                     .map_err(|e| e.to_string())?;
@@ -227,6 +312,55 @@ impl ReducedTree {
             }
             Origin::Loaded { text, path } => Ok((text.clone(), vec![path.clone()])),
         }
+    }
+}
+
+fn fidelity_options(
+    tau_ms: f64,
+    peak_pa: f64,
+    dt_ms: Option<f64>,
+    duration_ms: Option<f64>,
+    max_duration_ms: f64,
+) -> FidelityOptions {
+    FidelityOptions {
+        tau_ms,
+        peak_pa,
+        dt_ms,
+        duration_ms,
+        max_duration_ms,
+        ..FidelityOptions::default()
+    }
+}
+
+impl ReducedTree {
+    /// The full cell's fidelity run for `opts` (made once, then kept) and the cell.
+    fn fidelity_of(
+        &self,
+        opts: &FidelityOptions,
+    ) -> Result<(Arc<Fidelity>, Arc<pollard::Morphology>), String> {
+        let Origin::Made {
+            reducer,
+            morph,
+            source,
+            fidelity,
+            ..
+        } = &self.origin
+        else {
+            return Err(
+                "fidelity: a tree read from JSON has no cell to compare with; reduce the cell"
+                    .into(),
+            );
+        };
+        opts.validate().map_err(|e| format!("fidelity: {e}"))?;
+        let mut slot = fidelity.lock().unwrap_or_else(|p| p.into_inner());
+        if let Some((o, f)) = slot.as_ref()
+            && o == opts
+        {
+            return Ok((f.clone(), morph.clone()));
+        }
+        let f = Arc::new(Fidelity::new(reducer, opts).map_err(|e| format!("{source}: {e}"))?);
+        *slot = Some((*opts, f.clone()));
+        Ok((f, morph.clone()))
     }
 }
 
@@ -313,18 +447,17 @@ pub fn reduce(
         let tree = reducer.tree(compartments);
         let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
         let report_json = serde_json::to_string(&report).map_err(|e| e.to_string())?;
-        let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
         Ok(ReducedTree {
             tree,
             report_json,
-            point_ids: ids.clone(),
+            point_ids: m.points.iter().map(|p| p.id).collect(),
             origin: Origin::Made {
                 reducer: Arc::new(reducer),
                 report: Box::new(report),
-                ids,
-                pos: m.points.iter().map(|p| p.pos).collect(),
+                morph: m,
                 source: name,
                 inputs,
+                fidelity: Mutex::new(None),
             },
         })
     })

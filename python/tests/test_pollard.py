@@ -252,3 +252,33 @@ def test_100k_point_cell_from_python_within_1_2x_of_the_cli(tmp_path):
     print(f"\n100k-point cell: CLI {t_cli:.3f} s, Python {t_py:.3f} s, ratio {t_py / t_cli:.2f}")
     assert (tmp_path / "py.json").read_bytes() == (tmp_path / "cli.json").read_bytes()
     assert t_py <= 1.2 * t_cli
+
+
+# --------------------------------------------------------------------------------- fidelity
+
+def test_fidelity_report_and_sites(tmp_path):
+    cell = REPO / "sample_cells" / "practice_stellate.swc"
+    _, doc = cli_tree(tmp_path, cell, 21)
+    tree = pollard.reduce(cell, compartments=21)
+    rep = tree.fidelity()
+    sites = tree.fidelity_sites()
+    json_sites = doc["site_map"]["sites"]
+    assert rep["sites"] == len(json_sites) == len(sites["swc_id"])
+    # the per-site DC attenuations agree with the reducer's, written by the command line
+    np.testing.assert_array_equal(sites["swc_id"], [s["swc_id"] for s in json_sites])
+    np.testing.assert_array_equal(sites["compartment"], [s["compartment"] for s in json_sites])
+    np.testing.assert_allclose(sites["ln_attenuation_to_soma_full"],
+                               [s["ln_attenuation_full"] for s in json_sites], rtol=1e-9,
+                               atol=1e-12)
+    np.testing.assert_allclose(sites["ln_attenuation_to_soma_reduced"],
+                               [s["ln_attenuation_reduced"] for s in json_sites], rtol=1e-9,
+                               atol=1e-12)
+    err = np.abs(np.log(sites["epsp_peak_reduced_mv"] / sites["epsp_peak_full_mv"]))
+    np.testing.assert_allclose(sites["epsp_peak_error_np"], err, rtol=1e-12, atol=1e-15)
+    assert rep["epsp_peak_error_np"]["max"] == pytest.approx(err.max(), rel=1e-12)
+    assert rep["sites_not_peaked"] == 0
+    with pytest.raises(pollard.PollardError, match="outside the accepted range"):
+        tree.fidelity(epsp_tau_ms=-1.0)
+    loaded = pollard.ReducedTree.from_json(tmp_path / "cli-practice_stellate-21.json")
+    with pytest.raises(pollard.PollardError, match="no cell to compare with"):
+        loaded.fidelity()
