@@ -1,5 +1,6 @@
 //! The branching lab's model: small parametric trees built in memory for teaching, computed with
-//! the same engine as a real cell (SWC points → [`Morphology`] → [`Flat`] → [`Network`] → [`Maps`]).
+//! the same engine as a real cell (SWC points → [`Morphology`] → [`Flat`] → [`Network`] →
+//! [`TreeMaps`]).
 //!
 //! A tree is a list of [`Section`]s: uniform cylinders, each made of `segments` equal SWC
 //! segments, laid out in a fan in the x–y plane. Shapes: one cable, a Y junction, a symmetric
@@ -10,17 +11,22 @@
 //! Two things differ from reading the same tree back from its SWC file, both on purpose:
 //! - Joints. Under the SWC geometry rule a daughter's first segment would taper from the
 //!   parent's radius to its own. Each daughter therefore starts with a joint point
-//!   [`JOINT_UM`] from the fork, at its own radius; the lab treats that short piece as part of
-//!   the daughter's cylinder (the ideal tree of the lessons). Read from the file, that piece is a
+//!   [`JOINT_UM`] from the fork, at its own radius, and the network is built with
+//!   [`SegmentRadii::Distal`] (every segment a cylinder of its point's radius), so that short
+//!   piece is part of the daughter's cylinder (the ideal tree of the lessons). Read from the file, that piece is a
 //!   short frustum whose extra membrane is the annulus π·|r_parent² − r_daughter²|, a fraction of
 //!   a percent of a branch's membrane.
-//! - Killed ends. A killed tip is held at rest (V = 0). The file cannot say that, so the main
-//!   view sees every tip sealed.
+//! - Killed ends. A killed tip is held at rest (V = 0), an input of the network builder
+//!   ([`NetworkInputs::killed`]). The file cannot say that, so the main view sees every tip
+//!   sealed.
 //!
 //! Nothing recurses: sections are made breadth-first from a queue, and every pass over nodes is a
 //! loop over the parents-first order.
 
-use crate::cable::{C64, CableError, Network, Params, TreeMaps, UM};
+use crate::cable::{
+    C64, CableError, Network, NetworkInputs, Params, SegmentRadii, TreeMaps, UM,
+    electrotonic_distance,
+};
 use crate::morphology::{Flat, Morphology, NONE};
 use crate::swc::{SwcError, SwcFile, SwcPoint};
 use std::collections::{BTreeMap, VecDeque};
@@ -386,7 +392,7 @@ pub struct LabTree {
     pub sections: Vec<Section>,
     /// The tree as a cell (what "send to main view" and "export as SWC" hand over).
     pub morphology: Morphology,
-    /// Flat arrays with the joints made cylinders (see the module doc).
+    /// Flat arrays of the morphology (the network reads them with [`SegmentRadii::Distal`]).
     pub flat: Flat,
     /// The network with killed tips held at rest.
     pub net: Network,
@@ -412,7 +418,7 @@ impl LabTree {
             header: Vec::new(),
             warnings: Vec::new(),
         })?;
-        let mut flat = morphology.flatten();
+        let flat = morphology.flatten();
         // id → node (ids are 1..=n here, so an array indexed by id − 1 is fine)
         let mut id_node = vec![NONE; morphology.len()];
         for (i, p) in morphology.points.iter().enumerate() {
@@ -436,31 +442,21 @@ impl LabTree {
                 k = flat.parent[k as usize];
             }
         }
-        // joints: the daughter's own cylinder (ideal tree)
-        for (k, &s) in node_section.iter().enumerate().skip(1) {
-            if s != NONE {
-                let r = secs[s as usize].piece.diam_um / 2.0;
-                flat.r_prox_um[k] = r;
-                flat.r_dist_um[k] = r;
-            }
-        }
-        let mut net = Network::build(&flat, &spec.params, spec.freq_hz)?;
-        // Killed tip k: V_k = 0, so its segment's series admittance goes from the parent to
-        // ground; with the segment's proximal shunt already at the parent, the parent sees
-        // Y0·tanh(L/2) + Y0/sinh(L) = Y0·coth(L), the killed-end input admittance (Rall 1959;
-        // Johnston & Wu 1995 eq. 4.40). Node k is then cut off (g = 0) with a dummy shunt.
+        let killed_nodes: Vec<u32> = secs
+            .iter()
+            .enumerate()
+            .filter(|(_, sec)| sec.end == Some(End::Killed))
+            .map(|(s, _)| section_end_node[s])
+            .collect();
         let mut killed = vec![false; n];
-        for (s, sec) in secs.iter().enumerate() {
-            if sec.end == Some(End::Killed) {
-                let k = section_end_node[s] as usize;
-                let p = flat.parent[k] as usize;
-                let gk = net.g[k];
-                net.shunt[p] += gk;
-                net.g[k] = C64::new(0.0, 0.0);
-                net.shunt[k] = C64::new(1.0, 0.0);
-                killed[k] = true;
-            }
+        for &k in &killed_nodes {
+            killed[k as usize] = true;
         }
+        let inputs = NetworkInputs {
+            radii: SegmentRadii::Distal,
+            killed: killed_nodes,
+        };
+        let net = Network::build_with(&flat, &spec.params, spec.freq_hz, &inputs)?;
         let maps = net.maps();
         Ok(LabTree {
             spec: spec.clone(),
@@ -529,14 +525,7 @@ impl LabTree {
 
     /// The DC electrotonic distance X = Σ l/λ(d) from the soma at every node (Rall 1959).
     pub fn electrotonic_distance(&self) -> Vec<f64> {
-        let n = self.len();
-        let mut x = vec![0.0; n];
-        for k in 1..n {
-            let d = self.node_diam_um(k);
-            x[k] = x[self.flat.parent[k] as usize]
-                + self.flat.length_um[k] / self.spec.params.lambda_um(d);
-        }
-        x
+        electrotonic_distance(&self.flat, &self.spec.params, SegmentRadii::Distal)
     }
 
     /// Path distance from the soma at every node (µm).
@@ -572,7 +561,7 @@ pub struct Junction {
 }
 
 /// Rall's equivalent cylinder, when the tree qualifies (Rall 1962).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone)]
 pub struct Equivalent {
     /// Why the tree does not qualify (empty = it does).
     pub reasons: Vec<String>,
@@ -589,11 +578,19 @@ pub struct Equivalent {
     pub rin_tree_mohm: f64,
     pub rin_cylinder_mohm: f64,
     pub rin_closed_mohm: f64,
+    /// The cylinder computed through the engine like any lab tree (path from its tip); `None`
+    /// for the cylinder's own comparison.
+    pub cylinder: Option<Box<LabResult>>,
 }
 
 impl Equivalent {
     pub fn qualifies(&self) -> bool {
         self.reasons.is_empty()
+    }
+
+    /// The cylinder to draw beside the tree: only when the tree qualifies.
+    pub fn shown_cylinder(&self) -> Option<&LabResult> {
+        self.cylinder.as_deref().filter(|_| self.qualifies())
     }
 }
 
@@ -641,8 +638,13 @@ pub struct LabResult {
 }
 
 impl LabResult {
-    /// Builds, solves and measures along the path to the tip below section `chosen`.
+    /// Builds, solves and measures along the path to the tip below section `chosen`, and the
+    /// equivalent cylinder's own result.
     pub fn compute(spec: &TreeSpec, chosen: usize) -> Result<LabResult, LabError> {
+        LabResult::compute_with(spec, chosen, true)
+    }
+
+    fn compute_with(spec: &TreeSpec, chosen: usize, cylinder: bool) -> Result<LabResult, LabError> {
         let tree = LabTree::build(spec)?;
         if chosen >= tree.sections.len() {
             return Err(LabError::NoSection(chosen));
@@ -718,7 +720,7 @@ impl LabResult {
                 }
             })
             .collect::<Vec<_>>();
-        let equivalent = equivalent_cylinder(&tree, &junctions, &x_all)?;
+        let equivalent = equivalent_cylinder(&tree, &junctions, &x_all, cylinder)?;
         Ok(LabResult {
             tree,
             path,
@@ -741,6 +743,7 @@ fn equivalent_cylinder(
     tree: &LabTree,
     junctions: &[Junction],
     x_all: &[f64],
+    with_result: bool,
 ) -> Result<Equivalent, LabError> {
     let spec = &tree.spec;
     let mut reasons = Vec::new();
@@ -782,7 +785,12 @@ fn equivalent_cylinder(
     cyl.overrides.clear();
     cyl.end_overrides.clear();
     cyl.end = end;
-    let cyl_tree = LabTree::build(&cyl)?;
+    let (rin_cylinder_mohm, cylinder) = if with_result {
+        let c = LabResult::compute_with(&cyl, 0, false)?;
+        (c.tree.soma_rin_mohm(), Some(Box::new(c)))
+    } else {
+        (LabTree::build(&cyl)?.soma_rin_mohm(), None)
+    };
     let rin_closed = closed_form_input_impedance(
         &spec.params,
         spec.freq_hz,
@@ -798,8 +806,9 @@ fn equivalent_cylinder(
         length_um,
         end,
         rin_tree_mohm: tree.soma_rin_mohm(),
-        rin_cylinder_mohm: cyl_tree.soma_rin_mohm(),
+        rin_cylinder_mohm,
         rin_closed_mohm: rin_closed.norm() * 1e-6,
+        cylinder,
     })
 }
 

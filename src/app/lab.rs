@@ -228,8 +228,6 @@ pub struct LabView {
     /// The dashed curves: the same tree at DC when the frequency is above 0, or, in the
     /// sealed-versus-killed lesson, with the other end condition; with their name.
     compare: Option<(&'static str, LabResult)>,
-    /// The equivalent cylinder through the engine, when the tree qualifies.
-    cylinder: Option<LabResult>,
     error: Option<String>,
     computed: Option<(TreeSpec, usize)>,
     pending_export: Option<Receiver<Option<PathBuf>>>,
@@ -259,7 +257,6 @@ impl LabView {
             notice: None,
             result: None,
             compare: None,
-            cylinder: None,
             error: None,
             computed: None,
             pending_export: None,
@@ -356,17 +353,6 @@ impl LabView {
                     LabResult::compute(&other, self.chosen)
                         .ok()
                         .map(|r| (what, r))
-                } else {
-                    None
-                };
-                self.cylinder = if r.equivalent.qualifies() {
-                    let mut c = self.spec.clone();
-                    c.shape = Shape::Cable;
-                    c.level[0] = Piece::new(r.equivalent.length_um, r.equivalent.diam_um);
-                    c.overrides.clear();
-                    c.end_overrides.clear();
-                    c.end = r.equivalent.end;
-                    LabResult::compute(&c, 0).ok()
                 } else {
                     None
                 };
@@ -728,7 +714,7 @@ impl LabView {
                 egui::ScrollArea::vertical()
                     .id_salt("lab_numbers")
                     .max_height(top_h)
-                    .show(ui, |ui| numbers(ui, r, self.cylinder.as_ref()));
+                    .show(ui, |ui| numbers(ui, r, r.equivalent.shown_cylinder()));
             });
         });
         if let Some(s) = clicked {
@@ -768,7 +754,7 @@ impl LabView {
             }
         }
         // the equivalent cylinder, when there is one, goes under the tree at the same scale
-        let cyl = self.cylinder.as_ref();
+        let cyl = r.equivalent.shown_cylinder();
         let cyl_y = lo[1] - 0.12 * (hi[0] - lo[0]).max(hi[1] - lo[1]).max(1.0);
         if let Some(c) = cyl {
             for p in &c.tree.flat.pos {

@@ -30,7 +30,7 @@
 //! At DC the work is done in `f64` (a fast path), otherwise in complex numbers.
 
 use super::solve::TreeMaps;
-use super::{C64, CableError, Params, Scalar, network_arrays, segment_electrotonic_length};
+use super::{C64, CableError, Params, Scalar, SegmentRadii, electrotonic_distance, network_arrays};
 use crate::morphology::{Flat, NONE};
 
 /// The kernel's maps, in `f64` at DC (the fast path) or complex above.
@@ -261,18 +261,11 @@ impl CellMaps {
     /// Whole-cell numbers (needs the same `flat` the maps were computed from, for the geometry).
     pub fn summary(&self, flat: &Flat) -> Summary {
         let n = self.len().min(flat.len());
-        let mut x = vec![0.0; n];
+        let x = electrotonic_distance(flat, &self.params, SegmentRadii::Frustum);
         let mut path = vec![0.0; n];
         let mut has_child = vec![false; n];
         for k in 1..n {
             let p = flat.parent[k] as usize;
-            x[k] = x[p]
-                + segment_electrotonic_length(
-                    &self.params,
-                    flat.length_um[k],
-                    flat.r_prox_um[k],
-                    flat.r_dist_um[k],
-                );
             path[k] = path[p] + flat.length_um[k];
             has_child[p] = true;
         }

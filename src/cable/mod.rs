@@ -161,6 +161,8 @@ pub enum CableError {
     Implausible { extent_mm: f64 },
     #[error("the file has no points")]
     Empty,
+    #[error("node {node} cannot be held at rest: the tree has nodes 1 to {last} besides the soma")]
+    KilledNode { node: usize, last: usize },
 }
 
 impl Params {
@@ -399,16 +401,66 @@ fn check_radii(flat: &Flat) -> Result<(), CableError> {
     }
 }
 
+/// How the network builder reads a segment's radii.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum SegmentRadii {
+    /// A frustum from the parent point's radius to the point's own (the SWC rule).
+    #[default]
+    Frustum,
+    /// A cylinder of the point's own radius (the ideal trees of teaching, where a daughter
+    /// starts at its own diameter right at the fork).
+    Distal,
+}
+
+impl SegmentRadii {
+    /// (proximal, distal) radius of node k's segment (µm).
+    #[inline]
+    fn of(self, flat: &Flat, k: usize) -> (f64, f64) {
+        match self {
+            SegmentRadii::Frustum => (flat.r_prox_um[k], flat.r_dist_um[k]),
+            SegmentRadii::Distal => (flat.r_dist_um[k], flat.r_dist_um[k]),
+        }
+    }
+}
+
+/// What the network builder takes besides the cell's arrays and the membrane.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct NetworkInputs {
+    pub radii: SegmentRadii,
+    /// Nodes held at rest (V = 0: killed, clamped ends). Node k's link to its parent then runs
+    /// from the parent to ground, so the parent sees Y0·tanh(L/2) + Y0/sinh L = Y0·coth L, the
+    /// killed-end input admittance (Rall 1959; Johnston & Wu 1995 eq. 4.40); links to k's
+    /// children run from them to ground. Node k itself is cut off (g = 0) with a 1 S dummy
+    /// shunt: its own Z_kk means nothing (it is 0).
+    pub killed: Vec<u32>,
+}
+
 /// The series admittances `g` and shunts `shunt` of the main tree in any [`Scalar`] (see
-/// [`Network`]). Checks parameters and radii.
+/// [`Network`]), SWC frusta, no killed ends. Checks parameters and radii.
 pub fn network_arrays<T: Scalar>(
     flat: &Flat,
     params: &Params,
     freq_hz: f64,
 ) -> Result<(Vec<T>, Vec<T>), CableError> {
+    network_arrays_with(flat, params, freq_hz, &NetworkInputs::default())
+}
+
+/// [`network_arrays`] with the builder's other inputs (segment radii, killed ends).
+pub fn network_arrays_with<T: Scalar>(
+    flat: &Flat,
+    params: &Params,
+    freq_hz: f64,
+    inputs: &NetworkInputs,
+) -> Result<(Vec<T>, Vec<T>), CableError> {
     params.validate(freq_hz)?;
     check_radii(flat)?;
     let n = flat.len();
+    if let Some(&k) = inputs.killed.iter().find(|&&k| k == 0 || k as usize >= n) {
+        return Err(CableError::KilledNode {
+            node: k as usize,
+            last: n.saturating_sub(1),
+        });
+    }
     let ym = T::from_c64(params.membrane_admittance(freq_hz));
     let zero = T::real(0.0);
     let mut g = vec![zero; n];
@@ -418,24 +470,59 @@ pub fn network_arrays<T: Scalar>(
     }
     shunt[0] = ym * (flat.soma_area_um2 * UM * UM);
     for k in 1..n {
-        let (s, p, d) = segment_pi_t(
-            params,
-            ym,
-            flat.length_um[k],
-            flat.r_prox_um[k],
-            flat.r_dist_um[k],
-        );
+        let (a, b) = inputs.radii.of(flat, k);
+        let (s, p, d) = segment_pi_t(params, ym, flat.length_um[k], a, b);
         g[k] = s;
         shunt[flat.parent[k] as usize] += p;
         shunt[k] += d;
     }
+    if !inputs.killed.is_empty() {
+        let mut killed = vec![false; n];
+        for &k in &inputs.killed {
+            killed[k as usize] = true;
+        }
+        for k in 1..n {
+            let p = flat.parent[k] as usize;
+            if killed[k] || killed[p] {
+                let live = if killed[k] { p } else { k };
+                shunt[live] += g[k];
+                g[k] = zero;
+            }
+        }
+        for (k, _) in killed.iter().enumerate().filter(|(_, x)| **x) {
+            shunt[k] = T::real(1.0);
+        }
+    }
     Ok((g, shunt))
+}
+
+/// DC electrotonic distance X = Σ l/λ from the soma at every node, segment by segment with
+/// [`segment_electrotonic_length`] (Rall 1959; Koch 1999 ch. 2).
+pub fn electrotonic_distance(flat: &Flat, params: &Params, radii: SegmentRadii) -> Vec<f64> {
+    let n = flat.len();
+    let mut x = vec![0.0; n];
+    for k in 1..n {
+        let (a, b) = radii.of(flat, k);
+        x[k] = x[flat.parent[k] as usize]
+            + segment_electrotonic_length(params, flat.length_um[k], a, b);
+    }
+    x
 }
 
 impl Network {
     /// Builds the network of the main tree at frequency `freq_hz` (0 = DC).
     pub fn build(flat: &Flat, params: &Params, freq_hz: f64) -> Result<Network, CableError> {
-        let (g, shunt) = network_arrays::<C64>(flat, params, freq_hz)?;
+        Network::build_with(flat, params, freq_hz, &NetworkInputs::default())
+    }
+
+    /// [`Network::build`] with the builder's other inputs (segment radii, killed ends).
+    pub fn build_with(
+        flat: &Flat,
+        params: &Params,
+        freq_hz: f64,
+        inputs: &NetworkInputs,
+    ) -> Result<Network, CableError> {
+        let (g, shunt) = network_arrays_with::<C64>(flat, params, freq_hz, inputs)?;
         Ok(Network {
             parent: flat.parent.clone(),
             g,
@@ -526,6 +613,32 @@ mod tests {
                 assert!((sr - s_ref.re).abs() < 1e-14 * s_ref.re);
                 assert!((pr - p_ref.re).abs() < 1e-14 * p_ref.re);
             }
+        }
+    }
+
+    #[test]
+    fn killed_nodes_outside_the_tree_are_errors() {
+        let f = Flat {
+            parent: vec![NONE, 0],
+            length_um: vec![0.0, 100.0],
+            r_prox_um: vec![1.0, 1.0],
+            r_dist_um: vec![1.0, 1.0],
+            soma_area_um2: 10.0,
+            ..Default::default()
+        };
+        for bad in [0, 2] {
+            let inputs = NetworkInputs {
+                killed: vec![bad],
+                ..Default::default()
+            };
+            let e = network_arrays_with::<f64>(&f, &Params::default(), 0.0, &inputs);
+            assert_eq!(
+                e,
+                Err(CableError::KilledNode {
+                    node: bad as usize,
+                    last: 1
+                })
+            );
         }
     }
 
