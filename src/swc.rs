@@ -153,7 +153,9 @@ pub fn parse_bytes(bytes: &[u8], source: &str) -> Result<SwcFile, SwcError> {
     }
 }
 
-/// Parses SWC text; `source` names the file in messages.
+/// Parses SWC text; `source` names the file in messages. Three stages: each line is cut into
+/// its columns ([`columns`]), each point line read into a point ([`point`]), and the warnings
+/// about the whole file gathered at the end ([`file_warnings`]).
 pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
     // A byte-order mark (as some Windows editors write) is not part of the first line.
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
@@ -173,90 +175,19 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
     };
     for (i, raw) in text.split('\n').enumerate() {
         let lineno = i + 1;
-        let raw = raw.strip_suffix('\r').unwrap_or(raw);
-        let content = match raw.find('#') {
-            Some(at) => {
-                out.header.push(raw[at + 1..].trim_end().to_string());
-                &raw[..at]
-            }
-            None => raw,
+        let (fields, extra) = match columns(raw, &mut out.header) {
+            Ok(None) => continue,
+            Ok(Some(c)) => c,
+            Err(f) => return Err(err(lineno, f)),
         };
-        let mut cols = content.split_ascii_whitespace();
-        let mut fields: [&str; 7] = [""; 7];
-        let mut n = 0;
-        for f in cols.by_ref().take(7) {
-            fields[n] = f;
-            n += 1;
-        }
-        if n == 0 {
-            continue;
-        }
-        if n < 7 {
-            return Err(err(lineno, Fault::TooFewColumns(n)));
-        }
-        if cols.next().is_some() {
+        if extra {
             extra_columns = Some(match extra_columns {
                 Some((first, count)) => (first, count + 1),
                 None => (lineno, 1),
             });
         }
-        let id = parse_int(fields[0], 0, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
-        if id < 0 {
-            return Err(err(
-                lineno,
-                Fault::OutOfRange {
-                    name: "id",
-                    text: shown(fields[0]),
-                    rule: "ids are 0 or more",
-                },
-            ));
-        }
-        let kind = parse_int(fields[1], 1, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
-        let kind = i32::try_from(kind).map_err(|_| {
-            err(
-                lineno,
-                Fault::OutOfRange {
-                    name: "type",
-                    text: shown(fields[1]),
-                    rule: "a type code fits in 32 bits",
-                },
-            )
-        })?;
-        let mut pos = [0.0; 3];
-        for (c, p) in pos.iter_mut().enumerate() {
-            *p = parse_float(fields[2 + c], 2 + c).map_err(|f| err(lineno, f))?;
-        }
-        let radius = if fields[5] == "NA" {
-            None
-        } else {
-            let r = parse_float(fields[5], 5).map_err(|f| err(lineno, f))?;
-            if r < 0.0 {
-                return Err(err(lineno, Fault::NegativeRadius(r)));
-            }
-            Some(r)
-        };
-        let parent = parse_int(fields[6], 6, &mut float_ids, lineno).map_err(|f| err(lineno, f))?;
-        if parent < -1 {
-            return Err(err(
-                lineno,
-                Fault::OutOfRange {
-                    name: "parent",
-                    text: shown(fields[6]),
-                    rule: "a parent is -1 (a root) or an id",
-                },
-            ));
-        }
-        if parent == id {
-            return Err(err(lineno, Fault::OwnParent(id)));
-        }
-        out.points.push(SwcPoint {
-            id,
-            kind,
-            pos,
-            radius,
-            parent,
-            line: lineno,
-        });
+        let p = point(&fields, lineno, &mut float_ids).map_err(|f| err(lineno, f))?;
+        out.points.push(p);
     }
     if out.points.is_empty() {
         return Err(SwcError {
@@ -265,6 +196,102 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
             fault: Fault::Empty,
         });
     }
+    file_warnings(&mut out, extra_columns, float_ids);
+    Ok(out)
+}
+
+/// Stage 1: one line (without its `\n`; a `\r` before it is dropped) → its seven columns and
+/// whether it had more, or `None` for a line without columns. A `#` starts a comment, which is
+/// kept in `header`.
+fn columns<'t>(
+    raw: &'t str,
+    header: &mut Vec<String>,
+) -> Result<Option<([&'t str; 7], bool)>, Fault> {
+    let raw = raw.strip_suffix('\r').unwrap_or(raw);
+    let content = match raw.find('#') {
+        Some(at) => {
+            header.push(raw[at + 1..].trim_end().to_string());
+            &raw[..at]
+        }
+        None => raw,
+    };
+    let mut cols = content.split_ascii_whitespace();
+    let mut fields: [&str; 7] = [""; 7];
+    let mut n = 0;
+    for f in cols.by_ref().take(7) {
+        fields[n] = f;
+        n += 1;
+    }
+    match n {
+        0 => Ok(None),
+        1..=6 => Err(Fault::TooFewColumns(n)),
+        _ => Ok(Some((fields, cols.next().is_some()))),
+    }
+}
+
+/// Stage 2: the seven columns of line `lineno` → a point, with every range check of one line
+/// (ids ≥ 0, a 32-bit type, finite coordinates, a radius ≥ 0 or NA, parent −1 or an id other
+/// than its own). `float_ids` records the first line whose integers were written as decimals.
+fn point(
+    fields: &[&str; 7],
+    lineno: usize,
+    float_ids: &mut Option<usize>,
+) -> Result<SwcPoint, Fault> {
+    let id = parse_int(fields[0], 0, float_ids, lineno)?;
+    if id < 0 {
+        return Err(Fault::OutOfRange {
+            name: "id",
+            text: shown(fields[0]),
+            rule: "ids are 0 or more",
+        });
+    }
+    let kind = parse_int(fields[1], 1, float_ids, lineno)?;
+    let kind = i32::try_from(kind).map_err(|_| Fault::OutOfRange {
+        name: "type",
+        text: shown(fields[1]),
+        rule: "a type code fits in 32 bits",
+    })?;
+    let mut pos = [0.0; 3];
+    for (c, p) in pos.iter_mut().enumerate() {
+        *p = parse_float(fields[2 + c], 2 + c)?;
+    }
+    let radius = if fields[5] == "NA" {
+        None
+    } else {
+        let r = parse_float(fields[5], 5)?;
+        if r < 0.0 {
+            return Err(Fault::NegativeRadius(r));
+        }
+        Some(r)
+    };
+    let parent = parse_int(fields[6], 6, float_ids, lineno)?;
+    if parent < -1 {
+        return Err(Fault::OutOfRange {
+            name: "parent",
+            text: shown(fields[6]),
+            rule: "a parent is -1 (a root) or an id",
+        });
+    }
+    if parent == id {
+        return Err(Fault::OwnParent(id));
+    }
+    Ok(SwcPoint {
+        id,
+        kind,
+        pos,
+        radius,
+        parent,
+        line: lineno,
+    })
+}
+
+/// Stage 3: warnings about the whole file (extra columns, integers written as decimals,
+/// unknown radii), each naming its first line.
+fn file_warnings(
+    out: &mut SwcFile,
+    extra_columns: Option<(usize, usize)>,
+    float_ids: Option<usize>,
+) {
     if let Some((first, count)) = extra_columns {
         out.warnings.push(Warning::new(
             "extra-columns",
@@ -292,7 +319,6 @@ pub fn parse_str(text: &str, source: &str) -> Result<SwcFile, SwcError> {
             format!("{na} point(s) have radius NA (unknown); cable work needs a default diameter"),
         ));
     }
-    Ok(out)
 }
 
 /// Number of `\n` bytes, summed in blocks so that the compiler can use vector instructions.
@@ -426,5 +452,36 @@ mod tests {
         assert_eq!(e.line, Some(2));
         assert!(matches!(e.fault, Fault::NotUtf8(_)));
         assert!(e.to_string().starts_with("t.swc:2: "));
+    }
+
+    #[test]
+    fn columns_stage_cuts_comments_and_counts_columns() {
+        let mut header = Vec::new();
+        assert_eq!(columns("  # only a comment\r", &mut header), Ok(None));
+        assert_eq!(header, [" only a comment"]);
+        let (f, extra) = columns("1 1 0 0 0 1 -1 7 # c", &mut header)
+            .unwrap()
+            .unwrap();
+        assert_eq!((f[0], f[6], extra), ("1", "-1", true));
+        assert_eq!(columns("1 2 3", &mut header), Err(Fault::TooFewColumns(3)));
+    }
+
+    #[test]
+    fn point_stage_checks_one_line() {
+        let mut fi = None;
+        let ok = point(&["3", "3", "1", "2", "3", "0.5", "2"], 4, &mut fi).unwrap();
+        assert_eq!(
+            (ok.id, ok.kind, ok.pos, ok.radius, ok.parent, ok.line),
+            (3, 3, [1.0, 2.0, 3.0], Some(0.5), 2, 4)
+        );
+        let na = point(&["3", "3", "1", "2", "3", "NA", "2"], 4, &mut fi).unwrap();
+        assert_eq!(na.radius, None);
+        let own = point(&["3", "3", "1", "2", "3", "1", "3"], 4, &mut fi);
+        assert_eq!(own.err(), Some(Fault::OwnParent(3)));
+        let neg = point(&["3", "3", "1", "2", "3", "-1", "2"], 4, &mut fi);
+        assert_eq!(neg.err(), Some(Fault::NegativeRadius(-1.0)));
+        assert_eq!(fi, None);
+        point(&["3.0", "3", "1", "2", "3", "1", "2"], 9, &mut fi).unwrap();
+        assert_eq!(fi, Some(9));
     }
 }
