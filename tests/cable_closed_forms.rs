@@ -46,12 +46,12 @@ fn chain(nodes: &mut Vec<(u32, f64, f64)>, from: u32, length: f64, r: f64, m: us
     at
 }
 
-/// λ = √(Rm·d/(4Ra)) in µm (Rall 1959; Johnston & Wu 1995 eq. 4.25).
+/// λ = √(Rm·d/(4Ra)) in µm (Rall 1959; Johnston & Wu 1995 ch. 4, from memory).
 fn lambda_um(p: &Params, d_um: f64) -> f64 {
     (p.rm_ohm_cm2 * d_um * UM / (4.0 * p.ra_ohm_cm)).sqrt() / UM
 }
 
-/// R∞ = (2/π)·√(Rm·Ra)·d^(−3/2), d in cm (Rall 1959; Johnston & Wu 1995 eq. 4.29; Koch 1999 eq. 2.23).
+/// R∞ = (2/π)·√(Rm·Ra)·d^(−3/2), d in cm (Rall 1959; Johnston & Wu 1995 ch. 4, from memory; Koch 1999 ch. 2, from memory).
 fn r_inf_ohm(p: &Params, d_um: f64) -> f64 {
     2.0 / PI * (p.rm_ohm_cm2 * p.ra_ohm_cm).sqrt() * (d_um * UM).powf(-1.5)
 }
@@ -73,7 +73,7 @@ fn rel(a: C64, b: C64) -> f64 {
 
 /// Sealed-end cylinder of diameter d and length l seen from its proximal end (zero-area soma):
 /// checks R_in = Z∞·coth(L) and V(X)/V(0) = cosh(L − X)/cosh(L) at every node
-/// (Rall 1959; Johnston & Wu 1995 eqs. 4.40, 4.46; Koch 1999 eq. 2.19), with complex L at f > 0.
+/// (Rall 1959; Johnston & Wu 1995 ch. 4, from memory; Koch 1999 ch. 2, from memory), with complex L at f > 0.
 fn check_sealed_cylinder(p: &Params, f: f64, d: f64, l: f64, m: usize) {
     let mut nodes = Vec::new();
     chain(&mut nodes, 0, l, d / 2.0, m);
@@ -102,7 +102,7 @@ fn check_sealed_cylinder(p: &Params, f: f64, d: f64, l: f64, m: usize) {
 
 #[test]
 fn sealed_end_finite_cylinder_dc() {
-    // Rall 1959; Johnston & Wu 1995 eq. 4.40: R_in = R∞·coth(L), V(X)/V(0) = cosh(L−X)/cosh(L)
+    // Rall 1959; Johnston & Wu 1995 ch. 4, from memory: R_in = R∞·coth(L), V(X)/V(0) = cosh(L−X)/cosh(L)
     let p = Params::default();
     check_sealed_cylinder(&p, 0.0, 2.0, 600.0, 60);
     check_sealed_cylinder(&p, 0.0, 0.5, 1500.0, 7);
@@ -130,7 +130,7 @@ fn sealed_end_finite_cylinder_100_hz() {
 
 #[test]
 fn semi_infinite_limit() {
-    // R∞ = (2/π)·√(Rm·Ra)·d^(−3/2) (Rall 1959; Johnston & Wu 1995 eq. 4.29). A cylinder 40 λ
+    // R∞ = (2/π)·√(Rm·Ra)·d^(−3/2) (Rall 1959; Johnston & Wu 1995 ch. 4, from memory). A cylinder 40 λ
     // long: coth(40) − 1 < 1e-34. Check value from the note, from memory: d = 2 µm with the
     // defaults gives R∞ ≈ 390 MΩ.
     let p = Params::default();

@@ -5,13 +5,13 @@ use pollard::cable::{C64, Params};
 use pollard::lab::{End, LabResult, LabTree, Piece, Shape, TreeSpec};
 use std::f64::consts::PI;
 
-/// R∞ = (2/π)·√(Rm·Ra)·d^(−3/2) (Ω), d in µm (Rall 1959; Johnston & Wu 1995 eq. 4.30).
+/// R∞ = (2/π)·√(Rm·Ra)·d^(−3/2) (Ω), d in µm (Rall 1959; Johnston & Wu 1995 ch. 4, from memory).
 fn r_inf(p: &Params, d_um: f64) -> f64 {
     let d = d_um * 1e-4;
     2.0 / PI * (p.rm_ohm_cm2 * p.ra_ohm_cm).sqrt() * d.powf(-1.5)
 }
 
-/// λ = √(Rm·d/(4·Ra)) (µm) (Johnston & Wu 1995 eq. 4.25).
+/// λ = √(Rm·d/(4·Ra)) (µm) (Johnston & Wu 1995 ch. 4, from memory).
 fn lambda(p: &Params, d_um: f64) -> f64 {
     (p.rm_ohm_cm2 * d_um * 1e-4 / (4.0 * p.ra_ohm_cm)).sqrt() * 1e4
 }
@@ -32,7 +32,7 @@ fn rel(a: f64, b: f64) -> f64 {
 
 #[test]
 fn sealed_cable_input_resistance_is_r_inf_coth_l() {
-    // Rall 1959; Johnston & Wu 1995 eq. 4.38: R_in = R∞·coth(L)
+    // Rall 1959; Johnston & Wu 1995 ch. 4, from memory: R_in = R∞·coth(L)
     for (len, d) in [(300.0, 2.0), (800.0, 1.0), (2000.0, 0.5), (50.0, 4.0)] {
         let s = cable(len, d, End::Sealed);
         let t = LabTree::build(&s).unwrap();
@@ -45,7 +45,7 @@ fn sealed_cable_input_resistance_is_r_inf_coth_l() {
 
 #[test]
 fn killed_cable_input_resistance_is_r_inf_tanh_l() {
-    // Rall 1959; Johnston & Wu 1995 eq. 4.40: R_in = R∞·tanh(L)
+    // Rall 1959; Johnston & Wu 1995 ch. 4, from memory: R_in = R∞·tanh(L)
     for (len, d) in [(300.0, 2.0), (800.0, 1.0), (2000.0, 0.5), (50.0, 4.0)] {
         let s = cable(len, d, End::Killed);
         let t = LabTree::build(&s).unwrap();

@@ -291,7 +291,7 @@ fn the_plots_can_run_against_electrotonic_distance() {
         .click();
     h.run();
     assert_eq!(h.state().x_axis, pollard::app::lab::XAxis::Electrotonic);
-    // X at the tip is ℓ/λ for the lesson's 600 µm × 1 µm cable (Johnston & Wu 1995 eq. 4.25)
+    // X at the tip is ℓ/λ for the lesson's 600 µm × 1 µm cable (Johnston & Wu 1995 ch. 4, from memory)
     let x = *h.state().series().unwrap().x.last().unwrap();
     let lambda = (20_000.0f64 * 1e-4 / (4.0 * 150.0)).sqrt() * 1e4;
     assert!((x - 600.0 / lambda).abs() < 1e-9);

@@ -8,12 +8,12 @@ use pollard::morphology::{Flat, NONE};
 use pollard::reduce::{ReduceOptions, Reducer, Role};
 use std::f64::consts::PI;
 
-/// λ = √(Rm·d/(4Ra)) in µm (Rall 1959; Johnston & Wu 1995 eq. 4.25).
+/// λ = √(Rm·d/(4Ra)) in µm (Rall 1959; Johnston & Wu 1995 ch. 4, from memory).
 fn lambda_um(p: &Params, d_um: f64) -> f64 {
     (p.rm_ohm_cm2 * d_um * UM / (4.0 * p.ra_ohm_cm)).sqrt() / UM
 }
 
-/// G∞ = π·d^{3/2}/(2·√(Rm·Ra)) (S), d in cm (Rall 1959; Johnston & Wu 1995 eq. 4.29).
+/// G∞ = π·d^{3/2}/(2·√(Rm·Ra)) (S), d in cm (Rall 1959; Johnston & Wu 1995 ch. 4, from memory).
 fn g_inf(p: &Params, d_um: f64) -> f64 {
     PI * (d_um * UM).powf(1.5) / (2.0 * (p.rm_ohm_cm2 * p.ra_ohm_cm).sqrt())
 }
