@@ -30,8 +30,8 @@ def fail(msg):
 def main(path):
     with open(path) as f:
         doc = json.load(f)
-    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 1:
-        print("not a version-1 pollard reduced tree:", path)
+    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 2:
+        print("not a version-2 pollard reduced tree:", path)
         return 1
     comps = doc["compartments"]
     n = len(comps)

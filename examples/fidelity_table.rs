@@ -109,10 +109,10 @@ fn main() {
     files.sort_by_key(|p| p.file_name().map(|s| s.to_owned()));
     let opts = FidelityOptions::default();
     println!(
-        "EPSP: alpha current τ = {} ms at each site (by reciprocity: at the soma), {:?}, dt = {} ms, \
+        "EPSP: alpha current τ = {} ms at each site (by reciprocity: at the soma), {}, dt = {} ms, \
          full cell cut into pieces ≤ {} λ; default membrane {:?}.\n",
         opts.tau_ms,
-        opts.method,
+        opts.method.name(),
         opts.dt(),
         opts.pieces.lambda_fraction,
         Params::default()

@@ -73,7 +73,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
 
 /// Version of the reduced-tree JSON layout (`assets/reduced-tree.schema.json`). Raised when a
 /// field changes meaning or is removed; adding fields keeps it.
-pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 1;
+pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 2;
 
 /// The `format` value of a reduced-tree JSON file.
 pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";
@@ -140,6 +140,8 @@ struct TreeFile<'a, B: serde::Serialize> {
     /// The synapse table's map ([`crate::synapses`]), when the sites came from one.
     #[serde(skip_serializing_if = "Option::is_none")]
     synapses: Option<crate::synapses::SynapseJson<'a>>,
+    /// The time-domain fidelity summary ([`crate::fidelity`]); null when not computed.
+    fidelity: Option<&'a crate::fidelity::FidelityReport>,
     /// A caller's own last member (batch: the cell's record).
     #[serde(skip_serializing_if = "Option::is_none")]
     batch: Option<&'a B>,
@@ -148,15 +150,15 @@ struct TreeFile<'a, B: serde::Serialize> {
 /// The reduced tree as JSON (layout: `assets/reduced-tree.schema.json`, version
 /// [`REDUCED_TREE_SCHEMA_VERSION`]): parameters, compartments, the DC feed-forward form, the
 /// site map (every point and every site → compartment, with each site's DC log attenuation to
-/// the soma in the full and the reduced cell) and the report. Non-finite numbers are written as
-/// `null`.
+/// the soma in the full and the reduced cell), the report, and the fidelity summary (`null` here:
+/// [`reduced_tree_json_with`] writes it). Non-finite numbers are written as `null`.
 pub fn reduced_tree_json(
     src: &TreeSource<'_>,
     reducer: &crate::reduce::Reducer,
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json::<()>(src, reducer, tree, report, None, None, true)
+    tree_json::<()>(src, reducer, tree, report, TreeExtras::default(), true)
 }
 
 /// The same document as [`reduced_tree_json`] without indentation (smaller and faster to write:
@@ -167,7 +169,7 @@ pub fn reduced_tree_json_compact(
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
 ) -> Result<String, serde_json::Error> {
-    tree_json::<()>(src, reducer, tree, report, None, None, false)
+    tree_json::<()>(src, reducer, tree, report, TreeExtras::default(), false)
 }
 
 /// [`reduced_tree_json_compact`] with one more member, `batch`, last: the batch run's record of
@@ -179,21 +181,44 @@ pub fn reduced_tree_json_with_batch<B: serde::Serialize>(
     report: &crate::reduce::Report,
     batch: &B,
 ) -> Result<String, serde_json::Error> {
-    tree_json(src, reducer, tree, report, None, Some(batch), false)
+    let extras = TreeExtras {
+        batch: Some(batch),
+        ..TreeExtras::default()
+    };
+    tree_json(src, reducer, tree, report, extras, false)
 }
 
-/// The tree JSON with the optional members: `synapses` (a synapse table's map) and `batch`
+/// The optional members of a tree file.
+pub struct TreeExtras<'a, B> {
+    /// A synapse table's map (`synapses`).
+    pub synapses: Option<crate::synapses::SynapseJson<'a>>,
+    /// The time-domain fidelity summary (`fidelity`; null when absent).
+    pub fidelity: Option<&'a crate::fidelity::FidelityReport>,
+    /// A caller's own last member (`batch`).
+    pub batch: Option<&'a B>,
+}
+
+impl<B> Default for TreeExtras<'_, B> {
+    fn default() -> Self {
+        TreeExtras {
+            synapses: None,
+            fidelity: None,
+            batch: None,
+        }
+    }
+}
+
+/// The tree JSON with the optional members ([`TreeExtras`]): `synapses`, `fidelity` and `batch`
 /// (last); `pretty` indents it as [`reduced_tree_json`] does.
 pub fn reduced_tree_json_with<B: serde::Serialize>(
     src: &TreeSource<'_>,
     reducer: &crate::reduce::Reducer,
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
-    synapses: Option<crate::synapses::SynapseJson<'_>>,
-    batch: Option<&B>,
+    extras: TreeExtras<'_, B>,
     pretty: bool,
 ) -> Result<String, serde_json::Error> {
-    tree_json(src, reducer, tree, report, synapses, batch, pretty)
+    tree_json(src, reducer, tree, report, extras, pretty)
 }
 
 fn tree_json<B: serde::Serialize>(
@@ -201,8 +226,7 @@ fn tree_json<B: serde::Serialize>(
     reducer: &crate::reduce::Reducer,
     tree: &crate::reduce::ReducedTree,
     report: &crate::reduce::Report,
-    synapses: Option<crate::synapses::SynapseJson<'_>>,
-    batch: Option<&B>,
+    extras: TreeExtras<'_, B>,
     pretty: bool,
 ) -> Result<String, serde_json::Error> {
     use crate::morphology::NONE;
@@ -261,8 +285,9 @@ fn tree_json<B: serde::Serialize>(
             sites,
         },
         report,
-        synapses,
-        batch,
+        synapses: extras.synapses,
+        fidelity: extras.fidelity,
+        batch: extras.batch,
     };
     if pretty {
         serde_json::to_string_pretty(&file)

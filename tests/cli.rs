@@ -193,7 +193,7 @@ fn every_command_refuses_every_catalogued_bad_file_in_one_line() {
 }
 
 /// A 1,000,000-deep chain (1 mm in steps of 1 nm: deep, electrically ordinary) through cable,
-/// reduce and batch: nothing recurses over the tree.
+/// reduce (with its time-domain fidelity check) and batch: nothing recurses over the tree.
 #[test]
 fn a_million_deep_chain_goes_through_cable_reduce_and_batch() {
     let dir = tempfile::tempdir().unwrap();
@@ -236,6 +236,7 @@ fn a_million_deep_chain_goes_through_cable_reduce_and_batch() {
         out.to_str().unwrap(),
         "--compartments",
         "3",
+        "--no-fidelity",
     ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(out.join("chain.json").exists());

@@ -44,7 +44,7 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
     assert_eq!(v["format"], "pollard.reduced-tree");
-    assert_eq!(v["schema_version"], 1);
+    assert_eq!(v["schema_version"], 2);
     let comps = v["compartments"].as_array().unwrap();
     assert_eq!(comps.len(), 15);
     // the schema's required fields are present in every compartment
@@ -77,6 +77,26 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
             "missing report {k}"
         );
     }
+    for k in schema["properties"]["fidelity"]["required"]
+        .as_array()
+        .unwrap()
+    {
+        assert!(
+            v["fidelity"].get(k.as_str().unwrap()).is_some(),
+            "missing fidelity {k}"
+        );
+    }
+    // the fidelity summary: ordered statistics, every site peaked, named in the text report
+    let f = &v["fidelity"];
+    let e = &f["epsp_peak_error_np"];
+    assert!(e["median"].as_f64().unwrap() <= e["p95"].as_f64().unwrap());
+    assert!(e["p95"].as_f64().unwrap() <= e["max"].as_f64().unwrap());
+    assert_eq!(f["sites_not_peaked"], 0);
+    assert!(
+        stdout.contains("soma EPSP for an alpha current"),
+        "{stdout}"
+    );
+    assert!(stdout.contains("the soma's own EPSP"), "{stdout}");
     assert_eq!(v["feed_forward"]["w"][0], serde_json::Value::Null);
     assert_eq!(v["compartments"][0]["parent"], serde_json::Value::Null);
     // the SWC has one point per compartment, the root first

@@ -4,7 +4,7 @@ use crate::{arr, arr3, cell_of, fail, flat_of, json_to_py, work};
 use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyArray2};
 use pollard::cable::Params;
-use pollard::export::{TreeSource, reduced_tree_json, write_atomic};
+use pollard::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
 use pollard::fidelity::{Fidelity, FidelityOptions};
 use pollard::morphology::NONE;
 use pollard::reduce::{Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv};
@@ -306,7 +306,15 @@ impl ReducedTree {
                     point_ids: &ids,
                     point_pos: &pos,
                 };
-                let text = reduced_tree_json(&src, reducer, &self.tree, report)
+                // the fidelity summary with the defaults of `pollard reduce`, so that the file
+                // is the command's byte for byte
+                let (f, m) = self.fidelity_of(&FidelityOptions::default())?;
+                let fid = f.report(&self.tree, Some(&m)).map_err(|e| e.to_string())?;
+                let extras = TreeExtras::<()> {
+                    fidelity: Some(&fid),
+                    ..TreeExtras::default()
+                };
+                let text = reduced_tree_json_with(&src, reducer, &self.tree, report, extras, true)
                     .map_err(|e| e.to_string())?;
                 Ok((text, inputs.clone()))
             }

@@ -3,7 +3,8 @@
 use super::record::Record;
 use super::{BatchError, Cell, Row, Settings, Status};
 use crate::cable::prepare;
-use crate::export::{TreeSource, reduced_tree_json_with, write_atomic};
+use crate::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
+use crate::fidelity::{Fidelity, FidelityReport};
 use crate::morphology::Morphology;
 use crate::reduce::Reducer;
 use crate::synapses::{SynapseJson, SynapseMap, table_for_cell};
@@ -16,7 +17,7 @@ struct Computed {
     row: Row,
 }
 
-/// Read, build, reduce one cell; the tree file is [`reduced_tree_json_with_batch`] with the relative path
+/// Read, build, reduce one cell; the tree file is [`reduced_tree_json_with`] (fidelity and record) with the relative path
 /// as its source, so it does not depend on where the archive lies. Errors are plain messages
 /// naming the file (they go into the summary).
 fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Computed, String> {
@@ -51,6 +52,15 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         None => None,
     };
     let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
+    let fidelity =
+        fidelity_for(settings, &reducer, &tree, &m).map_err(|e| format!("{name}: {e}"))?;
+    let fid = |f: fn(&FidelityReport) -> f64| {
+        fidelity
+            .as_ref()
+            .filter(|r| r.sites > 0)
+            .map(f)
+            .filter(|x| x.is_finite())
+    };
     let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
     let src = TreeSource {
         source: name,
@@ -73,6 +83,10 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         site_error_max_np: (report.sites > 0).then_some(e.max).and_then(finite),
         synapses: map.as_ref().map(|m| m.summary.synapses),
         inputs: map.as_ref().map(|m| m.summary.inputs),
+        epsp_peak_error_median_np: fid(|r| r.epsp_peak_error_np.median),
+        epsp_peak_error_p95_np: fid(|r| r.epsp_peak_error_np.p95),
+        time_to_peak_error_p95: fid(|r| r.time_to_peak_error.p95),
+        soma_epsp_peak_error_np: fid(|r| r.soma_epsp_peak_error_np),
         seconds: None,
         error: None,
     };
@@ -82,12 +96,30 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         .as_ref()
         .zip(map.as_ref())
         .map(|(s, m)| SynapseJson::new(s, m, tree.len()));
-    let json = reduced_tree_json_with(&src, &reducer, &tree, &report, member, Some(&record), false)
+    let extras = TreeExtras {
+        synapses: member,
+        fidelity: fidelity.as_ref(),
+        batch: Some(&record),
+    };
+    let json = reduced_tree_json_with(&src, &reducer, &tree, &report, extras, false)
         .map_err(|e| format!("{name}: cannot write the tree as JSON: {e}"))?;
     Ok(Computed {
         json: json.into_bytes(),
         row,
     })
+}
+
+/// The fidelity summary of a cell's tree, when the settings ask for it.
+fn fidelity_for(
+    settings: &Settings,
+    reducer: &Reducer,
+    tree: &crate::reduce::ReducedTree,
+    m: &Morphology,
+) -> Result<Option<FidelityReport>, crate::fidelity::FidelityError> {
+    match &settings.fidelity {
+        None => Ok(None),
+        Some(o) => Ok(Some(Fidelity::new(reducer, o)?.report(tree, Some(m))?)),
+    }
 }
 
 fn make_parent(path: &Path) -> Result<(), BatchError> {

@@ -43,6 +43,7 @@ pub use summary::{CSV_HEADER, csv_fields, merge_summaries, read_summary, write_s
 
 use crate::cable::{Params, PrepOptions};
 use crate::export::WriteError;
+use crate::fidelity::{FidelityError, FidelityOptions};
 use crate::morphology::{Flat, NONE, kind};
 use crate::reduce::{ReduceOptions, Reducer, Sites};
 use serde::{Deserialize, Serialize};
@@ -80,6 +81,8 @@ pub enum BatchError {
     Geometry(#[from] crate::cable::CableError),
     #[error(transparent)]
     Options(#[from] crate::reduce::ReduceError),
+    #[error(transparent)]
+    Fidelity(#[from] FidelityError),
     #[error("{path}: cannot read the summary: {message}")]
     SummaryRead { path: PathBuf, message: String },
     #[error("{folder}: {message}")]
@@ -109,6 +112,8 @@ pub struct Settings {
     /// [`crate::synapses::table_beside`]) as its sites; cells without one keep the default sites.
     #[serde(default)]
     pub synapses: Option<crate::synapses::TableRule>,
+    /// The EPSP fidelity check's options; `None` skips it (its columns are then empty).
+    pub fidelity: Option<FidelityOptions>,
 }
 
 impl Default for Settings {
@@ -124,6 +129,7 @@ impl Default for Settings {
             freq_hz: o.freq_hz,
             junction_length_fraction: o.junction_length_fraction,
             synapses: None,
+            fidelity: Some(FidelityOptions::default()),
         }
     }
 }
@@ -163,6 +169,9 @@ impl Settings {
     /// two-point cell (a soma and one cylinder), so no range is written twice.
     pub fn validate(&self) -> Result<(), BatchError> {
         self.prep().validate()?;
+        if let Some(f) = &self.fidelity {
+            f.validate()?;
+        }
         // a type list is only checked for being empty here (the probe has one dendrite type)
         let mut opts = self.reduce_options();
         opts.types = self.types.clone().filter(|t| t.is_empty());
@@ -224,6 +233,17 @@ pub struct Row {
     pub synapses: Option<usize>,
     #[serde(default)]
     pub inputs: Option<usize>,
+    /// Soma EPSP peak error for an alpha current at each site, |ln(reduced/full)| (nepers):
+    /// median and 95th percentile; time-to-peak error (relative) 95th percentile; the soma's
+    /// own EPSP peak error (nepers). Empty when the check was skipped.
+    #[serde(default)]
+    pub epsp_peak_error_median_np: Option<f64>,
+    #[serde(default)]
+    pub epsp_peak_error_p95_np: Option<f64>,
+    #[serde(default)]
+    pub time_to_peak_error_p95: Option<f64>,
+    #[serde(default)]
+    pub soma_epsp_peak_error_np: Option<f64>,
     /// Wall time of the cell's job in this run (s), rounded to µs; empty for a cell reused
     /// from an earlier run.
     pub seconds: Option<f64>,
@@ -247,6 +267,10 @@ impl Row {
             site_error_max_np: None,
             synapses: None,
             inputs: None,
+            epsp_peak_error_median_np: None,
+            epsp_peak_error_p95_np: None,
+            time_to_peak_error_p95: None,
+            soma_epsp_peak_error_np: None,
             seconds,
             error: Some(error),
         }

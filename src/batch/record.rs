@@ -46,13 +46,17 @@ impl Record {
 }
 
 /// The decimal columns of a [`Row`].
-const FLOAT_FIELDS: [&str; 7] = [
+const FLOAT_FIELDS: [&str; 11] = [
     "total_length_um",
     "soma_rin_full_mohm",
     "soma_rin_reduced_mohm",
     "site_error_median_np",
     "site_error_p95_np",
     "site_error_max_np",
+    "epsp_peak_error_median_np",
+    "epsp_peak_error_p95_np",
+    "time_to_peak_error_p95",
+    "soma_epsp_peak_error_np",
     "seconds",
 ];
 

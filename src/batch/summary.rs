@@ -5,10 +5,10 @@ use crate::export::write_atomic;
 use std::path::{Path, PathBuf};
 
 /// The CSV header, in the column order of [`csv_fields`].
-pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,synapses,inputs,seconds,error";
+pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,synapses,inputs,epsp_peak_error_median_np,epsp_peak_error_p95_np,time_to_peak_error_p95,soma_epsp_peak_error_np,seconds,error";
 
 /// The fields of a row in the order of [`CSV_HEADER`]; missing values are empty fields.
-pub fn csv_fields(r: &Row) -> [String; 15] {
+pub fn csv_fields(r: &Row) -> [String; 19] {
     fn opt<T: ToString>(v: Option<T>) -> String {
         v.map(|x| x.to_string()).unwrap_or_default()
     }
@@ -29,6 +29,10 @@ pub fn csv_fields(r: &Row) -> [String; 15] {
         opt(r.site_error_max_np),
         opt(r.synapses),
         opt(r.inputs),
+        opt(r.epsp_peak_error_median_np),
+        opt(r.epsp_peak_error_p95_np),
+        opt(r.time_to_peak_error_p95),
+        opt(r.soma_epsp_peak_error_np),
         opt(r.seconds),
         r.error.clone().unwrap_or_default(),
     ]
@@ -221,7 +225,10 @@ mod tests {
         assert!(text.starts_with(CSV_HEADER), "{text}");
         assert!(text.contains("\n\"a,b \"\"c\"\".swc\",failed,,"), "{text}");
         assert!(text.contains(",0.5,\"line 3: bad\nthing\"\n"), "{text}");
-        assert!(text.ends_with("\nx.swc,failed,,,,,,,,,,,,,e\n"), "{text}");
+        assert!(
+            text.ends_with("\nx.swc,failed,,,,,,,,,,,,,,,,,e\n"),
+            "{text}"
+        );
         // read back with the crate's reader: the same fields
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("s.csv");

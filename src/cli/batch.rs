@@ -30,6 +30,11 @@ pub struct Args {
     pub membrane: super::common::MembraneArgs,
     #[command(flatten)]
     pub geometry: super::common::GeometryArgs,
+    #[command(flatten)]
+    pub fidelity: super::common::FidelityArgs,
+    /// Skip the EPSP fidelity check (faster; its summary columns are then empty).
+    #[arg(long = "no-fidelity")]
+    pub no_fidelity: bool,
     /// The output folder (created if missing); its subfolders mirror the input's.
     #[arg(long, value_name = "OUT_DIR")]
     pub out: PathBuf,
@@ -200,6 +205,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             snap_limit_um: a.snap.snap_limit,
             skip_far: a.snap.skip_far,
         }),
+        fidelity: (!a.no_fidelity).then(|| a.fidelity.options()),
     };
     // a flag error would fail every cell alike: say it once, before any work
     anyhow::ensure!(

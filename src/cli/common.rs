@@ -1,7 +1,13 @@
 //! Options shared by the commands that compute: the passive membrane, and the fixes a file may
 //! need before cable work (units, missing radii).
 
-use pollard::cable::{Params, PrepOptions};
+use anyhow::Context as _;
+use pollard::Morphology;
+use pollard::cable::{Params, PrepOptions, prepare};
+use pollard::fidelity::FidelityOptions;
+use pollard::reduce::{ReduceOptions, Reducer, Sites, parse_sites_csv};
+use pollard::transient::PieceRule;
+use std::path::{Path, PathBuf};
 
 /// Passive membrane and cytoplasm. Defaults Rm 20 000 Ω·cm², Ra 150 Ω·cm, Cm 1 µF/cm²: common
 /// practice, not from one source.
@@ -55,4 +61,88 @@ impl GeometryArgs {
             scale: self.scale,
         }
     }
+}
+
+/// The EPSP fidelity check: an alpha current at each site, soma voltage, full cell vs reduced
+/// tree (one simulation of each by reciprocity).
+#[derive(clap::Args, Debug, Clone)]
+pub struct FidelityArgs {
+    /// Time constant (ms) of the alpha current (t/τ)·e^(1−t/τ) of the EPSP check.
+    #[arg(long = "epsp-tau", allow_negative_numbers = true, value_name = "MS",
+          default_value_t = FidelityOptions::default().tau_ms)]
+    pub epsp_tau: f64,
+    /// Time step (ms) of the EPSP simulations [default: τ/20].
+    #[arg(long = "dt", allow_negative_numbers = true, value_name = "MS")]
+    pub dt: Option<f64>,
+    /// Length (ms) of the EPSP simulations [default: until every site's EPSP has peaked, at
+    /// most 500 ms].
+    #[arg(long = "duration", allow_negative_numbers = true, value_name = "MS")]
+    pub duration: Option<f64>,
+    /// Largest piece of the full cell's network, as a fraction of its segment's length constant.
+    #[arg(long = "piece-fraction", allow_negative_numbers = true, value_name = "F",
+          default_value_t = FidelityOptions::default().pieces.lambda_fraction)]
+    pub piece_fraction: f64,
+}
+
+impl FidelityArgs {
+    pub fn options(&self) -> FidelityOptions {
+        FidelityOptions {
+            tau_ms: self.epsp_tau,
+            dt_ms: self.dt,
+            duration_ms: self.duration,
+            pieces: PieceRule {
+                lambda_fraction: self.piece_fraction,
+            },
+            ..FidelityOptions::default()
+        }
+    }
+}
+
+/// The reduction's own options, for the commands that reduce on the way (fidelity, trace).
+#[derive(clap::Args, Debug, Clone)]
+pub struct ReduceArgs {
+    /// Number of compartments of the reduced tree, soma included (an even number is rounded
+    /// down; above the maximum gives the maximum).
+    #[arg(long, short = 'n', value_name = "N")]
+    pub compartments: usize,
+    /// Site list of the reduction: one SWC id, or one x,y,z position, per line. Default: every
+    /// dendritic point, weighted by membrane area.
+    #[arg(long = "sites", value_name = "FILE")]
+    pub sites: Option<PathBuf>,
+    /// SWC types to keep, comma-separated (the soma is always kept).
+    #[arg(long, value_delimiter = ',', value_name = "LIST")]
+    pub types: Option<Vec<i32>>,
+    /// Junction link length as a fraction of the branch point's radius.
+    #[arg(long = "junction-fraction", value_name = "F",
+          default_value_t = ReduceOptions::default().junction_length_fraction)]
+    pub junction_fraction: f64,
+}
+
+/// Reads the cell, prepares it and builds the reducer (as `pollard reduce` does).
+pub fn reducer_for(
+    cell: &Path,
+    membrane: &MembraneArgs,
+    geometry: &GeometryArgs,
+    r: &ReduceArgs,
+) -> anyhow::Result<(Morphology, Reducer)> {
+    let params = membrane.params();
+    let name = cell.display().to_string();
+    let m = Morphology::read(cell)?;
+    let flat = prepare(&m, &geometry.prep()).with_context(|| name.clone())?;
+    let sites = match &r.sites {
+        None => Sites::Default,
+        Some(p) => {
+            let text = std::fs::read_to_string(p)
+                .with_context(|| format!("{}: cannot read the site list", p.display()))?;
+            Sites::List(parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?)
+        }
+    };
+    let opts = ReduceOptions {
+        types: r.types.clone(),
+        sites,
+        junction_length_fraction: r.junction_fraction,
+        ..ReduceOptions::default()
+    };
+    let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
+    Ok((m, reducer))
 }

@@ -6,9 +6,11 @@ use std::process::ExitCode;
 mod batch;
 mod cable;
 mod common;
+mod fidelity;
 mod inspect;
 mod reduce;
 mod synapses;
+mod trace;
 mod view;
 
 /// pollard: open a reconstructed neuron (SWC), check it, compute its passive electrical
@@ -30,6 +32,12 @@ pub enum Command {
     Cable(cable::Args),
     /// Collapse the cell into a strict binary compartment tree under a compartment budget.
     Reduce(reduce::Args),
+    /// How well a reduced tree behaves like the cell at every synapse site (EPSP peak and time
+    /// to peak, DC attenuation to and from the soma): a per-site table, CSV and JSON.
+    Fidelity(fidelity::Args),
+    /// Voltage over time at the soma and at one site, full cell and reduced tree, for a current
+    /// or a conductance synapse at the site: CSV and JSON.
+    Trace(trace::Args),
     /// Reduce every SWC file below a folder, in parallel, with one summary table.
     Batch(batch::Args),
     /// Open a file in the desktop app.
@@ -44,6 +52,8 @@ pub fn main() -> ExitCode {
         Some(Command::Inspect(a)) => inspect::run(a),
         Some(Command::Cable(a)) => cable::run(a),
         Some(Command::Reduce(a)) => reduce::run(a),
+        Some(Command::Fidelity(a)) => fidelity::run(a),
+        Some(Command::Trace(a)) => trace::run(a),
         Some(Command::Batch(a)) => batch::run(a),
         Some(Command::View(a)) => view::run(a),
         Some(Command::Lab) => view::run_lab(),

@@ -5,8 +5,9 @@ use anyhow::Context;
 use pollard::Morphology;
 use pollard::cable::prepare;
 use pollard::export::{
-    TreeSource, reduced_tree_json, reduced_tree_json_with, reduced_tree_swc, write_atomic,
+    TreeExtras, TreeSource, reduced_tree_json_with, reduced_tree_swc, write_atomic,
 };
+use pollard::fidelity::{Fidelity, FidelityReport, percent};
 use pollard::reduce::{ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
 use pollard::synapses::{SynapseJson, SynapseMap, synapse_csvs};
 use std::io::Write;
@@ -21,6 +22,12 @@ pub struct Args {
     pub membrane: super::common::MembraneArgs,
     #[command(flatten)]
     pub geometry: super::common::GeometryArgs,
+    #[command(flatten)]
+    pub fidelity: super::common::FidelityArgs,
+    /// Skip the EPSP fidelity check (its simulation of the full cell is the slow part of a
+    /// reduction); the tree file then has `"fidelity": null`.
+    #[arg(long = "no-fidelity")]
+    pub no_fidelity: bool,
     /// Number of compartments of the reduced tree, soma included. A strict binary tree has an
     /// odd number: an even number is rounded down; above the maximum gives the maximum.
     #[arg(long, short = 'n', value_name = "N")]
@@ -110,6 +117,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
     let tree = reducer.tree(a.compartments);
     let report = reducer.report(&tree)?;
+    let fidelity = if a.no_fidelity {
+        None
+    } else {
+        let f = Fidelity::new(&reducer, &a.fidelity.options()).with_context(|| name.clone())?;
+        Some(f.report(&tree, Some(&m))?)
+    };
     let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
     let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
     let src = TreeSource {
@@ -123,13 +136,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         Some(s) => Some(SynapseMap::new(s, &tree)?.with_curve(s, &reducer)?),
         None => None,
     };
-    let json = match (&snapped, &map) {
-        (Some(s), Some(mp)) => {
-            let member = SynapseJson::new(s, mp, tree.len());
-            reduced_tree_json_with::<()>(&src, &reducer, &tree, &report, Some(member), None, true)?
-        }
-        _ => reduced_tree_json(&src, &reducer, &tree, &report)?,
+    let extras = TreeExtras::<()> {
+        synapses: match (&snapped, &map) {
+            (Some(s), Some(mp)) => Some(SynapseJson::new(s, mp, tree.len())),
+            _ => None,
+        },
+        fidelity: fidelity.as_ref(),
+        batch: None,
     };
+    let json = reduced_tree_json_with(&src, &reducer, &tree, &report, extras, true)?;
     let csvs = match (&a.synapse_csv, &snapped, &map) {
         (Some(prefix), Some(s), Some(mp)) => {
             let texts = synapse_csvs(s, mp, &ids);
@@ -163,12 +178,19 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     }
     let mut out = std::io::stdout().lock();
     if a.json {
-        serde_json::to_writer_pretty(&mut out, &report).map_err(std::io::Error::from)?;
+        let doc = ReportOut {
+            report: &report,
+            fidelity: fidelity.as_ref(),
+        };
+        serde_json::to_writer_pretty(&mut out, &doc).map_err(std::io::Error::from)?;
         writeln!(out)?;
     } else {
         write_report(&mut out, &name, &report, reducer.max_compartments())?;
         if let (Some(s), Some(mp)) = (&snapped, &map) {
             super::synapses::write_summary(&mut out, s, mp)?;
+        }
+        if let Some(f) = &fidelity {
+            write_fidelity(&mut out, f)?;
         }
     }
     Ok(ExitCode::SUCCESS)
@@ -246,4 +268,69 @@ fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::
         }
     }
     writeln!(w)
+}
+
+/// The `--json` report: the reducer's report with the fidelity summary as one more member.
+#[derive(serde::Serialize)]
+struct ReportOut<'a> {
+    #[serde(flatten)]
+    report: &'a Report,
+    fidelity: Option<&'a FidelityReport>,
+}
+
+/// The fidelity lines of the text report.
+pub fn write_fidelity(w: &mut impl Write, f: &FidelityReport) -> std::io::Result<()> {
+    let (e, t) = (&f.epsp_peak_error_np, &f.time_to_peak_error);
+    writeln!(
+        w,
+        "  soma EPSP for an alpha current (τ {} ms) at each site, reduced vs full: peak error median {:.1} % ({:.3} Np), 95th percentile {:.1} % ({:.3} Np), max {:.1} % ({:.3} Np); time-to-peak error median {:.1} %, 95th percentile {:.1} %",
+        f.epsp_tau_ms,
+        percent(e.median),
+        e.median,
+        percent(e.p95),
+        e.p95,
+        percent(e.max),
+        e.max,
+        t.median * 100.0,
+        t.p95 * 100.0
+    )?;
+    writeln!(
+        w,
+        "  the soma's own EPSP (current at the soma): peak error {:.1} % ({:.3} Np), time-to-peak error {:.1} %",
+        f.soma_epsp_peak_error_percent,
+        f.soma_epsp_peak_error_np,
+        f.soma_time_to_peak_error * 100.0
+    )?;
+    let d = &f.ln_attenuation_from_soma_error_np;
+    writeln!(
+        w,
+        "  error in DC log attenuation from the soma (nepers): median {:.4}, 95th percentile {:.4}, max {:.4}",
+        d.median, d.p95, d.max
+    )?;
+    let worst: Vec<String> = f
+        .worst_sites
+        .iter()
+        .map(|s| match s.swc_id {
+            Some(id) => format!("id {id} ({:.3} Np)", s.epsp_peak_error_np),
+            None => format!("line {} ({:.3} Np)", s.swc_line, s.epsp_peak_error_np),
+        })
+        .collect();
+    writeln!(w, "  worst sites (EPSP peak error): {}", worst.join(", "))?;
+    writeln!(
+        w,
+        "  (full cell: {} nodes, pieces ≤ {} λ; {}, dt {} ms, {:.1} ms simulated)",
+        f.fine_nodes,
+        f.piece_lambda_fraction,
+        f.method.name(),
+        f.dt_ms,
+        f.duration_ms
+    )?;
+    if f.sites_not_peaked > 0 {
+        writeln!(
+            w,
+            "  warning: {} sites' EPSPs were still rising when the run stopped; pass a longer --duration",
+            f.sites_not_peaked
+        )?;
+    }
+    Ok(())
 }

@@ -57,7 +57,7 @@ fn check(name: &'static str, value: f64, lo: f64, hi: f64) -> Result<(), Transie
 }
 
 /// The implicit integration rule.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Method {
     /// First order, L-stable.
@@ -77,6 +77,16 @@ pub enum Waveform {
     Step { amplitude_pa: f64 },
     /// I = amplitude·sin(2πft).
     Sine { amplitude_pa: f64, freq_hz: f64 },
+}
+
+impl Method {
+    /// The rule's name for people.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Method::BackwardEuler => "backward Euler",
+            Method::CrankNicolson => "Crank–Nicolson",
+        }
+    }
 }
 
 impl Waveform {

@@ -83,7 +83,7 @@ impl RcNetwork {
 /// diameter d is cut into ⌈h / (fraction·λ(d))⌉ equal pieces, λ(d) = √(Rm·d/(4Ra)) the DC length
 /// constant. Default fraction 0.01 (pieces at most λ/100; halving it changes soma EPSP peaks by
 /// well under 0.1 %, tests/transient_closed_forms.rs).
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct PieceRule {
     /// Largest piece as a fraction of the DC length constant of its segment.
     pub lambda_fraction: f64,

@@ -9,8 +9,12 @@
 //! the expensive part: [`Fidelity::new`] does it once per reducer; [`Fidelity::report`] then
 //! costs one run of the (small) reduced tree.
 
+mod traces;
+
+pub use traces::{Input, SiteRef, TraceOptions, Traces, resolve_site, response_traces, sites_csv};
+
 use crate::cable::{CableError, network_arrays};
-use crate::morphology::Morphology;
+use crate::morphology::{Morphology, NONE};
 use crate::reduce::{ReducedTree, Reducer};
 use crate::transient::{
     Drive, Method, PieceRule, RcNetwork, RunOptions, Stop, TransientError, Waveform, fine_network,
@@ -26,10 +30,14 @@ pub enum FidelityError {
     Cable(#[from] CableError),
     #[error("the reduced tree is not from this reducer ({what})")]
     Mismatch { what: &'static str },
+    #[error("there is no point with SWC id {id}")]
+    NoSuchSite { id: i64 },
+    #[error("SWC id {id} is not in the reduced cell (another tree, or left out by --types)")]
+    SiteLeftOut { id: i64 },
 }
 
 /// The test input and the integration of a fidelity report.
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct FidelityOptions {
     /// Time constant τ of the alpha current (t/τ)·e^(1−t/τ) (ms); default 0.5.
     pub tau_ms: f64,
@@ -267,26 +275,38 @@ impl Fidelity {
         let (g, shunt) = network_arrays::<f64>(kept, params, 0.0)?;
         let from = ln_from_soma(&kept.parent, &g, &shunt);
         let sites = reducer.sites();
-        let at = |s: &crate::reduce::SiteInfo| fine.node_of[s.node as usize] as usize;
-        let not_peaked = sites
+        // SiteInfo.node numbers the caller's cell; the kept cell is reached through the point
+        let kept_node: Vec<usize> = sites
             .iter()
-            .filter(|s| {
-                let k = at(s);
-                peaks.time_ms[k] >= run.times_ms[run.times_ms.len() - 1]
+            .map(|s| {
+                kept.point_node
+                    .get(s.point as usize)
+                    .copied()
+                    .unwrap_or(NONE)
             })
-            .count();
+            .map(|k| if k == NONE { usize::MAX } else { k as usize })
+            .collect();
+        if kept_node.iter().any(|&k| k >= kept.len()) {
+            return Err(FidelityError::Mismatch {
+                what: "a site outside the kept cell",
+            });
+        }
+        let at = |i: usize| fine.node_of[kept_node[i]] as usize;
+        let end = run.times_ms[run.times_ms.len() - 1];
+        let n = sites.len();
+        let not_peaked = (0..n).filter(|&i| peaks.time_ms[at(i)] >= end).count();
         Ok(Fidelity {
             opts: *opts,
-            peak: sites.iter().map(|s| peaks.value_mv[at(s)]).collect(),
-            ttp: sites.iter().map(|s| peaks.time_ms[at(s)]).collect(),
+            peak: (0..n).map(|i| peaks.value_mv[at(i)]).collect(),
+            ttp: (0..n).map(|i| peaks.time_ms[at(i)]).collect(),
             soma_peak: peaks.value_mv[0],
             soma_ttp: peaks.time_ms[0],
             ln_to: sites.iter().map(|s| s.ln_attenuation_full).collect(),
-            ln_from: sites.iter().map(|s| from[s.node as usize]).collect(),
+            ln_from: kept_node.iter().map(|&k| from[k]).collect(),
             point: sites.iter().map(|s| s.point).collect(),
-            line: sites.iter().map(|s| kept.line[s.node as usize]).collect(),
+            line: kept_node.iter().map(|&k| kept.line[k]).collect(),
             fine_nodes: fine.net.len(),
-            duration_ms: run.times_ms[run.times_ms.len() - 1],
+            duration_ms: end,
             not_peaked,
             max_compartments: reducer.max_compartments(),
         })

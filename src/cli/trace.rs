@@ -1,0 +1,213 @@
+//! `pollard trace`: soma and site voltage over time for one site, full cell and reduced tree,
+//! for a current or a conductance synapse at the site (CSV and JSON).
+
+use pollard::export::write_atomic;
+use pollard::fidelity::{
+    Input, SiteRef, TraceOptions, Traces, percent, resolve_site, response_traces,
+};
+use pollard::transient::{PieceRule, Synapse, Waveform};
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(clap::Args, Debug)]
+#[command(group(clap::ArgGroup::new("where").required(true).args(["site", "at"])))]
+#[command(after_help = "\
+Columns: time_ms, soma_full_mv, site_full_mv, soma_reduced_mv, site_reduced_mv (voltages relative
+to rest). Input: an alpha current (t/tau)e^(1-t/tau) by default, or with --synapse a conductance
+g(t)(E - V) whose g is a difference of exponentials peaking at --g-peak.")]
+pub struct Args {
+    /// The SWC file to read.
+    pub cell: PathBuf,
+    #[command(flatten)]
+    pub membrane: super::common::MembraneArgs,
+    #[command(flatten)]
+    pub geometry: super::common::GeometryArgs,
+    #[command(flatten)]
+    pub reduce: super::common::ReduceArgs,
+    /// The site: an SWC id.
+    #[arg(long, value_name = "ID", allow_negative_numbers = true)]
+    pub site: Option<i64>,
+    /// The site: a position x,y,z (µm), snapped to the nearest point.
+    #[arg(
+        long,
+        value_name = "X,Y,Z",
+        value_delimiter = ',',
+        allow_negative_numbers = true
+    )]
+    pub at: Option<Vec<f64>>,
+    /// Peak of the alpha current (pA).
+    #[arg(
+        long,
+        value_name = "PA",
+        default_value_t = 10.0,
+        allow_negative_numbers = true
+    )]
+    pub current: f64,
+    /// Time constant of the alpha current (ms).
+    #[arg(
+        long,
+        value_name = "MS",
+        default_value_t = 0.5,
+        allow_negative_numbers = true
+    )]
+    pub tau: f64,
+    /// Inject a conductance synapse instead of a current.
+    #[arg(long)]
+    pub synapse: bool,
+    /// Synapse reversal potential relative to rest (mV).
+    #[arg(
+        long = "e-rev",
+        value_name = "MV",
+        default_value_t = 70.0,
+        allow_negative_numbers = true
+    )]
+    pub e_rev: f64,
+    /// Synapse peak conductance (nS).
+    #[arg(
+        long = "g-peak",
+        value_name = "NS",
+        default_value_t = 1.0,
+        allow_negative_numbers = true
+    )]
+    pub g_peak: f64,
+    /// Synapse rise time constant (ms).
+    #[arg(
+        long = "tau-rise",
+        value_name = "MS",
+        default_value_t = 0.2,
+        allow_negative_numbers = true
+    )]
+    pub tau_rise: f64,
+    /// Synapse decay time constant (ms).
+    #[arg(
+        long = "tau-decay",
+        value_name = "MS",
+        default_value_t = 2.0,
+        allow_negative_numbers = true
+    )]
+    pub tau_decay: f64,
+    /// Simulated time (ms).
+    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().duration_ms,
+          allow_negative_numbers = true)]
+    pub duration: f64,
+    /// Time step (ms).
+    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().dt_ms,
+          allow_negative_numbers = true)]
+    pub dt: f64,
+    /// Largest piece of the full cell's network, as a fraction of its segment's length constant.
+    #[arg(long = "piece-fraction", value_name = "F", allow_negative_numbers = true,
+          default_value_t = PieceRule::default().lambda_fraction)]
+    pub piece_fraction: f64,
+    /// Write the traces as CSV here.
+    #[arg(long, value_name = "TRACES.csv")]
+    pub csv: Option<PathBuf>,
+    /// Write the traces as JSON here.
+    #[arg(long, value_name = "TRACES.json")]
+    pub json: Option<PathBuf>,
+}
+
+#[derive(serde::Serialize)]
+struct Doc<'a> {
+    format: &'static str,
+    generator: String,
+    source: &'a str,
+    compartments: usize,
+    parameters: pollard::cable::Params,
+    input: Input,
+    options: TraceOptions,
+    #[serde(flatten)]
+    traces: &'a Traces,
+}
+
+fn peak(v: &[f64], t: &[f64]) -> (f64, f64) {
+    let mut best = (0.0f64, 0.0);
+    for (x, &tt) in v.iter().zip(t) {
+        if x.abs() > best.0.abs() {
+            best = (*x, tt);
+        }
+    }
+    best
+}
+
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    if a.csv.is_none() && a.json.is_none() {
+        anyhow::bail!("give --csv FILE and/or --json FILE for the traces");
+    }
+    let name = a.cell.display().to_string();
+    let (m, reducer) = super::common::reducer_for(&a.cell, &a.membrane, &a.geometry, &a.reduce)?;
+    let site = match (&a.site, &a.at) {
+        (Some(id), _) => SiteRef::SwcId(*id),
+        (None, Some(p)) if p.len() == 3 && p.iter().all(|x| x.is_finite()) => {
+            SiteRef::Position([p[0], p[1], p[2]])
+        }
+        (None, Some(_)) => anyhow::bail!("--at takes three finite numbers x,y,z (µm)"),
+        (None, None) => anyhow::bail!("give --site ID or --at X,Y,Z"),
+    };
+    let point = resolve_site(&m, &reducer, site)?;
+    let tree = reducer.tree(a.reduce.compartments);
+    let input = if a.synapse {
+        Input::Synapse {
+            synapse: Synapse {
+                e_rev_mv: a.e_rev,
+                g_peak_ns: a.g_peak,
+                tau_rise_ms: a.tau_rise,
+                tau_decay_ms: a.tau_decay,
+            },
+        }
+    } else {
+        Input::Current {
+            waveform: Waveform::Alpha {
+                tau_ms: a.tau,
+                peak_pa: a.current,
+            },
+        }
+    };
+    let opts = TraceOptions {
+        duration_ms: a.duration,
+        dt_ms: a.dt,
+        pieces: PieceRule {
+            lambda_fraction: a.piece_fraction,
+        },
+        ..TraceOptions::default()
+    };
+    let mut tr = response_traces(&reducer, &tree, point, &input, &opts)?;
+    tr.swc_id = m.points.get(point as usize).map(|p| p.id);
+    let inputs = [a.cell.as_path()];
+    if let Some(p) = &a.csv {
+        write_atomic(p, tr.to_csv().as_bytes(), &inputs)?;
+    }
+    if let Some(p) = &a.json {
+        let doc = Doc {
+            format: "pollard.traces",
+            generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),
+            source: &name,
+            compartments: tree.len(),
+            parameters: *reducer.params(),
+            input,
+            options: opts,
+            traces: &tr,
+        };
+        write_atomic(p, serde_json::to_string_pretty(&doc)?.as_bytes(), &inputs)?;
+    }
+    let (pf, tf) = peak(&tr.soma_full_mv, &tr.times_ms);
+    let (pr, trd) = peak(&tr.soma_reduced_mv, &tr.times_ms);
+    let err = tr.soma_peak_error_np();
+    let mut out = std::io::stdout().lock();
+    let written = writeln!(
+        out,
+        "{name}: site SWC id {} (compartment {} of {}); soma peak: full {pf:.4} mV at {tf:.2} ms, reduced {pr:.4} mV at {trd:.2} ms; peak error {}",
+        tr.swc_id.unwrap_or(-1),
+        tr.compartment,
+        tree.len(),
+        if err.is_finite() {
+            format!("{:.1} % ({err:.3} Np)", percent(err))
+        } else {
+            "– (no response)".to_string()
+        }
+    );
+    match written {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(ExitCode::SUCCESS),
+    }
+}

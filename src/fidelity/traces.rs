@@ -1,0 +1,202 @@
+//! Response traces for one site: soma and site voltage over time, full cell and reduced tree,
+//! for a current waveform or a conductance synapse at the site (what `pollard trace` writes and
+//! the app can plot), and the per-site table as CSV.
+
+use super::{FidelityError, SiteFidelity};
+use crate::morphology::{Morphology, NONE};
+use crate::reduce::{ReducedTree, Reducer};
+use crate::transient::{
+    Drive, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
+    simulate,
+};
+
+/// What is injected at the site.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum Input {
+    Current { waveform: Waveform },
+    Synapse { synapse: Synapse },
+}
+
+/// A site named by the user.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum SiteRef {
+    /// An SWC id of a point of the kept cell.
+    SwcId(i64),
+    /// A position (µm), snapped to the nearest point of the kept cell.
+    Position([f64; 3]),
+}
+
+/// How long and how finely to integrate the traces.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct TraceOptions {
+    pub duration_ms: f64,
+    pub dt_ms: f64,
+    pub method: Method,
+    pub pieces: PieceRule,
+}
+
+impl Default for TraceOptions {
+    fn default() -> Self {
+        TraceOptions {
+            duration_ms: 50.0,
+            dt_ms: 0.025,
+            method: Method::CrankNicolson,
+            pieces: PieceRule::default(),
+        }
+    }
+}
+
+/// Soma and site voltage (mV, relative to rest) over time, full cell and reduced tree.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Traces {
+    /// Morphology point of the site.
+    pub point: u32,
+    pub swc_id: Option<i64>,
+    /// The site's compartment in the reduced tree.
+    pub compartment: u32,
+    pub times_ms: Vec<f64>,
+    pub soma_full_mv: Vec<f64>,
+    pub site_full_mv: Vec<f64>,
+    pub soma_reduced_mv: Vec<f64>,
+    pub site_reduced_mv: Vec<f64>,
+}
+
+impl Traces {
+    /// |ln(peak_reduced/peak_full)| of the soma traces (Np): the largest |V| of each.
+    pub fn soma_peak_error_np(&self) -> f64 {
+        let peak = |v: &[f64]| v.iter().fold(0.0f64, |m, x| m.max(x.abs()));
+        (peak(&self.soma_reduced_mv) / peak(&self.soma_full_mv))
+            .ln()
+            .abs()
+    }
+
+    /// The traces as CSV: one row per time.
+    pub fn to_csv(&self) -> String {
+        let mut s =
+            String::from("time_ms,soma_full_mv,site_full_mv,soma_reduced_mv,site_reduced_mv\n");
+        for i in 0..self.times_ms.len() {
+            s.push_str(&format!(
+                "{:?},{:?},{:?},{:?},{:?}\n",
+                self.times_ms[i],
+                self.soma_full_mv[i],
+                self.site_full_mv[i],
+                self.soma_reduced_mv[i],
+                self.site_reduced_mv[i]
+            ));
+        }
+        s
+    }
+}
+
+/// The morphology point a user's site names, within the reducer's kept cell.
+pub fn resolve_site(
+    m: &Morphology,
+    reducer: &Reducer,
+    site: SiteRef,
+) -> Result<u32, FidelityError> {
+    let kept = reducer.kept_flat();
+    match site {
+        SiteRef::SwcId(id) => {
+            let i = m
+                .points
+                .iter()
+                .position(|p| p.id == id)
+                .ok_or(FidelityError::NoSuchSite { id })?;
+            match kept.point_node.get(i) {
+                Some(&k) if k != NONE => Ok(i as u32),
+                _ => Err(FidelityError::SiteLeftOut { id }),
+            }
+        }
+        SiteRef::Position(p) => {
+            // nearest kept node (brute force, one pass)
+            let mut best = (f64::INFINITY, 0usize);
+            for (k, q) in kept.pos.iter().enumerate() {
+                let d = (q[0] - p[0]).powi(2) + (q[1] - p[1]).powi(2) + (q[2] - p[2]).powi(2);
+                if d < best.0 {
+                    best = (d, k);
+                }
+            }
+            Ok(kept.node_point[best.1])
+        }
+    }
+}
+
+/// Soma and site traces for `input` at morphology point `point` (see [`resolve_site`]): the
+/// full cell's fine network and `tree`, integrated over the same times.
+pub fn response_traces(
+    reducer: &Reducer,
+    tree: &ReducedTree,
+    point: u32,
+    input: &Input,
+    opts: &TraceOptions,
+) -> Result<Traces, FidelityError> {
+    let kept = reducer.kept_flat();
+    let k = kept.point_node.get(point as usize).copied().unwrap_or(NONE);
+    let c = tree
+        .point_compartment
+        .get(point as usize)
+        .copied()
+        .unwrap_or(NONE);
+    if k == NONE || c == NONE || c as usize >= tree.len() {
+        return Err(FidelityError::Mismatch {
+            what: "the site is not a point of the reduced cell",
+        });
+    }
+    let fine = fine_network(kept, reducer.params(), opts.pieces)?;
+    let run_opts = RunOptions {
+        dt_ms: opts.dt_ms,
+        method: opts.method,
+        stop: Stop::At {
+            duration_ms: opts.duration_ms,
+        },
+        track_peaks: false,
+    };
+    let drive = |node: usize| match *input {
+        Input::Current { waveform } => Drive::Current { node, waveform },
+        Input::Synapse { synapse } => Drive::Synapse { node, synapse },
+    };
+    let site = fine.node_of[k as usize] as usize;
+    let full = simulate(&fine.net, &drive(site), &[0, site], &run_opts)?;
+    let net = RcNetwork::from_reduced(tree);
+    let red = simulate(&net, &drive(c as usize), &[0, c as usize], &run_opts)?;
+    let mut f = full.traces.into_iter();
+    let mut r = red.traces.into_iter();
+    Ok(Traces {
+        point,
+        swc_id: None,
+        compartment: c,
+        times_ms: full.times_ms,
+        soma_full_mv: f.next().unwrap_or_default(),
+        site_full_mv: f.next().unwrap_or_default(),
+        soma_reduced_mv: r.next().unwrap_or_default(),
+        site_reduced_mv: r.next().unwrap_or_default(),
+    })
+}
+
+/// The per-site table as CSV (one row per site, the columns of [`SiteFidelity`]).
+pub fn sites_csv(rows: &[SiteFidelity]) -> String {
+    let mut s = String::from(
+        "site,swc_id,swc_line,compartment,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,ln_attenuation_to_soma_full,ln_attenuation_to_soma_reduced,ln_attenuation_from_soma_full,ln_attenuation_from_soma_reduced\n",
+    );
+    for r in rows {
+        s.push_str(&format!(
+            "{},{},{},{},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?}\n",
+            r.site,
+            r.swc_id.map(|i| i.to_string()).unwrap_or_default(),
+            r.swc_line,
+            r.compartment,
+            r.epsp_peak_full_mv,
+            r.epsp_peak_reduced_mv,
+            r.epsp_peak_error_np,
+            r.time_to_peak_full_ms,
+            r.time_to_peak_reduced_ms,
+            r.time_to_peak_error,
+            r.ln_attenuation_to_soma_full,
+            r.ln_attenuation_to_soma_reduced,
+            r.ln_attenuation_from_soma_full,
+            r.ln_attenuation_from_soma_reduced
+        ));
+    }
+    s
+}

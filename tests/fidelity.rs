@@ -1,0 +1,154 @@
+//! The fidelity report (src/fidelity.rs): its reciprocity shortcut against direct simulations
+//! with the current at each site, a one-compartment tree against the RC closed form, the type
+//! filter, and the options' checks.
+
+use pollard::cable::Params;
+use pollard::fidelity::{Fidelity, FidelityOptions, percent};
+use pollard::morphology::Morphology;
+use pollard::reduce::{ReduceOptions, Reducer};
+use pollard::transient::{
+    Drive, Method, RcNetwork, RunOptions, Stop, Waveform, fine_network, simulate,
+};
+
+fn sample(name: &str) -> Morphology {
+    let s = pollard::samples::SAMPLES
+        .iter()
+        .find(|s| s.file_name.contains(name))
+        .unwrap_or(&pollard::samples::SAMPLES[0]);
+    Morphology::parse(s.text, s.file_name).unwrap()
+}
+
+fn peak_of(net: &RcNetwork, at: usize, record: usize, o: &FidelityOptions) -> (f64, f64) {
+    let r = simulate(
+        net,
+        &Drive::Current {
+            node: at,
+            waveform: Waveform::Alpha {
+                tau_ms: o.tau_ms,
+                peak_pa: o.peak_pa,
+            },
+        },
+        &[record],
+        &RunOptions {
+            dt_ms: o.dt(),
+            method: Method::CrankNicolson,
+            stop: Stop::At { duration_ms: 60.0 },
+            track_peaks: true,
+        },
+    )
+    .unwrap();
+    let p = r.peaks.unwrap();
+    (p.value_mv[record], p.time_ms[record])
+}
+
+#[test]
+fn reciprocity_shortcut_matches_current_injected_at_each_site() {
+    // Soma EPSP for current at site k, simulated directly, equals the report's value obtained
+    // from one run with the current at the soma (reciprocity of linear RC networks).
+    let m = sample("pyramidal");
+    let f = m.flatten();
+    let p = Params::default();
+    let red = Reducer::new(&f, &p, &ReduceOptions::default()).unwrap();
+    let o = FidelityOptions::default();
+    let fid = Fidelity::new(&red, &o).unwrap();
+    let tree = red.tree(15);
+    let (rows, _) = fid.sites(&tree, Some(&m)).unwrap();
+    let fine = fine_network(red.kept_flat(), &p, o.pieces).unwrap();
+    let rnet = RcNetwork::from_reduced(&tree);
+    let n = rows.len();
+    for i in [0, n / 3, n / 2, n - 1] {
+        let row = &rows[i];
+        let site_node = red.kept_flat().point_node[row.point as usize] as usize;
+        let (pk, tk) = peak_of(&fine.net, fine.node_of[site_node] as usize, 0, &o);
+        assert!(
+            (pk - row.epsp_peak_full_mv).abs() < 1e-9 * pk,
+            "{pk} {row:?}"
+        );
+        assert!((tk - row.time_to_peak_full_ms).abs() < 1e-9 * tk.max(1.0));
+        let c = row.compartment as usize;
+        let (pr, _) = peak_of(&rnet, c, 0, &o);
+        assert!(
+            (pr - row.epsp_peak_reduced_mv).abs() < 1e-9 * pr,
+            "{pr} {row:?}"
+        );
+        let e = (row.epsp_peak_reduced_mv / row.epsp_peak_full_mv)
+            .ln()
+            .abs();
+        assert_eq!(row.epsp_peak_error_np, e);
+        assert!(row.swc_id.is_some());
+    }
+}
+
+#[test]
+fn one_compartment_tree_follows_the_rc_closed_form() {
+    // Budget 1: one compartment with G = 1/R_in and C = τ·G, so its EPSP for the alpha current
+    // is V = K·(e^(−at)(t/s − 1/s²) + e^(−bt)/s²), a = 1/τa, b = G/C, s = b − a, K = I·e·a/C
+    // (first-order ODE by hand, no source); its peak by bisection on dV/dt = 0.
+    let m = sample("pyramidal");
+    let red = Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
+    let tree = red.tree(1);
+    assert_eq!(tree.len(), 1);
+    let o = FidelityOptions::default();
+    let fid = Fidelity::new(&red, &o).unwrap();
+    let (_, run) = fid.sites(&tree, None).unwrap();
+    let g = tree.compartments[0].g_leak_ns;
+    let c = tree.compartments[0].capacitance_pf;
+    let (a, b) = (1.0 / o.tau_ms, g / c);
+    let s = b - a;
+    let k = o.peak_pa * std::f64::consts::E * a / c;
+    let v = |t: f64| k * ((-a * t).exp() * (t / s - 1.0 / (s * s)) + (-b * t).exp() / (s * s));
+    let slope = |t: f64| o.peak_pa * (t * a) * (1.0 - t * a).exp() - g * v(t);
+    let (mut lo, mut hi) = (o.tau_ms, 100.0);
+    for _ in 0..100 {
+        let mid = 0.5 * (lo + hi);
+        if slope(mid) > 0.0 { lo = mid } else { hi = mid }
+    }
+    let t_star = 0.5 * (lo + hi);
+    // Crank–Nicolson at dt = τ/20 carries about 1e-3 relative error
+    assert!(
+        (run.soma_peak_mv - v(t_star)).abs() < 2e-3 * v(t_star),
+        "{run:?} {}",
+        v(t_star)
+    );
+    assert!((run.soma_ttp_ms - t_star).abs() < 5e-3, "{run:?} {t_star}");
+    // and the report's soma line compares it with the full cell's, which peaks lower (the
+    // dendrites' charging current is not instantaneous): a non-zero error
+    let r = fid.report(&tree, None).unwrap();
+    assert!(r.soma_epsp_peak_error_np > 0.01, "{r:?}");
+    assert!((r.soma_epsp_peak_error_percent - percent(r.soma_epsp_peak_error_np)).abs() < 1e-12);
+}
+
+#[test]
+fn type_filter_and_bad_options() {
+    let m = sample("pyramidal");
+    let f = m.flatten();
+    let opts = ReduceOptions {
+        types: Some(vec![1, 3]),
+        ..Default::default()
+    };
+    let red = Reducer::new(&f, &Params::default(), &opts).unwrap();
+    let fid = Fidelity::new(&red, &FidelityOptions::default()).unwrap();
+    let r = fid.report(&red.tree(7), Some(&m)).unwrap();
+    assert_eq!(r.sites, red.sites().len());
+    assert_eq!(r.sites_not_peaked, 0);
+    assert!(r.epsp_peak_error_np.p95.is_finite());
+    for (bad, name) in [
+        (
+            FidelityOptions {
+                tau_ms: -1.0,
+                ..Default::default()
+            },
+            "EPSP time constant",
+        ),
+        (
+            FidelityOptions {
+                dt_ms: Some(f64::NAN),
+                ..Default::default()
+            },
+            "time step",
+        ),
+    ] {
+        let e = Fidelity::new(&red, &bad).unwrap_err().to_string();
+        assert!(e.contains(name), "{e}");
+    }
+}

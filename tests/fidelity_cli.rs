@@ -1,0 +1,171 @@
+//! `pollard fidelity` and `pollard trace` as a user meets them: on every real cell of
+//! tests/data/real, files written (CSV and JSON), summaries printed, one-line errors.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn pollard(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_pollard"))
+        .args(args)
+        .output()
+        .expect("the pollard binary runs")
+}
+
+fn manifest(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+/// The real cells with the flags a user needs for them (README: nm coordinates and missing
+/// radii), and one SWC id of a dendritic point of each.
+fn real_cells() -> Vec<(PathBuf, Vec<&'static str>, &'static str)> {
+    vec![
+        (
+            manifest("tests/data/real/cultured_neuron_control.swc"),
+            vec![],
+            "100",
+        ),
+        (
+            manifest("tests/data/real/drosophila_pn_fafb.swc"),
+            vec!["--scale", "0.001", "--default-diameter", "0.5"],
+            "1000",
+        ),
+        (
+            manifest("tests/data/real/interneuron_ca1_pv.swc"),
+            vec![],
+            "500",
+        ),
+    ]
+}
+
+#[test]
+fn fidelity_writes_the_per_site_table_on_every_real_cell() {
+    let dir = tempfile::tempdir().unwrap();
+    for (cell, flags, _) in real_cells() {
+        let csv = dir.path().join("sites.csv");
+        let json = dir.path().join("sites.json");
+        let mut args = vec!["fidelity", cell.to_str().unwrap(), "-n", "15"];
+        args.extend(&flags);
+        args.extend([
+            "--csv",
+            csv.to_str().unwrap(),
+            "--json",
+            json.to_str().unwrap(),
+        ]);
+        let o = pollard(&args);
+        assert!(o.status.success(), "{}", text(&o.stderr));
+        let out = text(&o.stdout);
+        assert!(out.contains("soma EPSP for an alpha current"), "{out}");
+        let v: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+        assert_eq!(v["format"], "pollard.fidelity-sites");
+        let sites = v["sites"].as_array().unwrap();
+        assert_eq!(sites.len() as u64, v["summary"]["sites"].as_u64().unwrap());
+        let table = std::fs::read_to_string(&csv).unwrap();
+        let lines: Vec<&str> = table.lines().collect();
+        assert_eq!(lines.len(), sites.len() + 1);
+        let cols = lines[0].split(',').count();
+        for l in &lines[1..] {
+            assert_eq!(l.split(',').count(), cols, "{l}");
+            assert!(!l.contains("NaN") && !l.contains("inf"), "{l}");
+        }
+        // the CSV's peak error is the JSON's and the log of the two peaks' ratio
+        let f: Vec<f64> = lines[1]
+            .split(',')
+            .skip(4)
+            .take(3)
+            .map(|x| x.parse().unwrap())
+            .collect();
+        assert!((f[2] - (f[1] / f[0]).ln().abs()).abs() < 1e-12, "{f:?}");
+        assert_eq!(sites[0]["epsp_peak_error_np"].as_f64().unwrap(), f[2]);
+    }
+}
+
+#[test]
+fn trace_writes_soma_and_site_voltages_on_every_real_cell() {
+    let dir = tempfile::tempdir().unwrap();
+    for (cell, flags, id) in real_cells() {
+        for synapse in [false, true] {
+            let csv = dir.path().join("tr.csv");
+            let json = dir.path().join("tr.json");
+            let mut args = vec!["trace", cell.to_str().unwrap(), "-n", "31", "--site", id];
+            args.extend(&flags);
+            args.extend(["--duration", "20", "--csv", csv.to_str().unwrap()]);
+            args.extend(["--json", json.to_str().unwrap()]);
+            if synapse {
+                args.push("--synapse");
+            }
+            let o = pollard(&args);
+            assert!(o.status.success(), "{}", text(&o.stderr));
+            assert!(
+                text(&o.stdout).contains("peak error"),
+                "{}",
+                text(&o.stdout)
+            );
+            let t = std::fs::read_to_string(&csv).unwrap();
+            let lines: Vec<&str> = t.lines().collect();
+            assert_eq!(
+                lines[0],
+                "time_ms,soma_full_mv,site_full_mv,soma_reduced_mv,site_reduced_mv"
+            );
+            assert_eq!(lines.len(), 1 + 801); // 0 to 20 ms by 0.025
+            let v: serde_json::Value =
+                serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+            assert_eq!(v["swc_id"].as_i64().unwrap().to_string(), id);
+            // a depolarising input: the site rises above the soma in both networks (passive
+            // attenuation from the site; the site is not the soma)
+            let peak = |k: &str| {
+                v[k].as_array()
+                    .unwrap()
+                    .iter()
+                    .fold(0.0f64, |m, x| m.max(x.as_f64().unwrap()))
+            };
+            assert!(
+                peak("site_full_mv") > peak("soma_full_mv"),
+                "{}",
+                cell.display()
+            );
+            assert!(peak("soma_full_mv") > 0.0);
+        }
+    }
+}
+
+#[test]
+fn trace_and_fidelity_errors_are_one_line() {
+    let cell = manifest("tests/data/real/interneuron_ca1_pv.swc");
+    let c = cell.to_str().unwrap();
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("x.csv");
+    let o = out.to_str().unwrap();
+    for (args, needle) in [
+        (
+            vec!["trace", c, "-n", "7", "--site", "99999999", "--csv", o],
+            "no point with SWC id",
+        ),
+        (
+            vec!["trace", c, "-n", "7", "--at", "1,2", "--csv", o],
+            "three finite numbers",
+        ),
+        (vec!["trace", c, "-n", "7", "--site", "500"], "--csv FILE"),
+        (
+            vec![
+                "trace", c, "-n", "7", "--site", "500", "--dt", "0", "--csv", o,
+            ],
+            "time step",
+        ),
+        (vec!["fidelity", c, "-n", "7"], "--csv FILE"),
+        (
+            vec!["fidelity", c, "-n", "7", "--epsp-tau", "-1", "--csv", o],
+            "EPSP time constant",
+        ),
+    ] {
+        let r = pollard(&args);
+        assert_eq!(r.status.code(), Some(1), "{args:?}");
+        let e = text(&r.stderr);
+        assert_eq!(e.trim_end().lines().count(), 1, "{e}");
+        assert!(e.contains(needle), "{args:?}: {e}");
+    }
+}
