@@ -33,6 +33,8 @@ pub struct SwcPoint {
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct Warning {
     pub code: &'static str,
+    /// The line it names; left out of JSON when the warning is about the whole file.
+    #[serde(skip_serializing_if = "Option::is_none")]
     pub line: Option<usize>,
     pub message: String,
 }

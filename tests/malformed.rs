@@ -184,3 +184,95 @@ fn accepted_odd_files_have_the_right_shape() {
     let m = read("na_radius.swc").unwrap();
     assert_eq!(m.points.iter().filter(|p| p.radius.is_none()).count(), 2);
 }
+
+/// Every number in a JSON value, with its path; `null`s are reported as NaN (a `null` where a
+/// number belongs is a silent non-number).
+fn numbers(v: &serde_json::Value, path: &str, out: &mut Vec<(String, f64)>) {
+    match v {
+        serde_json::Value::Null => out.push((path.to_string(), f64::NAN)),
+        serde_json::Value::Number(n) => {
+            out.push((path.to_string(), n.as_f64().unwrap_or(f64::NAN)))
+        }
+        serde_json::Value::Array(a) => {
+            for (i, x) in a.iter().enumerate() {
+                numbers(x, &format!("{path}[{i}]"), out);
+            }
+        }
+        serde_json::Value::Object(o) => {
+            for (k, x) in o {
+                numbers(x, &format!("{path}.{k}"), out);
+            }
+        }
+        _ => {}
+    }
+}
+
+fn pollard(args: &[&str]) -> (i32, String, String) {
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_pollard"))
+        .args(args)
+        .output()
+        .expect("run pollard");
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).to_string(),
+        String::from_utf8_lossy(&out.stderr).to_string(),
+    )
+}
+
+#[test]
+fn cable_and_reduce_give_numbers_or_one_clear_line() {
+    // Every catalogue file through `cable --json` and `reduce --json`: exit 0 with every number
+    // finite (a null counts as NaN), or a non-zero exit with one line naming the file.
+    let tmp = tempfile::tempdir().unwrap();
+    let tree = tmp.path().join("tree.json");
+    let mut accepted = 0;
+    for (file, _) in manifest() {
+        let path = dir().join(&file);
+        let p = path.to_str().unwrap();
+        for args in [
+            vec!["cable", p, "--json"],
+            vec![
+                "reduce",
+                p,
+                "-n",
+                "3",
+                "-o",
+                tree.to_str().unwrap(),
+                "--json",
+            ],
+        ] {
+            let (code, out, err) = pollard(&args);
+            if code == 0 {
+                accepted += 1;
+                let v: serde_json::Value = serde_json::from_str(&out)
+                    .unwrap_or_else(|e| panic!("{args:?}: not JSON: {e}"));
+                let mut all = Vec::new();
+                numbers(&v, "", &mut all);
+                let bad: Vec<_> = all.iter().filter(|x| !x.1.is_finite()).take(3).collect();
+                assert!(bad.is_empty(), "{args:?}: {bad:?}");
+            } else {
+                assert_eq!(code, 1, "{args:?}: {err}");
+                assert_eq!(err.lines().count(), 1, "{args:?}: {err}");
+                assert!(err.contains(&file), "{args:?}: {err}");
+            }
+        }
+    }
+    assert!(accepted > 20, "{accepted}");
+    // out-of-range radii and lengths are refused by their line
+    for (file, what) in [
+        ("radius_1e300.swc", "line 2: radius 1e300"),
+        ("radius_1e-200.swc", "line 3: radius 1e-200"),
+    ] {
+        let (code, _, err) = pollard(&["cable", dir().join(file).to_str().unwrap()]);
+        assert!(code == 1 && err.contains(what), "{file}: {err}");
+    }
+    let long = dir().join("coordinates_1e300.swc");
+    let (code, _, err) = pollard(&["cable", long.to_str().unwrap(), "--scale", "1"]);
+    assert!(code == 1 && err.contains("segment length"), "{err}");
+    // and out-of-range parameters by their name
+    for flag in [["--rm", "1e300"], ["--ra", "0"], ["--cm", "NaN"]] {
+        let cyl = dir().join("zero_radius.swc");
+        let (code, _, err) = pollard(&["cable", cyl.to_str().unwrap(), flag[0], flag[1]]);
+        assert!(code == 1 && err.lines().count() == 1, "{flag:?}: {err}");
+    }
+}

@@ -152,11 +152,21 @@ pub enum CableError {
         unit: &'static str,
     },
     #[error(
-        "{count} point(s) have no usable radius (zero or unknown), first on line {first_line}; pass a default diameter (--default-diameter D, in µm) to use for them"
+        "{count} point(s) have radius 0 or NA (unknown), first on line {first_line}; cable work needs radii: pass --default-diameter D (µm) to use for them"
     )]
     MissingRadii { count: usize, first_line: usize },
     #[error(
-        "the cell is {extent_mm:.1} mm across, which suggests coordinates in nanometres or voxels; pass --scale to convert them to µm"
+        "line {line}: {what} {value:e} µm is outside the range cable work accepts ({lo:e} to {hi:e} µm); check the file's units (--scale)"
+    )]
+    GeometryRange {
+        what: &'static str,
+        value: f64,
+        line: usize,
+        lo: f64,
+        hi: f64,
+    },
+    #[error(
+        "the cell is {extent_mm:.1} mm across, which suggests coordinates in nanometres or voxels; pass --scale to convert them to µm (--scale 1 keeps µm)"
     )]
     Implausible { extent_mm: f64 },
     #[error("the file has no points")]
@@ -381,24 +391,53 @@ pub fn segment_electrotonic_length(params: &Params, h_um: f64, a_um: f64, b_um: 
     x
 }
 
-/// Checks the radii of the main tree: every node k > 0 needs finite, positive radii.
+/// Radii (µm) the cable work accepts: outside, conductances leave the range of f64 (a radius of
+/// 1e300 µm squares to infinity); such radii are unit errors in practice.
+pub const RADIUS_RANGE_UM: (f64, f64) = (1e-4, 1e4);
+/// Longest segment (µm) the cable work accepts (10 m).
+pub const MAX_SEGMENT_UM: f64 = 1e7;
+
+/// Checks the radii of the main tree: every node k > 0 needs finite, positive radii (counted
+/// once per point: a point's own radius, or the soma-side radius when its parent's is fine),
+/// within [`RADIUS_RANGE_UM`], and a length up to [`MAX_SEGMENT_UM`].
 fn check_radii(flat: &Flat) -> Result<(), CableError> {
     let bad = |r: f64| !(r > 0.0 && r.is_finite());
     let mut count = 0;
     let mut first = None;
     for k in 1..flat.len() {
-        if bad(flat.r_prox_um[k]) || bad(flat.r_dist_um[k]) {
+        let p = flat.parent[k] as usize;
+        let own = bad(flat.r_dist_um[k]);
+        let prox = bad(flat.r_prox_um[k]) && (p == 0 || !bad(flat.r_dist_um[p]));
+        if own || prox {
             count += 1;
             first.get_or_insert(k);
         }
     }
-    match first {
-        Some(k) => Err(CableError::MissingRadii {
+    if let Some(k) = first {
+        return Err(CableError::MissingRadii {
             count,
             first_line: flat.line[k],
-        }),
-        None => Ok(()),
+        });
     }
+    let (lo, hi) = RADIUS_RANGE_UM;
+    for k in 1..flat.len() {
+        let out = |what, value: f64, lo: f64, hi: f64| {
+            (!(lo..=hi).contains(&value)).then_some(CableError::GeometryRange {
+                what,
+                value,
+                line: flat.line.get(k).copied().unwrap_or(0),
+                lo,
+                hi,
+            })
+        };
+        let fault = out("radius", flat.r_dist_um[k], lo, hi)
+            .or_else(|| out("radius", flat.r_prox_um[k], lo, hi))
+            .or_else(|| out("segment length", flat.length_um[k], 0.0, MAX_SEGMENT_UM));
+        if let Some(e) = fault {
+            return Err(e);
+        }
+    }
+    Ok(())
 }
 
 /// How the network builder reads a segment's radii.

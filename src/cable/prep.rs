@@ -224,17 +224,17 @@ pub struct CableInput {
 pub enum ReadError {
     #[error(transparent)]
     Swc(#[from] SwcError),
-    #[error("{file}: {source}")]
-    Cable { file: String, source: CableError },
+    #[error("{file}: {fault}")]
+    Cable { file: String, fault: CableError },
 }
 
 /// Reads parsed SWC points for cable work: the direct route of [`flat_from_plain_points`] when
 /// the file allows it, otherwise the full [`Morphology`]; then [`prepare_flat`].
 pub fn cable_input(file: SwcFile, opts: &PrepOptions) -> Result<CableInput, ReadError> {
     let source = file.source.clone();
-    let wrap = |source_err: CableError| ReadError::Cable {
+    let wrap = |fault: CableError| ReadError::Cable {
         file: source.clone(),
-        source: source_err,
+        fault,
     };
     opts.validate().map_err(wrap)?;
     if let Some(flat) = flat_from_plain_points(&file.points) {
