@@ -195,7 +195,7 @@ fn export_as_swc_writes_a_file_that_reads_back() {
     let path = dir.path().join("lab.swc");
     let mut h = harness();
     choose(&mut h, Preset::ThinTwig);
-    h.state_mut().export_to = Some(path.clone());
+    h.state_mut().dialogs = pollard::app::files::Dialogs::scripted(vec![Some(path.clone())]);
     h.get_by_label("Export as SWC").click();
     h.run();
     let m = pollard::Morphology::read(&path).unwrap();

@@ -16,6 +16,8 @@ pub enum Purpose {
     SaveSwc,
     SaveSvg,
     SavePng,
+    /// A tree of the branching lab as SWC.
+    ExportLabSwc,
 }
 
 impl Purpose {
@@ -26,6 +28,7 @@ impl Purpose {
             Purpose::SaveSwc => ("Reduced tree (SWC)", &["swc"]),
             Purpose::SaveSvg => ("Figure (SVG)", &["svg"]),
             Purpose::SavePng => ("Figure (PNG)", &["png"]),
+            Purpose::ExportLabSwc => ("SWC reconstruction", &["swc"]),
         }
     }
 
@@ -36,6 +39,7 @@ impl Purpose {
             Purpose::SaveSwc => format!("{base}-reduced.swc"),
             Purpose::SaveSvg => format!("{base}-figure.svg"),
             Purpose::SavePng => format!("{base}-figure.png"),
+            Purpose::ExportLabSwc => format!("{base}.swc"),
         }
     }
 }

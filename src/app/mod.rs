@@ -13,6 +13,7 @@ pub mod jobs;
 pub mod lab;
 pub mod panels;
 pub mod picture;
+pub mod reduction;
 pub mod state;
 
 use canvas::{ArborCanvas, Camera, ReducedLayout, Side};
@@ -82,13 +83,6 @@ pub enum Screen {
     Lab,
 }
 
-/// A message in the status area.
-#[derive(Debug, Clone)]
-pub struct Notice {
-    pub text: String,
-    pub is_error: bool,
-}
-
 /// The app.
 pub struct PollardApp {
     pub screen: Screen,
@@ -108,7 +102,7 @@ pub struct PollardApp {
     pending_dialog: Option<(Purpose, std::sync::mpsc::Receiver<Option<PathBuf>>)>,
     pub recent: RecentFiles,
     load_job: Option<Job<CellState>>,
-    reduce_job: Option<(u64, Job<Arc<dyn state::Reduction>>)>,
+    reduce_job: Option<(u64, Job<Arc<state::Reduction>>)>,
     reduce_generation: u64,
     /// The last error (file, line, what) or other failure; shown until dismissed.
     pub error: Option<String>,
@@ -141,7 +135,7 @@ impl PollardApp {
             scale: colour::Scale::new(),
             colours: None,
             colours_version: (0, 0),
-            dialogs,
+            dialogs: dialogs.clone(),
             pending_dialog: None,
             recent,
             load_job: None,
@@ -155,6 +149,7 @@ impl PollardApp {
             start_options: None,
             png_when_ready: None,
         };
+        app.lab.dialogs = dialogs;
         match start {
             Start::Demo => app.open_demo(),
             Start::File(p) => {
@@ -377,6 +372,10 @@ impl PollardApp {
                 self.open_path(&path);
                 return;
             }
+            Purpose::ExportLabSwc => {
+                self.lab.write_swc(&path);
+                return;
+            }
             Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveSvg => self.export(purpose, &path),
             Purpose::SavePng => {
                 if let Some(ctx) = &self.ctx {
@@ -428,7 +427,9 @@ impl PollardApp {
                 picture::svg_figure(s, &self.camera, self.layout, &colours, &self.scale)
                     .into_bytes()
             }
-            Purpose::SavePng | Purpose::Open => anyhow::bail!("not a direct export"),
+            Purpose::SavePng | Purpose::Open | Purpose::ExportLabSwc => {
+                anyhow::bail!("not a direct export")
+            }
         };
         crate::export::write_atomic(path, &bytes, &inputs)?;
         Ok(())
@@ -522,7 +523,7 @@ impl PollardApp {
         let mut actions = Vec::new();
 
         egui::Panel::top("top_bar").show(ui, |ui| {
-            self.top_bar(ui, &mut actions);
+            self.top_bar(ui);
         });
 
         if self.screen == Screen::Lab {
@@ -585,7 +586,7 @@ impl PollardApp {
         }
     }
 
-    fn top_bar(&mut self, ui: &mut egui::Ui, actions: &mut Vec<Action>) {
+    fn top_bar(&mut self, ui: &mut egui::Ui) {
         ui.horizontal(|ui| {
             ui.heading("pollard");
             ui.separator();
@@ -620,7 +621,6 @@ impl PollardApp {
         } else if let Some(n) = &self.notice {
             ui.label(n);
         }
-        let _ = actions;
     }
 
     fn central(&mut self, ui: &mut egui::Ui) {

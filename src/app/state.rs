@@ -2,6 +2,7 @@
 //! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
 //! values that colour both drawings. Tests and benchmarks drive this directly.
 
+pub use super::reduction::{RTree, Reduction, build_reduction};
 use crate::cable::{C64, Network, Params, TreeMaps};
 use crate::morphology::{Flat, Morphology, NONE, kind};
 use std::collections::BTreeMap;
@@ -193,304 +194,6 @@ impl LogUnit {
     }
 }
 
-/// A compartment tree ready for drawing and solving, in parents-first order (`parent[c] < c`).
-/// Filled from the reducer's output.
-#[derive(Debug, Clone, Default)]
-pub struct RTree {
-    /// The reducer's compartment id of each entry.
-    pub id: Vec<u32>,
-    pub parent: Vec<u32>,
-    /// Axial conductance to the parent (nS), leak conductance (nS), capacitance (pF).
-    pub g_axial_ns: Vec<f64>,
-    pub g_leak_ns: Vec<f64>,
-    pub capacitance_pf: Vec<f64>,
-    pub pos: Vec<[f64; 3]>,
-    pub area_um2: Vec<f64>,
-    pub site_count: Vec<u32>,
-    pub depth: Vec<u32>,
-    /// Model node (see [`CellState::model`]) → entry.
-    pub node_comp: Vec<u32>,
-    /// Number of model nodes each entry stands for.
-    pub n_points: Vec<usize>,
-    /// Mean path distance (µm) of the points each entry stands for.
-    pub path_distance: Vec<f64>,
-    /// Most common neurite type among the points of each entry.
-    pub kind: Vec<i32>,
-    /// Strahler order of each entry in the compartment tree.
-    pub strahler: Vec<u32>,
-}
-
-impl RTree {
-    pub fn len(&self) -> usize {
-        self.parent.len()
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.parent.is_empty()
-    }
-
-    /// Builds from plain compartment records (any order with the root first reachable),
-    /// re-ordering parents first. `node_comp_ids[k]` is the compartment id of model node k.
-    /// Returns None if the records do not form one tree.
-    #[allow(clippy::too_many_arguments)]
-    pub fn from_records(
-        ids: &[u32],
-        parent_ids: &[Option<u32>],
-        g_axial_ns: &[f64],
-        g_leak_ns: &[f64],
-        capacitance_pf: &[f64],
-        pos: &[[f64; 3]],
-        area_um2: &[f64],
-        site_count: &[u32],
-        depth: &[u32],
-        node_comp_ids: &[u32],
-        model: &Flat,
-        path_distance: &[f64],
-    ) -> Option<RTree> {
-        let n = ids.len();
-        let mut by_id: std::collections::HashMap<u32, usize> = Default::default();
-        for (i, &id) in ids.iter().enumerate() {
-            by_id.insert(id, i);
-        }
-        let par: Vec<Option<usize>> = parent_ids
-            .iter()
-            .map(|p| p.and_then(|p| by_id.get(&p).copied()))
-            .collect();
-        let root = par.iter().position(|p| p.is_none())?;
-        // children lists, then breadth-first from the root
-        let mut kids: Vec<Vec<usize>> = vec![Vec::new(); n];
-        for (i, p) in par.iter().enumerate() {
-            if let Some(p) = p {
-                kids[*p].push(i);
-            }
-        }
-        let mut order = vec![root];
-        let mut h = 0;
-        while h < order.len() {
-            let k = order[h];
-            h += 1;
-            order.extend(kids[k].iter().copied());
-        }
-        if order.len() != n {
-            return None;
-        }
-        let mut new_of = vec![0u32; n];
-        for (new, &old) in order.iter().enumerate() {
-            new_of[old] = new as u32;
-        }
-        let pick = |v: &[f64]| order.iter().map(|&o| v[o]).collect::<Vec<f64>>();
-        let mut t = RTree {
-            id: order.iter().map(|&o| ids[o]).collect(),
-            parent: order
-                .iter()
-                .map(|&o| par[o].map(|p| new_of[p]).unwrap_or(NONE))
-                .collect(),
-            g_axial_ns: pick(g_axial_ns),
-            g_leak_ns: pick(g_leak_ns),
-            capacitance_pf: pick(capacitance_pf),
-            pos: order.iter().map(|&o| pos[o]).collect(),
-            area_um2: pick(area_um2),
-            site_count: order.iter().map(|&o| site_count[o]).collect(),
-            depth: order.iter().map(|&o| depth[o]).collect(),
-            node_comp: node_comp_ids
-                .iter()
-                .map(|id| by_id.get(id).map(|&o| new_of[o]).unwrap_or(NONE))
-                .collect(),
-            ..Default::default()
-        };
-        // path distance and type of each entry from the model nodes it stands for
-        let mut sum = vec![0.0; n];
-        let mut cnt = vec![0usize; n];
-        let mut kinds: Vec<BTreeMap<i32, usize>> = vec![BTreeMap::new(); n];
-        for (k, &c) in t.node_comp.iter().enumerate() {
-            if c == NONE {
-                continue;
-            }
-            let c = c as usize;
-            sum[c] += path_distance.get(k).copied().unwrap_or(0.0);
-            cnt[c] += 1;
-            *kinds[c].entry(model.kind[k]).or_default() += 1;
-        }
-        t.n_points = cnt.clone();
-        t.path_distance = (0..n)
-            .map(|c| {
-                if cnt[c] > 0 {
-                    sum[c] / cnt[c] as f64
-                } else {
-                    0.0
-                }
-            })
-            .collect();
-        t.kind = kinds
-            .iter()
-            .map(|m| {
-                m.iter()
-                    .max_by_key(|(_, c)| **c)
-                    .map(|(k, _)| *k)
-                    .unwrap_or(0)
-            })
-            .collect();
-        // Strahler order, children before parents
-        let mut best = vec![0u32; n];
-        let mut count = vec![0u32; n];
-        let mut s = vec![1u32; n];
-        for c in (0..n).rev() {
-            s[c] = if best[c] == 0 {
-                1
-            } else if count[c] >= 2 {
-                best[c] + 1
-            } else {
-                best[c]
-            };
-            let p = t.parent[c];
-            if p != NONE {
-                let p = p as usize;
-                if s[c] > best[p] {
-                    best[p] = s[c];
-                    count[p] = 1;
-                } else if s[c] == best[p] {
-                    count[p] += 1;
-                }
-            }
-        }
-        t.strahler = s;
-        Some(t)
-    }
-
-    /// The compartments as a network at `freq_hz`: series admittance g_axial, shunt
-    /// g_leak + jωC (a lumped RC compartment; Koch 1999 ch. 3).
-    pub fn network(&self, params: &Params, freq_hz: f64) -> Network {
-        let w = 2.0 * std::f64::consts::PI * freq_hz;
-        let n = self.len();
-        Network {
-            parent: self.parent.clone(),
-            g: (0..n)
-                .map(|c| {
-                    if self.parent[c] == NONE {
-                        C64::new(0.0, 0.0)
-                    } else {
-                        C64::new(self.g_axial_ns[c] * 1e-9, 0.0)
-                    }
-                })
-                .collect(),
-            shunt: (0..n)
-                .map(|c| C64::new(self.g_leak_ns[c] * 1e-9, w * self.capacitance_pf[c] * 1e-12))
-                .collect(),
-            freq_hz,
-            params: *params,
-        }
-    }
-}
-
-/// The reduction of one model: turns a budget into a compartment tree, and knows its error
-/// curve. Implemented over the library's reducer when it is present.
-pub trait Reduction: Send + Sync {
-    fn max_compartments(&self) -> usize;
-    fn min_compartments(&self) -> usize {
-        1
-    }
-    fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree>;
-    fn error_curve(&self) -> Vec<(usize, f64)>;
-    /// The reduced tree as JSON and SWC text.
-    fn export_json(&self, budget: usize) -> anyhow::Result<String>;
-    fn export_swc(&self, budget: usize) -> anyhow::Result<String>;
-}
-
-/// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), or says why
-/// it cannot.
-pub fn build_reduction(
-    cell: &Cell,
-    kept: Option<Vec<i32>>,
-    params: &Params,
-) -> Result<Arc<dyn Reduction>, String> {
-    let opts = crate::reduce::ReduceOptions {
-        types: kept,
-        ..Default::default()
-    };
-    match crate::reduce::Reducer::new(&cell.flat, params, &opts) {
-        Ok(r) => Ok(Arc::new(LibReduction {
-            r,
-            source: cell.name.clone(),
-            ids: cell.morph.points.iter().map(|p| p.id).collect(),
-            pos: cell.morph.points.iter().map(|p| p.pos).collect(),
-        })),
-        Err(e) => Err(format!("no reduction: {e}")),
-    }
-}
-
-/// [`Reduction`] over the library's reducer.
-struct LibReduction {
-    r: crate::reduce::Reducer,
-    source: String,
-    ids: Vec<i64>,
-    pos: Vec<[f64; 3]>,
-}
-
-impl Reduction for LibReduction {
-    fn max_compartments(&self) -> usize {
-        self.r.max_compartments()
-    }
-
-    fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
-        let t = self.r.tree(budget);
-        let cs = &t.compartments;
-        let node_ids: Vec<u32> = model
-            .node_point
-            .iter()
-            .map(|&p| t.point_compartment.get(p as usize).copied().unwrap_or(NONE))
-            .collect();
-        let col =
-            |f: &dyn Fn(&crate::reduce::Compartment) -> f64| cs.iter().map(f).collect::<Vec<f64>>();
-        let mut tree = RTree::from_records(
-            &cs.iter().map(|c| c.id).collect::<Vec<_>>(),
-            &cs.iter().map(|c| c.parent).collect::<Vec<_>>(),
-            &col(&|c| c.g_axial_ns),
-            &col(&|c| c.g_leak_ns),
-            &col(&|c| c.capacitance_pf),
-            &cs.iter().map(|c| c.position_um).collect::<Vec<_>>(),
-            &col(&|c| c.membrane_area_um2),
-            &cs.iter().map(|c| c.site_count).collect::<Vec<_>>(),
-            &cs.iter().map(|c| c.depth).collect::<Vec<_>>(),
-            &node_ids,
-            model,
-            path_distance,
-        )?;
-        // each compartment's type is that of the point it is named after
-        for (c, id) in tree.id.iter().enumerate() {
-            if let Some(x) = cs.get(*id as usize).filter(|x| x.id == *id) {
-                tree.kind[c] = x.swc_type;
-            }
-        }
-        Some(tree)
-    }
-
-    fn error_curve(&self) -> Vec<(usize, f64)> {
-        self.r.error_curve()
-    }
-
-    fn export_json(&self, budget: usize) -> anyhow::Result<String> {
-        let t = self.r.tree(budget);
-        let report = self.r.report(&t)?;
-        let src = crate::export::TreeSource {
-            source: &self.source,
-            point_ids: &self.ids,
-            point_pos: &self.pos,
-        };
-        Ok(crate::export::reduced_tree_json(
-            &src, &self.r, &t, &report,
-        )?)
-    }
-
-    fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
-        let t = self.r.tree(budget);
-        let header = vec![
-            format!("reduced tree of {}: {} compartments", self.source, t.len()),
-            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
-        ];
-        Ok(crate::export::reduced_tree_swc(&t, &header))
-    }
-}
-
 /// The electrical model: the main tree restricted to the kept neurite types.
 #[derive(Debug, Clone)]
 pub struct Model {
@@ -635,7 +338,7 @@ pub struct CellState {
     pub colour_by: ColourBy,
     pub unit: LogUnit,
     /// The reduction of the current model (None while it is being built or if unavailable).
-    pub reduction: Option<Arc<dyn Reduction>>,
+    pub reduction: Option<Arc<Reduction>>,
     /// Why there is no reduction (shown in place of the reduced tree).
     pub reduction_note: String,
     pub budget: usize,
@@ -773,7 +476,7 @@ impl CellState {
     }
 
     /// Installs a freshly built reduction (budget clamped to its range).
-    pub fn set_reduction(&mut self, r: Result<Arc<dyn Reduction>, String>) {
+    pub fn set_reduction(&mut self, r: Result<Arc<Reduction>, String>) {
         match r {
             Ok(r) => {
                 self.budget = self
@@ -1024,11 +727,6 @@ impl CellState {
     }
 }
 
-/// A whole-tree soma check used by the type list: true for type codes that are neurites.
-pub fn is_neurite(k: i32) -> bool {
-    k != kind::SOMA
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1066,32 +764,39 @@ mod tests {
     }
 
     #[test]
-    fn rtree_from_records_orders_parents_first_and_solves() {
-        // two compartments given child first
-        let s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
-        let n = s.model.flat.len();
-        let t = RTree::from_records(
-            &[7, 3],
-            &[Some(3), None],
-            &[2.0, 0.0],
-            &[0.5, 1.0],
-            &[1.0, 1.0],
-            &[[1.0, 0.0, 0.0], [0.0; 3]],
-            &[10.0, 10.0],
-            &[3, 2],
-            &[1, 0],
-            &vec![3; n],
-            &s.model.flat,
-            &s.model.path_distance,
-        )
-        .unwrap();
-        assert_eq!(t.id, vec![3, 7]);
-        assert_eq!(t.parent, vec![NONE, 0]);
+    fn rtree_network_is_the_compartment_circuit() {
+        let t = RTree {
+            parent: vec![NONE, 0],
+            g_axial_ns: vec![0.0, 2.0],
+            g_leak_ns: vec![1.0, 0.5],
+            capacitance_pf: vec![1.0, 1.0],
+            ..Default::default()
+        };
         // DC: voltage divider g_a/(g_a + g_leak) from the child to the root for a current at the
         // child (Ohm's law, closed form)
         let net = t.network(&Params::default(), 0.0);
         let r = net.maps().site_ratio(1).expect("node 1");
         assert!((r[0].re - 2.0 / 3.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn rtree_takes_the_reducers_parents_first_order_and_strahler() {
+        let s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
+        let r = crate::reduce::Reducer::new(
+            &s.model.flat,
+            &s.params,
+            &crate::reduce::ReduceOptions::default(),
+        )
+        .unwrap();
+        let rt = r.tree(3);
+        let t = RTree::new(&rt, &s.model.flat, &s.model.path_distance).expect("a tree");
+        assert_eq!(t.len(), rt.compartments.len());
+        for (c, x) in rt.compartments.iter().enumerate() {
+            assert_eq!(t.id[c], x.id);
+            assert_eq!(t.parent[c], x.parent.unwrap_or(NONE));
+        }
+        // a root with two leaves: orders 2, 1, 1 (Strahler 1957, counted by hand)
+        assert_eq!(t.strahler, vec![2, 1, 1]);
     }
 
     #[test]

@@ -54,7 +54,7 @@ impl Maps {
         Maps {
             d: solved.subtree_admittance().to_vec(),
             p: solved.parent_side().to_vec(),
-            u: solved.rest_of_tree().to_vec(),
+            u: solved.rest_of_tree(),
             down: solved.down().to_vec(),
             solved,
         }

@@ -191,8 +191,6 @@ pub struct TreeMaps<T> {
     factor: TreeFactor<T>,
     /// P_k (0 at the root).
     p: Vec<T>,
-    /// U_k (0 at the root).
-    u: Vec<T>,
     /// Z_kk.
     z_in: Vec<T>,
     /// Z_k0.
@@ -206,18 +204,17 @@ pub struct TreeMaps<T> {
 /// Downward sweep (k = 1 … n−1; Koch & Poggio 1985): completes P_k = S_p + U_p + Σ_{c≠k} t_c
 /// (summed from its terms), U_k = g_k·P_k/(g_k + P_k), Z_kk = 1/(D_k + U_k) and
 /// Z_k0 = Z_p0·down_k.
-fn downward<T: Scalar>(f: &TreeFactor<T>, p: &mut [T]) -> (Vec<T>, Vec<T>, Vec<T>) {
+fn downward<T: Scalar>(f: &TreeFactor<T>, p: &mut [T]) -> (Vec<T>, Vec<T>) {
     let n = f.len();
     let zero = T::real(0.0);
     let one = T::real(1.0);
     let (parent, g, d, down) = (&f.parent, &f.g, &f.d, &f.down);
     // acc[q]: U_q plus the branches of q's children met so far
     let mut acc = vec![zero; n];
-    let mut u = vec![zero; n];
     let mut z_in = vec![zero; n];
     let mut z_soma = vec![zero; n];
     if n == 0 {
-        return (u, z_in, z_soma);
+        return (z_in, z_soma);
     }
     z_in[0] = f.inv[0];
     z_soma[0] = f.inv[0];
@@ -229,11 +226,10 @@ fn downward<T: Scalar>(f: &TreeFactor<T>, p: &mut [T]) -> (Vec<T>, Vec<T>, Vec<T
         acc[q] += down[k] * dk;
         let uk = g[k] * pk / (g[k] + pk);
         acc[k] = uk;
-        u[k] = uk;
         z_in[k] = one / (dk + uk);
         z_soma[k] = z_soma[q] * down[k];
     }
-    (u, z_in, z_soma)
+    (z_in, z_soma)
 }
 
 /// |x| is zero, subnormal or not finite: its logarithm cannot be trusted.
@@ -251,7 +247,7 @@ impl<T: Scalar> TreeMaps<T> {
     pub fn from_vecs(parent: Vec<u32>, g: Vec<T>, shunt: Vec<T>) -> TreeMaps<T> {
         let mut p = vec![T::real(0.0); parent.len()];
         let factor = TreeFactor::build(parent, g, shunt, Some(&mut p));
-        let (u, z_in, z_soma) = downward(&factor, &mut p);
+        let (z_in, z_soma) = downward(&factor, &mut p);
         // |Z_k0| is a product of link ratios: far from the soma it can underflow
         let ln_z_soma = z_soma
             .iter()
@@ -260,7 +256,6 @@ impl<T: Scalar> TreeMaps<T> {
         TreeMaps {
             factor,
             p,
-            u,
             z_in,
             z_soma,
             ln_z_soma,
@@ -294,9 +289,15 @@ impl<T: Scalar> TreeMaps<T> {
         &self.p
     }
 
-    /// U_k: the rest of the tree seen from k through its parent link (S); 0 at the root.
-    pub fn rest_of_tree(&self) -> &[T] {
-        &self.u
+    /// U_k = g_k·P_k/(g_k + P_k): the rest of the tree seen from k through its parent link
+    /// (S); 0 at the root. Computed on each call (not stored).
+    pub fn rest_of_tree(&self) -> Vec<T> {
+        let f = &self.factor;
+        let mut u: Vec<T> = f.g.iter().zip(&self.p).map(|(&g, &p)| g * p / (g + p)).collect();
+        if let Some(u0) = u.first_mut() {
+            *u0 = T::real(0.0);
+        }
+        u
     }
 
     /// down_k = g_k/(g_k + D_k) (see [`TreeFactor::down`]).

@@ -4,6 +4,50 @@
 use super::{IMPLAUSIBLE_EXTENT_UM, Metrics, Morphology, NONE, TypeMetrics, dist, kind_name};
 use crate::swc::Warning;
 
+/// Strahler order of every node of a parents-first tree (Strahler 1957): a tip is 1; a node
+/// whose highest child order occurs at least twice is one more than it, else equal to it.
+/// `merged(i)`: node i is part of its parent (a soma drawn as a chain of points), so its
+/// children count as its parent's. Children before parents, one loop.
+pub fn strahler(parent: &[u32], merged: impl Fn(usize) -> bool) -> Vec<u32> {
+    let n = parent.len();
+    let mut n_children = vec![0u32; n];
+    for &p in parent {
+        if p != NONE {
+            n_children[p as usize] += 1;
+        }
+    }
+    let mut strahler = vec![0u32; n];
+    let mut best = vec![0u32; n];
+    let mut count_best = vec![0u32; n];
+    for i in (0..n).rev() {
+        let s = if n_children[i] == 0 {
+            1
+        } else if count_best[i] >= 2 {
+            best[i] + 1
+        } else {
+            best[i]
+        };
+        strahler[i] = s;
+        if parent[i] == NONE {
+            continue;
+        }
+        let p = parent[i] as usize;
+        // a merged node hands its children's best order and count to its parent
+        let (s, c) = if merged(i) {
+            (best[i], count_best[i])
+        } else {
+            (s, 1)
+        };
+        if s > best[p] {
+            best[p] = s;
+            count_best[p] = c;
+        } else if s == best[p] {
+            count_best[p] += c;
+        }
+    }
+    strahler
+}
+
 impl Morphology {
     pub(super) fn compute_point_metrics(&mut self) {
         let n = self.len();
@@ -30,39 +74,11 @@ impl Morphology {
                 order[p]
             };
         }
-        // Strahler: children before parents (reverse order)
-        let mut strahler = vec![0u32; n];
-        let mut best = vec![0u32; n];
-        let mut count_best = vec![0u32; n];
-        for i in (0..n).rev() {
-            let s = if n_children[i] == 0 {
-                1
-            } else if count_best[i] >= 2 {
-                best[i] + 1
-            } else {
-                best[i]
-            };
-            strahler[i] = s;
-            let p = self.parent[i];
-            if p != NONE && !(self.is_soma[p as usize] && self.is_soma[i]) {
-                let p = p as usize;
-                if s > best[p] {
-                    best[p] = s;
-                    count_best[p] = 1;
-                } else if s == best[p] {
-                    count_best[p] += 1;
-                }
-            } else if p != NONE {
-                // soma chain: pass the soma's children's orders up to the soma root
-                let p = p as usize;
-                if best[i] > best[p] {
-                    best[p] = best[i];
-                    count_best[p] = count_best[i];
-                } else if best[i] == best[p] {
-                    count_best[p] += count_best[i];
-                }
-            }
-        }
+        let is_soma = &self.is_soma;
+        let parent = &self.parent;
+        let strahler = strahler(parent, |i| {
+            parent[i] != NONE && is_soma[i] && is_soma[parent[i] as usize]
+        });
         self.n_children = n_children;
         self.path_distance = path;
         self.branch_order = order;

@@ -18,6 +18,7 @@ mod flat;
 mod metrics;
 
 pub use flat::Flat;
+pub use metrics::strahler;
 
 use crate::swc::{Fault, SwcError, SwcFile, SwcPoint, Warning};
 use petgraph::graph::{DiGraph, NodeIndex};

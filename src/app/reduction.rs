@@ -1,0 +1,211 @@
+//! The app's hold on the library's reduction: [`Reduction`] wraps the [`Reducer`] of the model
+//! (shared through `Arc`), [`RTree`] is one budget's [`ReducedTree`] in the columns drawing
+//! needs. Nothing here reduces, re-orders or re-solves: ids, order, conductances and types are
+//! the reducer's; only drawing's extras (model node → compartment, mean path distance, Strahler
+//! order) are added.
+
+use crate::cable::{C64, Network, Params};
+use crate::morphology::{Flat, NONE};
+use crate::reduce::{ReducedTree, Reducer};
+use std::sync::Arc;
+
+/// A compartment tree ready for drawing and solving, in the reducer's parents-first order
+/// (`parent[c] < c`, entry c is compartment c).
+#[derive(Debug, Clone, Default)]
+pub struct RTree {
+    /// The reducer's compartment id of each entry.
+    pub id: Vec<u32>,
+    pub parent: Vec<u32>,
+    /// Axial conductance to the parent (nS), leak conductance (nS), capacitance (pF).
+    pub g_axial_ns: Vec<f64>,
+    pub g_leak_ns: Vec<f64>,
+    pub capacitance_pf: Vec<f64>,
+    pub pos: Vec<[f64; 3]>,
+    pub area_um2: Vec<f64>,
+    pub site_count: Vec<u32>,
+    pub depth: Vec<u32>,
+    /// Model node (see [`super::state::CellState::model`]) → entry.
+    pub node_comp: Vec<u32>,
+    /// Number of model nodes each entry stands for.
+    pub n_points: Vec<usize>,
+    /// Mean path distance (µm) of the points each entry stands for.
+    pub path_distance: Vec<f64>,
+    /// Neurite type of the point each compartment is named after.
+    pub kind: Vec<i32>,
+    /// Strahler order of each entry in the compartment tree.
+    pub strahler: Vec<u32>,
+}
+
+impl RTree {
+    pub fn len(&self) -> usize {
+        self.parent.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.parent.is_empty()
+    }
+
+    /// One budget's tree as columns, plus the model nodes each compartment stands for
+    /// (`model` and `path_distance` are the app's model, whose nodes the reducer saw). None if
+    /// the compartments are not numbered parents-first (the reducer's promise).
+    pub fn new(t: &ReducedTree, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
+        let cs = &t.compartments;
+        let n = cs.len();
+        let ordered = cs.iter().enumerate().all(|(c, x)| {
+            x.id as usize == c
+                && x.parent.is_none_or(|p| (p as usize) < c)
+                && (c == 0) == x.parent.is_none()
+        });
+        if !ordered {
+            return None;
+        }
+        let col = |f: &dyn Fn(&crate::reduce::Compartment) -> f64| cs.iter().map(f).collect();
+        let parent: Vec<u32> = cs.iter().map(|c| c.parent.unwrap_or(NONE)).collect();
+        let node_comp: Vec<u32> = model
+            .node_point
+            .iter()
+            .map(|&p| t.point_compartment.get(p as usize).copied().unwrap_or(NONE))
+            .map(|c| if (c as usize) < n { c } else { NONE })
+            .collect();
+        // mean path distance of the model nodes each compartment stands for
+        let mut sum = vec![0.0; n];
+        let mut n_points = vec![0usize; n];
+        for (k, &c) in node_comp.iter().enumerate() {
+            if c != NONE {
+                sum[c as usize] += path_distance.get(k).copied().unwrap_or(0.0);
+                n_points[c as usize] += 1;
+            }
+        }
+        let path_distance = (0..n)
+            .map(|c| {
+                if n_points[c] > 0 {
+                    sum[c] / n_points[c] as f64
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        Some(RTree {
+            id: cs.iter().map(|c| c.id).collect(),
+            strahler: crate::morphology::strahler(&parent, |_| false),
+            parent,
+            g_axial_ns: col(&|c| c.g_axial_ns),
+            g_leak_ns: col(&|c| c.g_leak_ns),
+            capacitance_pf: col(&|c| c.capacitance_pf),
+            pos: cs.iter().map(|c| c.position_um).collect(),
+            area_um2: col(&|c| c.membrane_area_um2),
+            site_count: cs.iter().map(|c| c.site_count).collect(),
+            depth: cs.iter().map(|c| c.depth).collect(),
+            node_comp,
+            n_points,
+            path_distance,
+            kind: cs.iter().map(|c| c.swc_type).collect(),
+        })
+    }
+
+    /// The compartments as a network at `freq_hz`: series admittance g_axial, shunt
+    /// g_leak + jωC (a lumped RC compartment; Koch 1999 ch. 3).
+    pub fn network(&self, params: &Params, freq_hz: f64) -> Network {
+        let w = 2.0 * std::f64::consts::PI * freq_hz;
+        let n = self.len();
+        Network {
+            parent: self.parent.clone(),
+            g: (0..n)
+                .map(|c| {
+                    if self.parent[c] == NONE {
+                        C64::new(0.0, 0.0)
+                    } else {
+                        C64::new(self.g_axial_ns[c] * 1e-9, 0.0)
+                    }
+                })
+                .collect(),
+            shunt: (0..n)
+                .map(|c| C64::new(self.g_leak_ns[c] * 1e-9, w * self.capacitance_pf[c] * 1e-12))
+                .collect(),
+            freq_hz,
+            params: *params,
+        }
+    }
+}
+
+/// The reduction of one model: the library's [`Reducer`] plus what its exports name (source,
+/// point ids and positions). Every budget is a replay of the reducer.
+pub struct Reduction {
+    reducer: Reducer,
+    source: String,
+    ids: Vec<i64>,
+    pos: Vec<[f64; 3]>,
+}
+
+/// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), or says why
+/// it cannot.
+pub fn build_reduction(
+    cell: &super::state::Cell,
+    kept: Option<Vec<i32>>,
+    params: &Params,
+) -> Result<Arc<Reduction>, String> {
+    let opts = crate::reduce::ReduceOptions {
+        types: kept,
+        ..Default::default()
+    };
+    match Reducer::new(&cell.flat, params, &opts) {
+        Ok(reducer) => Ok(Arc::new(Reduction {
+            reducer,
+            source: cell.name.clone(),
+            ids: cell.morph.points.iter().map(|p| p.id).collect(),
+            pos: cell.morph.points.iter().map(|p| p.pos).collect(),
+        })),
+        Err(e) => Err(format!("no reduction: {e}")),
+    }
+}
+
+impl Reduction {
+    /// The library's reducer.
+    pub fn reducer(&self) -> &Reducer {
+        &self.reducer
+    }
+
+    pub fn max_compartments(&self) -> usize {
+        self.reducer.max_compartments()
+    }
+
+    pub fn min_compartments(&self) -> usize {
+        1
+    }
+
+    /// The tree at `budget` for drawing (see [`RTree::new`]).
+    pub fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
+        RTree::new(&self.reducer.tree(budget), model, path_distance)
+    }
+
+    pub fn error_curve(&self) -> Vec<(usize, f64)> {
+        self.reducer.error_curve()
+    }
+
+    /// The reduced tree at `budget` as JSON text.
+    pub fn export_json(&self, budget: usize) -> anyhow::Result<String> {
+        let t = self.reducer.tree(budget);
+        let report = self.reducer.report(&t)?;
+        let src = crate::export::TreeSource {
+            source: &self.source,
+            point_ids: &self.ids,
+            point_pos: &self.pos,
+        };
+        Ok(crate::export::reduced_tree_json(
+            &src,
+            &self.reducer,
+            &t,
+            &report,
+        )?)
+    }
+
+    /// The reduced tree at `budget` as SWC text.
+    pub fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
+        let t = self.reducer.tree(budget);
+        let header = vec![
+            format!("reduced tree of {}: {} compartments", self.source, t.len()),
+            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
+        ];
+        Ok(crate::export::reduced_tree_swc(&t, &header))
+    }
+}
