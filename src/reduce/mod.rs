@@ -58,14 +58,16 @@
 //! again). [`parse_sites_csv`] reads SWC ids or x,y,z positions (snapped to the nearest kept
 //! point).
 
+mod build;
+mod capacitance;
+mod fine;
+mod order;
 mod sites;
 
 pub use sites::{SiteSpec, parse_sites_csv};
 
 use crate::cable::{C64, CableError, Maps, Network, Params};
 use crate::morphology::{Flat, NONE};
-use std::cmp::Ordering;
-use std::collections::BinaryHeap;
 use std::sync::OnceLock;
 
 /// Why a reduction cannot run.
@@ -150,6 +152,8 @@ pub enum Role {
     Junction,
     /// Inserted as the second child of a soma with a single stem.
     SomaLeaf,
+    /// A point inside a section, where the leaf standing for a collapsed subtree sits.
+    SectionPoint,
 }
 
 /// One compartment of a reduced tree. Ids are parents-first (`parent < id`), the soma is 0.
@@ -299,22 +303,17 @@ pub struct Report {
     pub error_curve: Vec<CurvePoint>,
 }
 
-/// The maximal tree and the collapse order of one cell; every budget is a replay.
+/// The binarised fine network and the collapse order of one cell; every budget is a replay.
 #[derive(Debug)]
 pub struct Reducer {
     params: Params,
     opts: ReduceOptions,
-    /// Maximal tree, parents-first.
-    max: Tree,
-    kids: Vec<Option<[u32; 2]>>,
-    site_count: Vec<u32>,
-    /// Cherry parents in collapse order.
-    order: Vec<u32>,
-    curve: Vec<CurvePoint>,
-    /// Per morphology point: max-tree node (NONE outside).
-    point_max: Vec<u32>,
+    fine: fine::Fine,
+    sk: order::Skeleton,
+    max_compartments: usize,
     sites: Vec<SiteInfo>,
-    site_max: Vec<u32>,
+    /// Per site: its fine node and weight.
+    site_fine: Vec<(u32, f64)>,
     /// The kept cell as flat arrays (for the frequency line of the report).
     kept: Flat,
     r_in_full_ohm: f64,
@@ -322,22 +321,8 @@ pub struct Reducer {
     junctions: usize,
     points_left_out: usize,
     z_full_freq: OnceLock<Result<C64, CableError>>,
-}
-
-/// f64 with a total order, for the heap.
-#[derive(Debug, Clone, Copy, PartialEq)]
-struct Key(f64, u32);
-impl Eq for Key {}
-impl PartialOrd for Key {
-    fn partial_cmp(&self, o: &Self) -> Option<Ordering> {
-        Some(self.cmp(o))
-    }
-}
-impl Ord for Key {
-    // reversed: BinaryHeap is a max-heap, we pop the smallest cost (ties: smallest id)
-    fn cmp(&self, o: &Self) -> Ordering {
-        o.0.total_cmp(&self.0).then(o.1.cmp(&self.1))
-    }
+    /// The full cell's ln Z_0k at the capacitance fit's frequencies, computed once.
+    full_lz: OnceLock<Vec<Vec<C64>>>,
 }
 
 /// Real DC sweep of a parents-first tree: subtree admittances D, the admittance P at each
@@ -368,449 +353,146 @@ fn dc_sweep(parent: &[u32], g: &[f64], shunt: &[f64]) -> (Vec<f64>, Vec<f64>, Ve
     (d, p, u)
 }
 
-impl Reducer {
-    /// Builds the maximal strict binary tree of the cell and the whole collapse order
-    /// (O(N log N)). See the module documentation for each step.
-    pub fn new(flat: &Flat, params: &Params, opts: &ReduceOptions) -> Result<Reducer, ReduceError> {
-        params.validate(opts.freq_hz)?;
-        let fr = opts.junction_length_fraction;
-        if !(fr.is_finite() && (1e-9..=1.0).contains(&fr)) {
-            return Err(ReduceError::OptionRange {
-                name: "junction length fraction",
-                value: fr,
-                lo: 1e-9,
-                hi: 1.0,
-            });
+/// Checks the options and parameters once.
+fn validate(flat: &Flat, params: &Params, opts: &ReduceOptions) -> Result<(), ReduceError> {
+    params.validate(opts.freq_hz)?;
+    let fr = opts.junction_length_fraction;
+    if !(fr.is_finite() && (1e-9..=1.0).contains(&fr)) {
+        return Err(ReduceError::OptionRange {
+            name: "junction length fraction",
+            value: fr,
+            lo: 1e-9,
+            hi: 1.0,
+        });
+    }
+    if flat.is_empty() {
+        return Err(ReduceError::Empty);
+    }
+    if matches!(&opts.types, Some(t) if t.is_empty()) {
+        return Err(ReduceError::NoTypes);
+    }
+    Ok(())
+}
+
+/// The sites as (kept node, weight): default sites or the resolved list.
+fn resolve_sites(
+    kept: &Flat,
+    old_to_kept: &[u32],
+    sites: &Sites,
+) -> Result<Vec<(u32, f64)>, ReduceError> {
+    let n = kept.len();
+    match sites {
+        Sites::Default => {
+            let pick = |axon_ok: bool| -> Vec<(u32, f64)> {
+                (1..n)
+                    .filter(|&k| axon_ok || kept.kind[k] != crate::morphology::kind::AXON)
+                    .map(|k| (k as u32, kept.segment_area(k)))
+                    .collect()
+            };
+            let s = pick(false);
+            Ok(if s.is_empty() { pick(true) } else { s })
         }
-        if flat.is_empty() {
-            return Err(ReduceError::Empty);
-        }
-        if matches!(&opts.types, Some(t) if t.is_empty()) {
-            return Err(ReduceError::NoTypes);
-        }
-        // 1. types filter
-        let n0 = flat.len();
-        let mut keep = vec![false; n0];
-        keep[0] = true;
-        for k in 1..n0 {
-            keep[k] = keep[flat.parent[k] as usize]
-                && opts
-                    .types
-                    .as_ref()
-                    .is_none_or(|t| t.contains(&flat.kind[k]));
-        }
-        let (kept, old_to_kept) = flat.restrict(&keep);
-        let points_left_out = n0 - kept.len();
-        // 2. the cable engine's DC network of the kept cell
-        let net = Network::build(&kept, params, 0.0)?;
-        let n = kept.len();
-        let g_full: Vec<f64> = net.g.iter().map(|z| z.re).collect();
-        let maps = Maps::new(&net);
-        let r_in_full_ohm = 1.0 / maps.d[0].re;
-        // DC log attenuation to the soma of every node: ln(Z_kk/Z_k0)
-        let zs = maps.soma_transfer(&net.parent);
-        let ln_att: Vec<f64> = (0..n)
-            .map(|k| {
-                if k == 0 {
-                    0.0
-                } else {
-                    let zkk = 1.0 / (maps.d[k].re + maps.u[k].re);
-                    (zkk / zs[k].re).ln()
+        Sites::List(list) => {
+            if list.is_empty() {
+                return Err(ReduceError::NoSites);
+            }
+            let mut out = Vec::with_capacity(list.len());
+            for (i, s) in list.iter().enumerate() {
+                let (node, line, weight) = match *s {
+                    SiteSpec::Node { node, line } => (node, line, 1.0),
+                    SiteSpec::Weighted { node, weight, line } => (node, line, weight),
+                    SiteSpec::Position { pos, .. } => {
+                        out.push((nearest(&kept.pos, pos), 1.0));
+                        continue;
+                    }
+                };
+                if !(weight.is_finite() && weight > 0.0) {
+                    return Err(ReduceError::OptionRange {
+                        name: "site weight",
+                        value: weight,
+                        lo: f64::MIN_POSITIVE,
+                        hi: f64::MAX,
+                    });
                 }
-            })
-            .collect();
+                if node as usize >= old_to_kept.len() {
+                    return Err(ReduceError::SiteOutOfRange { index: i, node });
+                }
+                let m = old_to_kept[node as usize];
+                if m == NONE {
+                    return Err(ReduceError::SiteExcluded { index: i, line });
+                }
+                out.push((m, weight));
+            }
+            Ok(out)
+        }
+    }
+}
+
+impl Reducer {
+    /// Builds the binarised fine network of the cell and the whole collapse order
+    /// (O(N log N)). See the module documentation for each stage.
+    pub fn new(flat: &Flat, params: &Params, opts: &ReduceOptions) -> Result<Reducer, ReduceError> {
+        validate(flat, params, opts)?;
+        let (kept, old_to_kept) = fine::filter_types(flat, opts);
+        let points_left_out = flat.len() - kept.len();
+        let fine = fine::build(&kept, params, opts.junction_length_fraction)?;
         // A part of the cell hundreds of length constants from the soma (a segment far longer
         // than its length constant, usually coordinates in the wrong units) has no meaningful
         // reduction, and its numbers would leave the range of f64: refuse it by name.
-        if let Some(k) =
-            (1..n).find(|&k| ln_att[k].is_nan() || ln_att[k].abs() > MAX_LN_ATTENUATION)
+        if let Some(k) = (1..kept.len())
+            .find(|&k| fine.flat_ln_att[k].is_nan() || fine.flat_ln_att[k].abs() > MAX_LN_ATTENUATION)
         {
             return Err(ReduceError::CutOff {
                 line: kept.line[k],
-                nepers: ln_att[k],
+                nepers: fine.flat_ln_att[k],
             });
         }
-        // sites (kept-node index, weight)
-        let site_list: Vec<(u32, f64)> = match &opts.sites {
-            Sites::Default => {
-                let pick = |axon_ok: bool| -> Vec<(u32, f64)> {
-                    (1..n)
-                        .filter(|&k| axon_ok || kept.kind[k] != crate::morphology::kind::AXON)
-                        .map(|k| (k as u32, kept.segment_area(k)))
-                        .collect()
-                };
-                let s = pick(false);
-                if s.is_empty() { pick(true) } else { s }
-            }
-            Sites::List(list) => {
-                if list.is_empty() {
-                    return Err(ReduceError::NoSites);
-                }
-                let mut out = Vec::with_capacity(list.len());
-                for (i, s) in list.iter().enumerate() {
-                    let (node, line, weight) = match *s {
-                        SiteSpec::Node { node, line } => (node, line, 1.0),
-                        SiteSpec::Weighted { node, weight, line } => (node, line, weight),
-                        SiteSpec::Position { pos, .. } => {
-                            out.push((nearest(&kept.pos, pos), 1.0));
-                            continue;
-                        }
-                    };
-                    if !(weight.is_finite() && weight > 0.0) {
-                        return Err(ReduceError::OptionRange {
-                            name: "site weight",
-                            value: weight,
-                            lo: f64::MIN_POSITIVE,
-                            hi: f64::MAX,
-                        });
-                    }
-                    if node as usize >= n0 {
-                        return Err(ReduceError::SiteOutOfRange { index: i, node });
-                    }
-                    let m = old_to_kept[node as usize];
-                    if m == NONE {
-                        return Err(ReduceError::SiteExcluded { index: i, line });
-                    }
-                    out.push((m, weight));
-                }
-                out
-            }
-        };
-        // 3. sections to edges
-        let mut nchild = vec![0u32; n];
-        for k in 1..n {
-            nchild[kept.parent[k] as usize] += 1;
-        }
-        let retained: Vec<bool> = (0..n).map(|k| k == 0 || nchild[k] != 1).collect();
-        let mut sh: Vec<f64> = net.shunt.iter().map(|z| z.re).collect();
-        let mut gsec = vec![0.0; n]; // edge from a retained node to its retained parent
-        let mut rparent = vec![NONE; n];
-        let mut node_to_ret: Vec<u32> = (0..n as u32).collect();
-        let mut path: Vec<usize> = Vec::new();
-        let mut cc: Vec<f64> = Vec::new();
-        let mut dd: Vec<f64> = Vec::new();
-        for b in 1..n {
-            if !retained[b] {
-                continue;
-            }
-            path.clear();
-            let mut x = kept.parent[b] as usize;
-            while !retained[x] {
-                path.push(x);
-                x = kept.parent[x] as usize;
-            }
-            let a = x;
-            rparent[b] = a as u32;
-            path.reverse(); // x1 … x_{m−1}, top to bottom
-            if path.is_empty() {
-                gsec[b] = g_full[b];
-                continue;
-            }
-            cc.clear();
-            dd.clear();
-            let mut g_run = g_full[path[0]];
-            for i in 0..path.len() {
-                let xi = path[i];
-                let below = if i + 1 < path.len() { path[i + 1] } else { b };
-                let g_dn = g_full[below];
-                let gx = sh[xi];
-                // Kron reduction of a degree-2 node
-                let s = g_run + g_dn + gx;
-                sh[a] += g_run * gx / s;
-                sh[below] += g_dn * gx / s;
-                cc.push(g_run / s);
-                dd.push(g_dn / s);
-                g_run = g_run * g_dn / s;
-            }
-            gsec[b] = g_run;
-            // back-substitution: share to a (v) and to b (u) of a current injected at x_i
-            let mut v = 0.0;
-            let mut u = 1.0;
-            for i in (0..path.len()).rev() {
-                v = cc[i] + dd[i] * v;
-                u *= dd[i];
-                node_to_ret[path[i]] = if v >= u { a as u32 } else { b as u32 };
-            }
-        }
-        // areas per retained node
-        let mut area_ret = vec![0.0; n];
-        area_ret[0] = kept.soma_area_um2;
-        for k in 1..n {
-            area_ret[node_to_ret[k] as usize] += kept.segment_area(k);
-        }
-        // 4. binarisation, parents-first
-        let soma_radius_um = {
-            let r = (kept.soma_area_um2 / (4.0 * std::f64::consts::PI)).sqrt();
-            if r > 0.0 && r.is_finite() {
-                r
-            } else {
-                (1..n)
-                    .filter(|&k| kept.parent[k] == 0)
-                    .map(|k| kept.r_prox_um[k])
-                    .fold(0.0, f64::max)
-                    .max(1.0)
-            }
-        };
-        // the radius of a branch point: the thickest process meeting there (its own segment's
-        // distal end, or a child segment's proximal end)
-        let mut node_r = kept.r_dist_um.clone();
-        for k in 1..n {
-            let q = kept.parent[k] as usize;
-            node_r[q] = node_r[q].max(kept.r_prox_um[k]);
-        }
-        let junction_g = |k: usize| -> f64 {
-            // cylinder of radius r and length fraction·r: π r²/(Ra·fraction·r) (Ohm's law for
-            // a uniform core conductor)
-            let r_um = if k == 0 { soma_radius_um } else { node_r[k] };
-            std::f64::consts::PI * r_um * crate::cable::UM / (params.ra_ohm_cm * fr)
-        };
-        let mut kids_ret: Vec<Vec<u32>> = vec![Vec::new(); n];
-        for b in 1..n {
-            if retained[b] {
-                kids_ret[rparent[b] as usize].push(b as u32);
-            }
-        }
-        // what each child branch presents to its parent (for the cascade order)
-        let branch_adm = {
-            // D of the kept network at b seen through the section edge
-            let d: Vec<f64> = maps.d.iter().map(|z| z.re).collect();
-            let gs = &gsec;
-            move |b: usize| gs[b] * d[b] / (gs[b] + d[b])
-        };
-        let mut t = Tree::default();
-        let mut ret_to_max = vec![NONE; n];
-        let mut attach = vec![NONE; n]; // retained child → its max-tree parent
-        let mut junctions = 0usize;
-        for k in 0..n {
-            if !retained[k] {
-                continue;
-            }
-            let me = t.len() as u32;
-            let role = if k == 0 {
-                Role::Soma
-            } else if nchild[k] == 0 {
-                Role::Tip
-            } else {
-                Role::BranchPoint
-            };
-            t.push(
-                if k == 0 { NONE } else { attach[k] },
-                if k == 0 { 0.0 } else { gsec[k] },
-                sh[k],
-                area_ret[k],
-                kept.pos[k],
-                role,
-                kept.line[k],
-                kept.kind[k],
-            );
-            ret_to_max[k] = me;
-            let mut ch = std::mem::take(&mut kids_ret[k]);
-            match ch.len() {
-                0 => {}
-                1 => {
-                    // soma with one stem: a soma leaf takes half the soma's leak and area
-                    attach[ch[0] as usize] = me;
-                    let gj = junction_g(k);
-                    let half_sh = t.shunt[me as usize] / 2.0;
-                    let half_area = t.area[me as usize] / 2.0;
-                    t.shunt[me as usize] = half_sh;
-                    t.area[me as usize] = half_area;
-                    t.push(
-                        me,
-                        gj,
-                        half_sh,
-                        half_area,
-                        kept.pos[k],
-                        Role::SomaLeaf,
-                        0,
-                        kept.kind[k],
-                    );
-                    junctions += 1;
-                }
-                2 => {
-                    for &c in &ch {
-                        attach[c as usize] = me;
-                    }
-                }
-                m => {
-                    ch.sort_by(|&x, &y| {
-                        branch_adm(y as usize)
-                            .total_cmp(&branch_adm(x as usize))
-                            .then(x.cmp(&y))
-                    });
-                    // the m − 2 links of the cascade together make one piece of length
-                    // fraction·r, so a long cascade adds no more series resistance than one link
-                    let gj = junction_g(k) * (m - 2) as f64;
-                    let share_sh = t.shunt[me as usize] / (m - 1) as f64;
-                    let share_area = t.area[me as usize] / (m - 1) as f64;
-                    t.shunt[me as usize] = share_sh;
-                    t.area[me as usize] = share_area;
-                    attach[ch[0] as usize] = me;
-                    let mut up = me;
-                    for i in 1..m - 1 {
-                        let j = t.len() as u32;
-                        t.push(
-                            up,
-                            gj,
-                            share_sh,
-                            share_area,
-                            kept.pos[k],
-                            Role::Junction,
-                            0,
-                            kept.kind[k],
-                        );
-                        junctions += 1;
-                        attach[ch[i] as usize] = j;
-                        up = j;
-                    }
-                    attach[ch[m - 1] as usize] = up;
-                }
-            }
-        }
-        let nm = t.len();
-        let mut kids: Vec<Option<[u32; 2]>> = vec![None; nm];
-        {
-            let mut first = vec![NONE; nm];
-            for k in 1..nm {
-                let p = t.parent[k] as usize;
-                if first[p] == NONE {
-                    first[p] = k as u32;
-                } else {
-                    kids[p] = Some([first[p], k as u32]);
-                }
-            }
-        }
-        // maps of points and sites to the maximal tree
-        let point_max: Vec<u32> = kept
-            .point_node
+        let site_list = resolve_sites(&kept, &old_to_kept, &opts.sites)?;
+        let site_fine: Vec<(u32, f64)> = site_list
             .iter()
-            .map(|&k| {
-                if k == NONE {
-                    NONE
-                } else {
-                    ret_to_max[node_to_ret[k as usize] as usize]
+            .map(|&(s, w)| (fine.of_flat[s as usize], w))
+            .collect();
+        let sites = site_list
+            .iter()
+            .map(|&(s, w)| {
+                let point = kept.node_point[s as usize];
+                SiteInfo {
+                    node: flat.point_node[point as usize],
+                    point,
+                    weight: w,
+                    ln_attenuation_full: fine.flat_ln_att[s as usize],
                 }
             })
             .collect();
-        let mut w_sum = vec![0.0; nm];
-        let mut b_sum = vec![0.0; nm];
-        let mut b2_sum = vec![0.0; nm];
-        let mut site_count = vec![0u32; nm];
-        let mut sites = Vec::with_capacity(site_list.len());
-        let mut site_max = Vec::with_capacity(site_list.len());
-        for &(s, w) in &site_list {
-            let r = node_to_ret[s as usize] as usize;
-            let mx = ret_to_max[r] as usize;
-            let b = ln_att[s as usize] - ln_att[r];
-            w_sum[mx] += w;
-            b_sum[mx] += w * b;
-            b2_sum[mx] += w * b * b;
-            site_count[mx] += 1;
-            site_max.push(mx as u32);
-            sites.push(SiteInfo {
-                node: 0,
-                point: kept.node_point[s as usize],
-                weight: w,
-                ln_attenuation_full: ln_att[s as usize],
-            });
-        }
-        // fix SiteInfo.node to be the node of the caller's Flat
-        for (si, &(s, _)) in sites.iter_mut().zip(&site_list) {
-            si.node = flat.point_node[kept.node_point[s as usize] as usize];
-        }
-        // 5. collapse order
-        let (d_max, p_max, _) = dc_sweep(&t.parent, &t.g, &t.shunt);
-        let junction_effect = (1.0 / d_max[0]) / r_in_full_ohm - 1.0;
-        let e: Vec<f64> = (0..nm)
-            .map(|x| {
-                if x == 0 {
-                    0.0
-                } else {
-                    (p_max[x] / t.g[x]).ln_1p()
-                }
-            })
-            .collect();
-        let w_total: f64 = w_sum.iter().sum();
-        let mut total = b2_sum.iter().sum::<f64>();
-        let cost = |x: usize, w: &[f64], b: &[f64]| 2.0 * e[x] * b[x] + e[x] * e[x] * w[x];
-        let mut heap = BinaryHeap::new();
-        let is_leaf = |leaf: &[bool], c: usize| -> bool { leaf[c] };
-        let mut leaf: Vec<bool> = kids.iter().map(|k| k.is_none()).collect();
-        for (c, kc) in kids.iter().enumerate() {
-            if let Some([x, y]) = *kc
-                && leaf[x as usize]
-                && leaf[y as usize]
-            {
-                let k = cost(x as usize, &w_sum, &b_sum) + cost(y as usize, &w_sum, &b_sum);
-                heap.push(Key(k, c as u32));
-            }
-        }
-        let rms = |tot: f64| {
-            if w_total > 0.0 {
-                (tot.max(0.0) / w_total).sqrt()
-            } else {
-                0.0
-            }
-        };
-        let mut curve = Vec::with_capacity(nm / 2 + 1);
-        curve.push(CurvePoint {
-            compartments: nm,
-            rms_ln_attenuation_error: rms(total),
-        });
-        let mut order = Vec::with_capacity(nm / 2);
-        let mut alive = nm;
-        while let Some(Key(k, c)) = heap.pop() {
-            let c = c as usize;
-            order.push(c as u32);
-            total += k;
-            let [x, y] = kids[c].expect("a cherry has two children");
-            for x in [x as usize, y as usize] {
-                let ex = e[x];
-                let (w, b, b2) = (w_sum[x], b_sum[x], b2_sum[x]);
-                b2_sum[c] += b2 + 2.0 * ex * b + ex * ex * w;
-                b_sum[c] += b + ex * w;
-                w_sum[c] += w;
-            }
-            leaf[c] = true;
-            alive -= 2;
-            curve.push(CurvePoint {
-                compartments: alive,
-                rms_ln_attenuation_error: rms(total),
-            });
-            let p = t.parent[c];
-            if p != NONE
-                && let Some([x, y]) = kids[p as usize]
-                && is_leaf(&leaf, x as usize)
-                && is_leaf(&leaf, y as usize)
-            {
-                let k = cost(x as usize, &w_sum, &b_sum) + cost(y as usize, &w_sum, &b_sum);
-                heap.push(Key(k, p));
-            }
-        }
-        curve.reverse();
+        let mut sk = order::skeleton(&fine, &site_fine);
+        order::collapse_order(&fine, &mut sk);
+        let max_compartments = sk.retained.iter().filter(|&&r| r).count();
+        let junctions = fine
+            .role
+            .iter()
+            .filter(|r| matches!(r, Role::Junction | Role::SomaLeaf))
+            .count();
+        let r_in_full_ohm = fine.r_in_full_ohm;
         Ok(Reducer {
             params: *params,
             opts: opts.clone(),
-            max: t,
-            kids,
-            site_count,
-            order,
-            curve,
-            point_max,
+            junction_effect: (1.0 / fine.d[0]) / r_in_full_ohm - 1.0,
+            fine,
+            sk,
+            max_compartments,
             sites,
-            site_max,
+            site_fine,
             kept,
             r_in_full_ohm,
-            junction_effect,
             junctions,
             points_left_out,
             z_full_freq: OnceLock::new(),
+            full_lz: OnceLock::new(),
         })
     }
-
     /// Compartments of the maximal tree (odd; 2·tips − 1 plus one for a single-stem soma).
     pub fn max_compartments(&self) -> usize {
-        self.max.parent.len()
+        self.max_compartments
     }
 
     /// The budget actually used for a request: odd, between 1 and the maximum.
@@ -822,7 +504,7 @@ impl Reducer {
     /// The predicted error for every odd budget, ascending: (compartments, weighted RMS of the
     /// change in DC log attenuation to the soma over the sites, nepers).
     pub fn error_curve(&self) -> Vec<(usize, f64)> {
-        self.curve
+        self.sk.curve
             .iter()
             .map(|c| (c.compartments, c.rms_ln_attenuation_error))
             .collect()
@@ -830,7 +512,7 @@ impl Reducer {
 
     /// The same curve as [`CurvePoint`]s.
     pub fn curve_points(&self) -> &[CurvePoint] {
-        &self.curve
+        &self.sk.curve
     }
 
     /// The sites, in the order of [`ReducedTree::site_compartment`].
@@ -867,85 +549,96 @@ impl Reducer {
     }
 
     /// The reduced tree with `budget` compartments (see [`Reducer::effective_budget`]): replays
-    /// the first (max − budget)/2 collapses of the order, O(N).
+    /// the first (max − budget)/2 collapses of the order, places each leaf, and Kron-reduces the
+    /// fine network onto the kept nodes; O(N).
     pub fn tree(&self, budget: usize) -> ReducedTree {
         let nm = self.max_compartments();
         let b = self.effective_budget(budget);
-        let steps = (nm - b) / 2;
-        let mut sh = self.max.shunt.clone();
-        let mut area = self.max.area.clone();
-        let mut count = self.site_count.clone();
-        let mut alive = vec![true; nm];
-        let mut leaf: Vec<bool> = self.kids.iter().map(|k| k.is_none()).collect();
-        for &c in &self.order[..steps] {
-            let c = c as usize;
-            if let Some([x, y]) = self.kids[c] {
-                for x in [x as usize, y as usize] {
-                    // Kron reduction of a leaf: c's shunt += g·G/(g + G)
-                    sh[c] += self.max.g[x] * sh[x] / (self.max.g[x] + sh[x]);
-                    area[c] += area[x];
-                    count[c] += count[x];
-                    alive[x] = false;
-                }
-            }
-            leaf[c] = true;
-        }
-        let mut rep = vec![0u32; nm];
-        let mut id = vec![NONE; nm];
-        let mut next = 0u32;
-        for k in 0..nm {
+        let (fine, sk) = (&self.fine, &self.sk);
+        let (alive, leaf, rep, region) = build::replay(sk, (nm - b) / 2);
+        let alive_leaf: Vec<bool> = alive.iter().zip(&leaf).map(|(&a, &l)| a && l).collect();
+        let place = build::place_leaves(fine, sk, &alive_leaf, &rep, &region, &self.site_fine);
+        let mut keep = vec![false; fine.len()];
+        for k in 0..fine.len() {
             if alive[k] {
-                rep[k] = k as u32;
-                id[k] = next;
-                next += 1;
-            } else {
-                rep[k] = rep[self.max.parent[k] as usize];
+                keep[if leaf[k] { place[k] as usize } else { k }] = true;
             }
         }
-        let tau_s = self.params.tau_ms() * 1e-3;
-        let mut comps: Vec<Compartment> = Vec::with_capacity(b);
-        for k in 0..nm {
-            if !alive[k] {
-                continue;
-            }
-            let parent = (k > 0).then(|| id[self.max.parent[k] as usize]);
-            let depth = parent.map_or(0, |p| comps[p as usize].depth + 1);
+        let lz = self.full_log_transfer();
+        let dynamics: Vec<Vec<C64>> = capacitance::SERVE_HZ_INDEX
+            .iter()
+            .filter_map(|&i| lz.get(i).cloned())
+            .collect();
+        let kron = build::kron(fine, &keep, &dynamics);
+        let m = kron.node.len();
+        let mut area = vec![0.0; m];
+        for (x, &c) in kron.serves.iter().enumerate() {
+            area[c as usize] += fine.area[x];
+        }
+        let site_compartment: Vec<u32> = self
+            .site_fine
+            .iter()
+            .map(|&(x, _)| kron.serves[x as usize])
+            .collect();
+        let mut count = vec![0u32; m];
+        for &c in &site_compartment {
+            count[c as usize] += 1;
+        }
+        let cap = capacitance::assign(self, &kron, &site_compartment);
+        let mut kids: Vec<Vec<u32>> = vec![Vec::new(); m];
+        for c in 1..m {
+            kids[kron.parent[c] as usize].push(c as u32);
+        }
+        let mut comps: Vec<Compartment> = Vec::with_capacity(m);
+        for c in 0..m {
+            let x = kron.node[c] as usize;
+            let k = fine.flat_node[x] as usize;
+            let parent = (c > 0).then_some(kron.parent[c]);
+            let role = fine.role[x];
+            let named = !matches!(role, Role::Junction | Role::SomaLeaf);
             comps.push(Compartment {
-                id: id[k],
+                id: c as u32,
                 parent,
-                children: if leaf[k] {
-                    None
-                } else {
-                    self.kids[k].map(|[x, y]| [id[x as usize], id[y as usize]])
-                },
-                g_axial_ns: if k == 0 { 0.0 } else { self.max.g[k] * 1e9 },
-                g_leak_ns: sh[k] * 1e9,
-                capacitance_pf: tau_s * sh[k] * 1e12,
-                position_um: self.max.pos[k],
-                membrane_area_um2: area[k],
-                site_count: count[k],
-                depth,
-                role: self.max.role[k],
-                swc_line: self.max.line[k],
-                swc_type: self.max.kind[k],
+                children: (kids[c].len() == 2).then(|| [kids[c][0], kids[c][1]]),
+                g_axial_ns: kron.g[c] * 1e9,
+                g_leak_ns: kron.shunt[c] * 1e9,
+                capacitance_pf: cap[c] * 1e12,
+                position_um: self.kept.pos[k],
+                membrane_area_um2: area[c],
+                site_count: count[c],
+                depth: parent.map_or(0, |p| comps[p as usize].depth + 1),
+                role,
+                swc_line: if named { self.kept.line[k] } else { 0 },
+                swc_type: self.kept.kind[k],
             });
         }
-        let map = |m: u32| {
-            if m == NONE {
-                NONE
-            } else {
-                id[rep[m as usize] as usize]
-            }
-        };
+        let point_compartment = self
+            .kept
+            .point_node
+            .iter()
+            .map(|&k| {
+                if k == NONE {
+                    NONE
+                } else {
+                    kron.serves[fine.of_flat[k as usize] as usize]
+                }
+            })
+            .collect();
         ReducedTree {
             compartments: comps,
-            point_compartment: self.point_max.iter().map(|&m| map(m)).collect(),
-            site_compartment: self.site_max.iter().map(|&m| map(m)).collect(),
+            point_compartment,
+            site_compartment,
             requested: budget,
             rounded_down: budget.is_multiple_of(2) && budget <= nm && budget >= 1,
             clamped: budget == 0 || budget > nm,
             params: self.params,
         }
+    }
+
+    /// The full cell's complex log transfer to the soma at the fit frequencies, computed once.
+    fn full_log_transfer(&self) -> &[Vec<C64>] {
+        self.full_lz
+            .get_or_init(|| capacitance::full_log_transfer(self))
     }
 
     /// Soma input impedance of the full kept cell at the options' frequency (Ω), computed once.
@@ -1009,7 +702,7 @@ impl Reducer {
                 max: errs.last().copied().unwrap_or(0.0),
             },
             ln_attenuation_error_weighted_rms: if wsum > 0.0 { (w2 / wsum).sqrt() } else { 0.0 },
-            error_curve: self.curve.clone(),
+            error_curve: self.sk.curve.clone(),
         })
     }
 }
@@ -1024,46 +717,6 @@ fn nearest(pos: &[[f64; 3]], p: [f64; 3]) -> u32 {
         }
     }
     best.1
-}
-
-/// The maximal tree: built in `Reducer::new`, then kept by the reducer.
-#[derive(Debug, Default)]
-struct Tree {
-    parent: Vec<u32>,
-    g: Vec<f64>,
-    shunt: Vec<f64>,
-    area: Vec<f64>,
-    pos: Vec<[f64; 3]>,
-    role: Vec<Role>,
-    line: Vec<usize>,
-    kind: Vec<i32>,
-}
-
-impl Tree {
-    fn len(&self) -> usize {
-        self.parent.len()
-    }
-    #[allow(clippy::too_many_arguments)]
-    fn push(
-        &mut self,
-        parent: u32,
-        g: f64,
-        shunt: f64,
-        area: f64,
-        pos: [f64; 3],
-        role: Role,
-        line: usize,
-        kind: i32,
-    ) {
-        self.kind.push(kind);
-        self.parent.push(parent);
-        self.g.push(g);
-        self.shunt.push(shunt);
-        self.area.push(area);
-        self.pos.push(pos);
-        self.role.push(role);
-        self.line.push(line);
-    }
 }
 
 impl ReducedTree {

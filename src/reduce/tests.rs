@@ -163,6 +163,7 @@ fn predicted_curve_equals_the_measured_error() {
     assert_eq!(curve.len(), 5);
     for &(b, rms) in &curve {
         let rep = r.report(&r.tree(b)).unwrap();
+        eprintln!("budget {b}: measured {} predicted {rms}", rep.ln_attenuation_error_weighted_rms);
         assert!(
             (rep.ln_attenuation_error_weighted_rms - rms).abs() < 1e-9,
             "budget {b}: measured {} vs predicted {rms}",

@@ -1,0 +1,262 @@
+//! Stage 6 of the reduction, per budget: the compartments' capacitances.
+//!
+//! The DC network is exact and fixed; only the capacitances are free. They are fitted so that
+//! the reduced tree's transfer impedance from every compartment to the soma, Z_0c(jω), follows
+//! the full cell's at a few frequencies: for the soma its own input impedance, for any other
+//! compartment the mean (in complex log) of the transfer impedances of the sites it serves. The
+//! fit is weighted least squares on ln Z (magnitude in Np, phase in rad), with each frequency
+//! weighted by how much of a brief synaptic current lives there, solved by L-BFGS (Nocedal 1980)
+//! over θ_k = ln(C_k / τG_k), so every capacitance stays positive. Gradients come from one adjoint
+//! tree solve per frequency: ∂Z_0c/∂C_k = −jω·Z_0k·Z_kc. Start and fallback: C_k = τ·G_k, which
+//! makes τ = Rm·Cm the slowest time constant (Rall 1969's τ₀).
+//!
+//! What this stage does not do: change any conductance, or look at sites one by one (it sees
+//! the per-compartment targets only).
+
+use super::Reducer;
+use super::build::Kept;
+use crate::cable::C64;
+
+/// Frequencies of the fit (Hz): from the membrane's corner (1/2πτ ≈ 8 Hz at τ = 20 ms) to where
+/// a 0.5 ms synaptic current has little left.
+pub(super) const FIT_HZ: [f64; 6] = [5.0, 15.0, 40.0, 100.0, 250.0, 600.0];
+
+/// Which of [`FIT_HZ`] decide which end of a link serves a point (with the DC attenuation).
+pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
+
+/// Rise time of the synaptic current whose spectrum weights the frequencies (s).
+const SYNAPSE_TAU_S: f64 = 0.5e-3;
+
+/// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
+/// along the path from the soma (ln Z_k0 = ln Z_00 + Σ ln(g/(g + D)) over the path).
+pub(super) fn full_log_transfer(r: &Reducer) -> Vec<Vec<C64>> {
+    FIT_HZ
+        .iter()
+        .map(|&f| {
+            let net = match crate::cable::Network::build(&r.kept, &r.params, f) {
+                Ok(n) => n,
+                Err(_) => return Vec::new(),
+            };
+            let sw = crate::cable::maps::sweep::<C64>(&net.parent, &net.g, &net.shunt);
+            let mut lz = vec![C64::new(0.0, 0.0); net.len()];
+            if !lz.is_empty() {
+                lz[0] = sw.z_in[0].ln();
+            }
+            for k in 1..net.len() {
+                lz[k] = lz[net.parent[k] as usize] + sw.down[k].ln();
+            }
+            lz
+        })
+        .collect()
+}
+
+/// The fitting problem of one reduced tree.
+struct Problem<'a> {
+    parent: &'a [u32],
+    g: &'a [f64],
+    leak: &'a [f64],
+    c0: Vec<f64>,
+    /// Per frequency, per compartment: target ln Z_0c and weight.
+    target: Vec<Vec<C64>>,
+    weight: Vec<Vec<f64>>,
+}
+
+impl Problem<'_> {
+    /// Objective and gradient at θ.
+    fn eval(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
+        let n = self.parent.len();
+        grad.iter_mut().for_each(|x| *x = 0.0);
+        let mut total = 0.0;
+        let mut d = vec![C64::new(0.0, 0.0); n];
+        let mut lz = vec![C64::new(0.0, 0.0); n];
+        let mut y = vec![C64::new(0.0, 0.0); n];
+        for (fi, &f) in FIT_HZ.iter().enumerate() {
+            let w = 2.0 * std::f64::consts::PI * f;
+            let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
+            for k in 0..n {
+                d[k] = C64::new(self.leak[k], w * cap[k]);
+            }
+            // upward elimination (Hines 1984): subtree admittances
+            for k in (1..n).rev() {
+                let p = self.parent[k] as usize;
+                let t = self.g[k] * d[k] / (self.g[k] + d[k]);
+                d[p] += t;
+            }
+            // soma column in log form: ln Z_00 = −ln D_0, ln Z_c0 = ln Z_p0 + ln(g/(g + D_c))
+            lz[0] = -d[0].ln();
+            for k in 1..n {
+                lz[k] = lz[self.parent[k] as usize] + (self.g[k] / (self.g[k] + d[k])).ln();
+            }
+            for k in 0..n {
+                let r = lz[k] - self.target[fi][k];
+                let wt = self.weight[fi][k];
+                total += wt * r.norm_sqr();
+                // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
+                y[k] = wt * r.conj() / lz[k].exp();
+            }
+            // y = Z·a: the same elimination on the right-hand side, then back-substitution
+            for k in (1..n).rev() {
+                let p = self.parent[k] as usize;
+                let t = y[k] * (self.g[k] / (self.g[k] + d[k]));
+                y[p] += t;
+            }
+            y[0] /= d[0];
+            for k in 1..n {
+                let p = self.parent[k] as usize;
+                y[k] = (y[k] + self.g[k] * y[p]) / (self.g[k] + d[k]);
+            }
+            for k in 0..n {
+                let zk = lz[k].exp();
+                let dj = C64::new(0.0, -w * cap[k]) * zk * y[k];
+                grad[k] += 2.0 * dj.re;
+            }
+        }
+        total
+    }
+}
+
+/// Fitted capacitances (F) of the reduced tree `kept` (see the module documentation).
+pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> {
+    let tau_s = r.params.tau_ms() * 1e-3;
+    let c0: Vec<f64> = kept.shunt.iter().map(|g| tau_s * g).collect();
+    let n = c0.len();
+    let full = r.full_log_transfer();
+    if n < 2 || full.iter().any(|v| v.len() != r.kept.len()) {
+        return c0;
+    }
+    let fine = &r.fine;
+    let mut target = vec![vec![C64::new(0.0, 0.0); n]; FIT_HZ.len()];
+    let mut wsum = vec![0.0; n];
+    // phase lag targets are harmonic means (Σw / Σ(w/φ)): delays are judged relative to their
+    // own size, so a compartment should not run late for the nearest of its sites
+    let mut inv_phase = vec![vec![0.0; n]; FIT_HZ.len()];
+    for (i, &(x, w)) in r.site_fine.iter().enumerate() {
+        let c = serves_site[i] as usize;
+        let k = fine.flat_node[x as usize] as usize;
+        wsum[c] += w;
+        for (fi, t) in target.iter_mut().enumerate() {
+            t[c] += w * full[fi][k];
+            inv_phase[fi][c] += w / (-full[fi][k].im).max(1e-6);
+        }
+    }
+    let total_w: f64 = wsum.iter().sum();
+    let floor = 1e-3 * total_w.max(1e-30) / n as f64;
+    let mut weight = vec![vec![0.0; n]; FIT_HZ.len()];
+    for c in 0..n {
+        let own = fine.flat_node[kept.node[c] as usize] as usize;
+        for fi in 0..FIT_HZ.len() {
+            if wsum[c] > 0.0 && c != 0 {
+                target[fi][c] = C64::new(
+                    target[fi][c].re / wsum[c],
+                    -wsum[c] / inv_phase[fi][c],
+                );
+            } else {
+                target[fi][c] = full[fi][own];
+            }
+        }
+        let base = if c == 0 { total_w.max(1e-30) } else { wsum[c].max(floor) };
+        for (fi, &f) in FIT_HZ.iter().enumerate() {
+            // spectrum of an alpha current, |1/(1 + jωτ)²|, times the target's own fall-off
+            let wt = 2.0 * std::f64::consts::PI * f * SYNAPSE_TAU_S;
+            let spectrum = 1.0 / (1.0 + wt * wt);
+            let falloff = (target[fi][c].re - target[0][c].re).exp().min(1.0);
+            weight[fi][c] = base * spectrum * falloff.sqrt();
+        }
+    }
+    let prob = Problem {
+        parent: &kept.parent,
+        g: &kept.g,
+        leak: &kept.shunt,
+        c0: c0.clone(),
+        target,
+        weight,
+    };
+    let theta = lbfgs(&prob, n, 80);
+    let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
+    if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
+        fitted
+    } else {
+        c0
+    }
+}
+
+/// Limited-memory BFGS with a backtracking (Armijo) line search (Nocedal 1980; Nocedal & Wright
+/// 2006, Algorithm 7.4), from θ = 0, with θ kept in [−4, 4] (C within e^±4 of τG).
+fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
+    const M: usize = 8;
+    let clamp = |v: &mut [f64]| v.iter_mut().for_each(|x| *x = x.clamp(-4.0, 4.0));
+    let mut x = vec![0.0; n];
+    let mut g = vec![0.0; n];
+    let mut f = prob.eval(&x, &mut g);
+    let f0 = f;
+    let mut s_hist: Vec<Vec<f64>> = Vec::new();
+    let mut y_hist: Vec<Vec<f64>> = Vec::new();
+    let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
+    let mut xn = vec![0.0; n];
+    let mut gn = vec![0.0; n];
+    for _ in 0..iters {
+        // two-loop recursion
+        let mut q = g.clone();
+        let mut alpha = vec![0.0; s_hist.len()];
+        for i in (0..s_hist.len()).rev() {
+            let rho = 1.0 / dot(&y_hist[i], &s_hist[i]);
+            alpha[i] = rho * dot(&s_hist[i], &q);
+            q.iter_mut().zip(&y_hist[i]).for_each(|(a, b)| *a -= alpha[i] * b);
+        }
+        if let (Some(s), Some(y)) = (s_hist.last(), y_hist.last()) {
+            let h = dot(s, y) / dot(y, y);
+            q.iter_mut().for_each(|a| *a *= h);
+        } else {
+            let gn = dot(&g, &g).sqrt().max(1e-300);
+            q.iter_mut().for_each(|a| *a *= 0.1 / gn);
+        }
+        for i in 0..s_hist.len() {
+            let rho = 1.0 / dot(&y_hist[i], &s_hist[i]);
+            let beta = rho * dot(&y_hist[i], &q);
+            q.iter_mut().zip(&s_hist[i]).for_each(|(a, b)| *a += (alpha[i] - beta) * b);
+        }
+        let slope = -dot(&g, &q);
+        if slope >= 0.0 {
+            s_hist.clear();
+            y_hist.clear();
+            continue;
+        }
+        let mut step = 1.0;
+        let mut fnew = f;
+        let mut ok = false;
+        for _ in 0..20 {
+            xn.iter_mut()
+                .zip(&x)
+                .zip(&q)
+                .for_each(|((a, b), c)| *a = b - step * c);
+            clamp(&mut xn);
+            fnew = prob.eval(&xn, &mut gn);
+            if fnew.is_finite() && fnew <= f + 1e-4 * step * slope {
+                ok = true;
+                break;
+            }
+            step *= 0.5;
+        }
+        if !ok {
+            break;
+        }
+        let s: Vec<f64> = xn.iter().zip(&x).map(|(a, b)| a - b).collect();
+        let y: Vec<f64> = gn.iter().zip(&g).map(|(a, b)| a - b).collect();
+        if dot(&s, &y) > 1e-300 {
+            if s_hist.len() == M {
+                s_hist.remove(0);
+                y_hist.remove(0);
+            }
+            s_hist.push(s);
+            y_hist.push(y);
+        }
+        let done = (f - fnew) <= 1e-9 * f0;
+        x.copy_from_slice(&xn);
+        g.copy_from_slice(&gn);
+        f = fnew;
+        if done {
+            break;
+        }
+    }
+    x
+}
