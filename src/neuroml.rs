@@ -343,6 +343,7 @@ fn role_name(r: crate::reduce::Role) -> &'static str {
         Role::Tip => "tip",
         Role::Junction => "junction",
         Role::SomaLeaf => "soma_leaf",
+        Role::SectionPoint => "section_point",
     }
 }
 

@@ -16,6 +16,7 @@
 use super::Reducer;
 use super::build::Kept;
 use crate::cable::C64;
+use crate::cable::solve::TreeFactor;
 
 /// Frequencies of the fit (Hz): from the membrane's corner (1/2πτ ≈ 8 Hz at τ = 20 ms) to where
 /// a 0.5 ms synaptic current has little left.
@@ -23,6 +24,9 @@ pub(super) const FIT_HZ: [f64; 6] = [5.0, 15.0, 40.0, 100.0, 250.0, 600.0];
 
 /// Which of [`FIT_HZ`] decide which end of a link serves a point (with the DC attenuation).
 pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
+
+/// Weight of the soma's own input impedance relative to all sites together.
+const SOMA_WEIGHT: f64 = 10.0;
 
 /// Rise time of the synaptic current whose spectrum weights the frequencies (s).
 const SYNAPSE_TAU_S: f64 = 0.5e-3;
@@ -37,13 +41,13 @@ pub(super) fn full_log_transfer(r: &Reducer) -> Vec<Vec<C64>> {
                 Ok(n) => n,
                 Err(_) => return Vec::new(),
             };
-            let sw = crate::cable::maps::sweep::<C64>(&net.parent, &net.g, &net.shunt);
+            let f = TreeFactor::new(&net.parent, &net.g, &net.shunt);
             let mut lz = vec![C64::new(0.0, 0.0); net.len()];
             if !lz.is_empty() {
-                lz[0] = sw.z_in[0].ln();
+                lz[0] = -f.root_admittance().ln();
             }
             for k in 1..net.len() {
-                lz[k] = lz[net.parent[k] as usize] + sw.down[k].ln();
+                lz[k] = lz[net.parent[k] as usize] + f.down()[k].ln();
             }
             lz
         })
@@ -67,25 +71,18 @@ impl Problem<'_> {
         let n = self.parent.len();
         grad.iter_mut().for_each(|x| *x = 0.0);
         let mut total = 0.0;
-        let mut d = vec![C64::new(0.0, 0.0); n];
         let mut lz = vec![C64::new(0.0, 0.0); n];
         let mut y = vec![C64::new(0.0, 0.0); n];
+        let g: Vec<C64> = self.g.iter().map(|&x| C64::new(x, 0.0)).collect();
         for (fi, &f) in FIT_HZ.iter().enumerate() {
             let w = 2.0 * std::f64::consts::PI * f;
             let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
-            for k in 0..n {
-                d[k] = C64::new(self.leak[k], w * cap[k]);
-            }
-            // upward elimination (Hines 1984): subtree admittances
-            for k in (1..n).rev() {
-                let p = self.parent[k] as usize;
-                let t = self.g[k] * d[k] / (self.g[k] + d[k]);
-                d[p] += t;
-            }
+            let shunt: Vec<C64> = (0..n).map(|k| C64::new(self.leak[k], w * cap[k])).collect();
+            let fac = TreeFactor::new(self.parent, &g, &shunt);
             // soma column in log form: ln Z_00 = −ln D_0, ln Z_c0 = ln Z_p0 + ln(g/(g + D_c))
-            lz[0] = -d[0].ln();
+            lz[0] = -fac.root_admittance().ln();
             for k in 1..n {
-                lz[k] = lz[self.parent[k] as usize] + (self.g[k] / (self.g[k] + d[k])).ln();
+                lz[k] = lz[self.parent[k] as usize] + fac.down()[k].ln();
             }
             for k in 0..n {
                 let r = lz[k] - self.target[fi][k];
@@ -94,17 +91,8 @@ impl Problem<'_> {
                 // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
                 y[k] = wt * r.conj() / lz[k].exp();
             }
-            // y = Z·a: the same elimination on the right-hand side, then back-substitution
-            for k in (1..n).rev() {
-                let p = self.parent[k] as usize;
-                let t = y[k] * (self.g[k] / (self.g[k] + d[k]));
-                y[p] += t;
-            }
-            y[0] /= d[0];
-            for k in 1..n {
-                let p = self.parent[k] as usize;
-                y[k] = (y[k] + self.g[k] * y[p]) / (self.g[k] + d[k]);
-            }
+            // y = Z·a (the network is reciprocal: Z is symmetric)
+            fac.solve_in_place(&mut y);
             for k in 0..n {
                 let zk = lz[k].exp();
                 let dj = C64::new(0.0, -w * cap[k]) * zk * y[k];
@@ -154,7 +142,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
                 target[fi][c] = full[fi][own];
             }
         }
-        let base = if c == 0 { total_w.max(1e-30) } else { wsum[c].max(floor) };
+        let base = if c == 0 { SOMA_WEIGHT * total_w.max(1e-30) } else { wsum[c].max(floor) };
         for (fi, &f) in FIT_HZ.iter().enumerate() {
             // spectrum of an alpha current, |1/(1 + jωτ)²|, times the target's own fall-off
             let wt = 2.0 * std::f64::consts::PI * f * SYNAPSE_TAU_S;
@@ -171,7 +159,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         target,
         weight,
     };
-    let theta = lbfgs(&prob, n, 80);
+    let theta = lbfgs(&prob, n, 200);
     let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
         fitted
@@ -184,7 +172,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
 /// 2006, Algorithm 7.4), from θ = 0, with θ kept in [−4, 4] (C within e^±4 of τG).
 fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
     const M: usize = 8;
-    let clamp = |v: &mut [f64]| v.iter_mut().for_each(|x| *x = x.clamp(-4.0, 4.0));
+    let clamp = |v: &mut [f64]| v.iter_mut().for_each(|x| *x = x.clamp(-8.0, 8.0));
     let mut x = vec![0.0; n];
     let mut g = vec![0.0; n];
     let mut f = prob.eval(&x, &mut g);

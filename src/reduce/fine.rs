@@ -9,6 +9,7 @@
 //! What this stage does not do: choose which nodes are kept (see `order` and `build`).
 
 use super::{ReduceError, ReduceOptions, Role};
+use crate::cable::solve::TreeMaps;
 use crate::cable::{Network, Params};
 use crate::morphology::{Flat, NONE};
 
@@ -127,8 +128,9 @@ pub(super) fn build(kept: &Flat, params: &Params, fraction: f64) -> Result<Fine,
     let n = kept.len();
     let g: Vec<f64> = net.g.iter().map(|z| z.re).collect();
     let shunt: Vec<f64> = net.shunt.iter().map(|z| z.re).collect();
-    let d = subtree_conductance(&kept.parent, &g, &shunt);
-    let flat_ln_att = ln_attenuation(&kept.parent, &g, &shunt);
+    let flat_maps = TreeMaps::new(&kept.parent, &g, &shunt);
+    let d = flat_maps.subtree_admittance().to_vec();
+    let flat_ln_att = flat_maps.ln_attenuations_to_soma();
     let gj = junction_conductances(kept, params, fraction);
     let (start, kids) = crate::cable::children_csr(&kept.parent);
     let mut area = vec![0.0; n];
@@ -210,30 +212,8 @@ pub(super) fn build(kept: &Flat, params: &Params, fraction: f64) -> Result<Fine,
             attach[ch[m - 1] as usize] = up;
         }
     }
-    f.d = subtree_conductance(&f.parent, &f.g, &f.shunt);
-    f.ln_att = ln_attenuation(&f.parent, &f.g, &f.shunt);
+    let maps = TreeMaps::new(&f.parent, &f.g, &f.shunt);
+    f.d = maps.subtree_admittance().to_vec();
+    f.ln_att = maps.ln_attenuations_to_soma();
     Ok(f)
-}
-
-/// DC log attenuation to the soma at every node of a parents-first tree (Np):
-/// ln A_k = ln A_parent + ln(1 + P_k/g_k), with P_k the conductance at the parent without k's
-/// branch (tree sweeps of Hines 1984; additivity: Zador, Agmon-Snir & Segev 1995).
-pub(super) fn ln_attenuation(parent: &[u32], g: &[f64], shunt: &[f64]) -> Vec<f64> {
-    let sw = crate::cable::maps::sweep::<f64>(parent, g, shunt);
-    let mut out = vec![0.0; parent.len()];
-    for k in 1..parent.len() {
-        out[k] = out[parent[k] as usize] + (sw.p[k] / g[k]).ln_1p();
-    }
-    out
-}
-
-/// Subtree conductance D_k = S_k + Σ_c g_c·D_c/(g_c + D_c) of every node of a parents-first
-/// tree (the upward sweep of Hines 1984).
-pub(super) fn subtree_conductance(parent: &[u32], g: &[f64], shunt: &[f64]) -> Vec<f64> {
-    let mut d = shunt.to_vec();
-    for k in (1..parent.len()).rev() {
-        let q = parent[k] as usize;
-        d[q] += g[k] * d[k] / (g[k] + d[k]);
-    }
-    d
 }

@@ -66,7 +66,8 @@ mod sites;
 
 pub use sites::{SiteSpec, parse_sites_csv};
 
-use crate::cable::{C64, CableError, Maps, Network, Params};
+use crate::cable::solve::{TreeFactor, TreeMaps};
+use crate::cable::{C64, CableError, Network, Params};
 use crate::morphology::{Flat, NONE};
 use std::sync::OnceLock;
 
@@ -323,34 +324,6 @@ pub struct Reducer {
     z_full_freq: OnceLock<Result<C64, CableError>>,
     /// The full cell's ln Z_0k at the capacitance fit's frequencies, computed once.
     full_lz: OnceLock<Vec<Vec<C64>>>,
-}
-
-/// Real DC sweep of a parents-first tree: subtree admittances D, the admittance P at each
-/// node's parent without its branch, and U = g·P/(g + P) (Hines 1984; Koch & Poggio 1985).
-/// P_k = S_p + U_p + Σ_{siblings c} t_c is summed from its terms, never as D_p − t_k, so nothing
-/// cancels: when the upward sweep (k descending) reaches k, D_p holds S_p and the branches of
-/// k's later siblings; the downward sweep adds the earlier siblings and U_p.
-fn dc_sweep(parent: &[u32], g: &[f64], shunt: &[f64]) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
-    let n = parent.len();
-    let mut d = shunt.to_vec();
-    let mut p = vec![0.0; n];
-    let mut t = vec![0.0; n];
-    for k in (1..n).rev() {
-        let q = parent[k] as usize;
-        t[k] = g[k] * d[k] / (g[k] + d[k]);
-        p[k] = d[q];
-        d[q] += t[k];
-    }
-    let mut pre = vec![0.0; n];
-    let mut u = vec![0.0; n];
-    for k in 1..n {
-        let q = parent[k] as usize;
-        let pk = p[k] + pre[q] + u[q];
-        p[k] = pk;
-        pre[q] += t[k];
-        u[k] = g[k] * pk / (g[k] + pk);
-    }
-    (d, p, u)
 }
 
 /// Checks the options and parameters once.
@@ -646,7 +619,8 @@ impl Reducer {
         self.z_full_freq
             .get_or_init(|| {
                 let net = Network::build(&self.kept, &self.params, self.opts.freq_hz)?;
-                Ok(Maps::new(&net).input_impedance(0))
+                Ok(C64::new(1.0, 0.0)
+                    / TreeFactor::new(&net.parent, &net.g, &net.shunt).root_admittance())
             })
             .clone()
             .map_err(ReduceError::from)
@@ -773,51 +747,37 @@ impl ReducedTree {
     /// Soma DC input resistance of the reduced tree (Ω).
     pub fn soma_input_resistance_ohm(&self) -> f64 {
         let (p, g, s) = self.dc();
-        let (d, _, _) = dc_sweep(&p, &g, &s);
-        1.0 / d[0]
+        1.0 / TreeFactor::new(&p, &g, &s).root_admittance()
     }
 
-    /// Soma input impedance at `freq_hz` with C = τ·G (Ω).
+    /// Soma input impedance at `freq_hz` with the tree's capacitances (Ω).
     pub fn soma_input_impedance(&self, freq_hz: f64) -> C64 {
-        Maps::new(&self.network(freq_hz)).input_impedance(0)
+        let net = self.network(freq_hz);
+        C64::new(1.0, 0.0) / TreeFactor::new(&net.parent, &net.g, &net.shunt).root_admittance()
     }
 
     /// DC log attenuation to the soma of every compartment, ln(Z_kk/Z_k0) (nepers).
     pub fn ln_attenuation_dc(&self) -> Vec<f64> {
         let (p, g, s) = self.dc();
-        let (d, pp, _) = dc_sweep(&p, &g, &s);
-        // A_k = A_parent·(g_k + P_k)/g_k: the voltage at the parent for current at k
-        // (Zador, Agmon-Snir & Segev 1995: log attenuations add along a path)
-        let mut out = vec![0.0; p.len()];
-        for k in 1..p.len() {
-            out[k] = out[p[k] as usize] + (pp[k] / g[k]).ln_1p();
-        }
-        let _ = d;
-        out
+        TreeMaps::new(&p, &g, &s).ln_attenuations_to_soma()
     }
 
     /// V_k/V_c at DC on the reduced tree for a current injected at compartment `c`
     /// (one extra tree sweep; Koch & Poggio 1985). Empty if `c` is not a compartment.
     pub fn site_ratio_dc(&self, c: usize) -> Vec<f64> {
-        if c >= self.len() {
-            return Vec::new();
-        }
-        let net = self.network(0.0);
-        let maps = Maps::new(&net);
-        maps.site_ratio(&net, c).iter().map(|z| z.re).collect()
+        let (p, g, s) = self.dc();
+        TreeMaps::new(&p, &g, &s).site_ratio(c).unwrap_or_default()
     }
 
-    /// The exact DC feed-forward form (see [`FeedForward`]).
+    /// The exact DC feed-forward form (see [`FeedForward`]): the upward elimination's link
+    /// ratios and subtree conductances.
     pub fn feed_forward(&self) -> FeedForward {
-        let n = self.len();
         let (p, g, s) = self.dc();
-        let mut y = s.clone();
-        let mut w = vec![None; n];
-        for k in (1..n).rev() {
-            let wk = g[k] / (g[k] + y[k]);
-            w[k] = Some(wk);
-            y[p[k] as usize] += wk * y[k];
-        }
+        let f = TreeFactor::new(&p, &g, &s);
+        let w = (0..self.len())
+            .map(|k| (k > 0).then(|| f.down()[k]))
+            .collect();
+        let y = f.subtree_admittance();
         let mut layers: Vec<Vec<u32>> = Vec::new();
         for c in &self.compartments {
             let d = c.depth as usize;
