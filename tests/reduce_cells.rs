@@ -6,7 +6,7 @@
 use nalgebra::{DMatrix, DVector, SymmetricEigen};
 use pollard::cable::{Maps, Network, Params};
 use pollard::morphology::{Flat, Morphology, NONE};
-use pollard::reduce::{ReduceOptions, ReducedTree, Reducer};
+use pollard::reduce::{CapacitanceRule, ReduceOptions, ReducedTree, Reducer};
 
 const BUDGETS: [usize; 6] = [1, 3, 7, 15, 31, 63];
 
@@ -202,13 +202,22 @@ fn check_cell(name: &str, flat: &Flat, opts: &ReduceOptions) -> [f64; 3] {
             t.soma_input_resistance_ohm() / r_engine - 1.0,
             t.compartments
         );
-        // τ is the slowest time constant
-        if n <= 1500 {
+        // The full cell's slowest time constant is Rm·Cm (uniform membrane: the uniform voltage
+        // is its slowest mode; Rall 1969). With C = τ·G (`CapacitanceRule::Uniform`) the reduced
+        // tree keeps it exactly; the fitted capacitances (default) trade that for the
+        // transients, and on the sample and real cells stay within 10 % of it from 15
+        // compartments on (measured; stated in README).
+        let tau_tol = match opts.capacitance {
+            CapacitanceRule::Uniform => Some(1e-6),
+            CapacitanceRule::Fitted if n >= 15 && !name.starts_with("random") => Some(0.10),
+            CapacitanceRule::Fitted => None,
+        };
+        if let (true, Some(tol)) = (n <= 1500, tau_tol) {
             let (lam, _) = rates(&t);
             let rel = (1.0 / lam - tau).abs() / tau;
             worst[1] = worst[1].max(rel);
             assert!(
-                rel < 1e-6,
+                rel < tol,
                 "{name} budget {b}: slowest τ {} vs {tau}",
                 1.0 / lam
             );
@@ -287,6 +296,11 @@ fn sample_cells_meet_the_acceptance_checks() {
         let m = Morphology::parse(s.text, s.file_name).unwrap();
         let f = flat_of(&m);
         check_cell(s.name, &f, &ReduceOptions::default());
+        let uniform = ReduceOptions {
+            capacitance: CapacitanceRule::Uniform,
+            ..Default::default()
+        };
+        check_cell(s.name, &f, &uniform);
     }
 }
 
@@ -409,6 +423,7 @@ mod property {
             let f = flat_of(&m);
             let opts = ReduceOptions {
                 types: drop_axon.then(|| vec![1, 3, 4]),
+                capacitance: if seed % 2 == 0 { CapacitanceRule::Uniform } else { CapacitanceRule::Fitted },
                 ..Default::default()
             };
             check_cell(&format!("random_tree({n}, {seed})"), &f, &opts);
@@ -430,6 +445,8 @@ mod property {
             let radii: Vec<f64> = (0..n).map(|_| 0.05 * 100f64.powf(rng.next())).collect();
             let f = random_flat(&parents, &lens, &radii, soma);
             check_cell("random parents", &f, &ReduceOptions::default());
+            let uniform = ReduceOptions { capacitance: CapacitanceRule::Uniform, ..Default::default() };
+            check_cell("random parents (uniform C)", &f, &uniform);
         }
     }
 }

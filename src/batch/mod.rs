@@ -160,6 +160,7 @@ impl Settings {
             sites: Sites::Default,
             freq_hz: self.freq_hz,
             junction_length_fraction: self.junction_length_fraction,
+            ..ReduceOptions::default()
         }
     }
 

@@ -63,6 +63,11 @@ pub struct Args {
     /// single-stem soma are split with links this short).
     #[arg(long = "junction-fraction", default_value_t = 1e-4, value_name = "F")]
     pub junction_fraction: f64,
+    /// How compartments get their capacitance: `fitted` (default) follows the cell's transfer
+    /// impedances to the soma, so EPSPs keep their size and timing; `uniform` sets C = Rm·Cm ×
+    /// leak, which keeps the slowest time constant exactly Rm·Cm. Conductances are the same.
+    #[arg(long, value_enum, default_value_t = Capacitance::Fitted, value_name = "RULE")]
+    pub capacitance: Capacitance,
     /// Where to write the reduced tree (JSON, see assets/reduced-tree.schema.json).
     #[arg(long, short = 'o', value_name = "TREE.json")]
     pub out: PathBuf,
@@ -113,6 +118,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         sites,
         freq_hz: a.freq,
         junction_length_fraction: a.junction_fraction,
+        capacitance: a.capacitance.into(),
     };
     let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
     let tree = reducer.tree(a.compartments);
@@ -333,4 +339,20 @@ pub fn write_fidelity(w: &mut impl Write, f: &FidelityReport) -> std::io::Result
         )?;
     }
     Ok(())
+}
+
+/// `--capacitance` values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Capacitance {
+    Fitted,
+    Uniform,
+}
+
+impl From<Capacitance> for pollard::reduce::CapacitanceRule {
+    fn from(c: Capacitance) -> Self {
+        match c {
+            Capacitance::Fitted => Self::Fitted,
+            Capacitance::Uniform => Self::Uniform,
+        }
+    }
 }

@@ -26,7 +26,10 @@ pub(super) struct Kept {
 
 /// Replays the first `steps` collapses; returns, per retained node, whether it is alive, whether
 /// it is a leaf, and the alive node that stands for it (its representative).
-pub(super) fn replay(sk: &Skeleton, steps: usize) -> (Vec<bool>, Vec<bool>, Vec<u32>, Vec<Moments>) {
+pub(super) fn replay(
+    sk: &Skeleton,
+    steps: usize,
+) -> (Vec<bool>, Vec<bool>, Vec<u32>, Vec<Moments>) {
     let n = sk.retained.len();
     let mut alive = sk.retained.clone();
     let mut leaf: Vec<bool> = sk.kids.iter().map(|k| k.is_none()).collect();
@@ -257,7 +260,11 @@ fn serving(
     let mut att = vec![NONE; n];
     let mut serves = vec![NONE; n];
     for k in 0..n {
-        att[k] = if has[k] { k as u32 } else { att[fine.parent[k] as usize] };
+        att[k] = if has[k] {
+            k as u32
+        } else {
+            att[fine.parent[k] as usize]
+        };
         let h = att[k] as usize;
         let (u, l) = if kept[h] {
             if h == k {
@@ -265,17 +272,17 @@ fn serving(
             } else {
                 // below a leaf: the leaf or its parent
                 let pc = out.parent[out.comp[h] as usize];
-                let up = if pc == NONE { h } else { out.node[pc as usize] as usize };
+                let up = if pc == NONE {
+                    h
+                } else {
+                    out.node[pc as usize] as usize
+                };
                 (up, h)
             }
         } else {
             (top[h] as usize, lower[h] as usize)
         };
-        let pick = if score(k, u) <= score(k, l) {
-            u
-        } else {
-            l
-        };
+        let pick = if score(k, u) <= score(k, l) { u } else { l };
         serves[k] = out.comp[pick];
     }
     serves

@@ -28,6 +28,9 @@ pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
 /// Weight of the soma's own input impedance relative to all sites together.
 const SOMA_WEIGHT: f64 = 10.0;
 
+/// Ridge weight per compartment, relative to the mean site weight.
+const RIDGE: f64 = 0.02;
+
 /// Rise time of the synaptic current whose spectrum weights the frequencies (s).
 const SYNAPSE_TAU_S: f64 = 0.5e-3;
 
@@ -60,6 +63,8 @@ struct Problem<'a> {
     g: &'a [f64],
     leak: &'a [f64],
     c0: Vec<f64>,
+    /// Ridge weight on θ (keeps capacitances that no target sees near τG).
+    ridge: f64,
     /// Per frequency, per compartment: target ln Z_0c and weight.
     target: Vec<Vec<C64>>,
     weight: Vec<Vec<f64>>,
@@ -69,8 +74,11 @@ impl Problem<'_> {
     /// Objective and gradient at θ.
     fn eval(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
         let n = self.parent.len();
-        grad.iter_mut().for_each(|x| *x = 0.0);
         let mut total = 0.0;
+        for (gk, t) in grad.iter_mut().zip(theta) {
+            total += self.ridge * t * t;
+            *gk = 2.0 * self.ridge * t;
+        }
         let mut lz = vec![C64::new(0.0, 0.0); n];
         let mut y = vec![C64::new(0.0, 0.0); n];
         let g: Vec<C64> = self.g.iter().map(|&x| C64::new(x, 0.0)).collect();
@@ -108,6 +116,9 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     let tau_s = r.params.tau_ms() * 1e-3;
     let c0: Vec<f64> = kept.shunt.iter().map(|g| tau_s * g).collect();
     let n = c0.len();
+    if r.opts.capacitance == super::CapacitanceRule::Uniform {
+        return c0;
+    }
     let full = r.full_log_transfer();
     if n < 2 || full.iter().any(|v| v.len() != r.kept.len()) {
         return c0;
@@ -134,15 +145,16 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         let own = fine.flat_node[kept.node[c] as usize] as usize;
         for fi in 0..FIT_HZ.len() {
             if wsum[c] > 0.0 && c != 0 {
-                target[fi][c] = C64::new(
-                    target[fi][c].re / wsum[c],
-                    -wsum[c] / inv_phase[fi][c],
-                );
+                target[fi][c] = C64::new(target[fi][c].re / wsum[c], -wsum[c] / inv_phase[fi][c]);
             } else {
                 target[fi][c] = full[fi][own];
             }
         }
-        let base = if c == 0 { SOMA_WEIGHT * total_w.max(1e-30) } else { wsum[c].max(floor) };
+        let base = if c == 0 {
+            SOMA_WEIGHT * total_w.max(1e-30)
+        } else {
+            wsum[c].max(floor)
+        };
         for (fi, &f) in FIT_HZ.iter().enumerate() {
             // spectrum of an alpha current, |1/(1 + jωτ)²|, times the target's own fall-off
             let wt = 2.0 * std::f64::consts::PI * f * SYNAPSE_TAU_S;
@@ -156,6 +168,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         g: &kept.g,
         leak: &kept.shunt,
         c0: c0.clone(),
+        ridge: RIDGE * total_w.max(1e-30) / n as f64,
         target,
         weight,
     };
@@ -189,7 +202,9 @@ fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
         for i in (0..s_hist.len()).rev() {
             let rho = 1.0 / dot(&y_hist[i], &s_hist[i]);
             alpha[i] = rho * dot(&s_hist[i], &q);
-            q.iter_mut().zip(&y_hist[i]).for_each(|(a, b)| *a -= alpha[i] * b);
+            q.iter_mut()
+                .zip(&y_hist[i])
+                .for_each(|(a, b)| *a -= alpha[i] * b);
         }
         if let (Some(s), Some(y)) = (s_hist.last(), y_hist.last()) {
             let h = dot(s, y) / dot(y, y);
@@ -201,7 +216,9 @@ fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
         for i in 0..s_hist.len() {
             let rho = 1.0 / dot(&y_hist[i], &s_hist[i]);
             let beta = rho * dot(&y_hist[i], &q);
-            q.iter_mut().zip(&s_hist[i]).for_each(|(a, b)| *a += (alpha[i] - beta) * b);
+            q.iter_mut()
+                .zip(&s_hist[i])
+                .for_each(|(a, b)| *a += (alpha[i] - beta) * b);
         }
         let slope = -dot(&g, &q);
         if slope >= 0.0 {

@@ -129,6 +129,22 @@ pub struct ReduceOptions {
     /// Junction link length as a fraction of the node's radius (default 1e-4; accepted
     /// 1e-9 to 1). Smaller is closer to exact and stiffer.
     pub junction_length_fraction: f64,
+    /// How compartments get their capacitance.
+    pub capacitance: CapacitanceRule,
+}
+
+/// How the reduced tree's capacitances are chosen (the conductances are the same either way).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum CapacitanceRule {
+    /// Fitted to the full cell's transfer impedances to the soma (default): the soma's own
+    /// EPSP and the sites' EPSPs follow the cell; the slowest time constant is close to, not
+    /// exactly, Rm·Cm.
+    #[default]
+    Fitted,
+    /// C = τ·G_leak (τ = Rm·Cm): the slowest time constant is exactly Rm·Cm, the transients are
+    /// those of the DC-exact network with that membrane.
+    Uniform,
 }
 
 impl Default for ReduceOptions {
@@ -138,6 +154,7 @@ impl Default for ReduceOptions {
             sites: Sites::Default,
             freq_hz: 100.0,
             junction_length_fraction: 1e-4,
+            capacitance: CapacitanceRule::default(),
         }
     }
 }
@@ -412,9 +429,9 @@ impl Reducer {
         // A part of the cell hundreds of length constants from the soma (a segment far longer
         // than its length constant, usually coordinates in the wrong units) has no meaningful
         // reduction, and its numbers would leave the range of f64: refuse it by name.
-        if let Some(k) = (1..kept.len())
-            .find(|&k| fine.flat_ln_att[k].is_nan() || fine.flat_ln_att[k].abs() > MAX_LN_ATTENUATION)
-        {
+        if let Some(k) = (1..kept.len()).find(|&k| {
+            fine.flat_ln_att[k].is_nan() || fine.flat_ln_att[k].abs() > MAX_LN_ATTENUATION
+        }) {
             return Err(ReduceError::CutOff {
                 line: kept.line[k],
                 nepers: fine.flat_ln_att[k],
@@ -477,7 +494,8 @@ impl Reducer {
     /// The predicted error for every odd budget, ascending: (compartments, weighted RMS of the
     /// change in DC log attenuation to the soma over the sites, nepers).
     pub fn error_curve(&self) -> Vec<(usize, f64)> {
-        self.sk.curve
+        self.sk
+            .curve
             .iter()
             .map(|c| (c.compartments, c.rms_ln_attenuation_error))
             .collect()

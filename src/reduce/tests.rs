@@ -166,11 +166,17 @@ fn predicted_curve_bounds_the_measured_error() {
         let measured = rep.ln_attenuation_error_weighted_rms;
         if b == 1 {
             // every site is served by the soma: the prediction is exact
-            assert!((measured - rms).abs() < 1e-9, "budget 1: {measured} vs {rms}");
+            assert!(
+                (measured - rms).abs() < 1e-9,
+                "budget 1: {measured} vs {rms}"
+            );
         } else {
             // sites may be served by the closer end of their link, so the measured error is
             // at most the prediction (which serves them by the lower end)
-            assert!(measured <= rms + 1e-9, "budget {b}: measured {measured} vs {rms}");
+            assert!(
+                measured <= rms + 1e-9,
+                "budget {b}: measured {measured} vs {rms}"
+            );
         }
         assert!(rep.soma_input_resistance_dc_relative_error < 1e-9);
     }
