@@ -180,11 +180,9 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[Vec<C64>]) -> Kept {
         serves: vec![NONE; n],
         ..Kept::default()
     };
-    for k in 0..n {
-        if kept[k] {
-            out.comp[k] = out.node.len() as u32;
-            out.node.push(k as u32);
-        }
+    for (k, _) in kept.iter().enumerate().filter(|(_, on)| **on) {
+        out.comp[k] = out.node.len() as u32;
+        out.node.push(k as u32);
     }
     let m = out.node.len();
     out.parent = vec![NONE; m];
