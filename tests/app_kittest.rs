@@ -444,6 +444,7 @@ fn start_options_set_budget_site_frequency_colouring_and_layout() {
         colour_by: Some(pollard::app::state::ColourBy::ToSoma),
         dendrogram: true,
         save_png: None,
+        ..Default::default()
     });
     app.wait_idle();
     let s = app.state.as_ref().unwrap();

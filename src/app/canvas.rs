@@ -436,6 +436,7 @@ impl ArborCanvas {
         match (self.side, layout) {
             (Side::Original, _) => {
                 painter.add(Shape::Mesh(self.mesh.clone()));
+                super::synapses::mark_original(&painter, state, &self.screen);
                 if let Some(site) = state.site
                     && let Some(&p) = self.screen.get(site)
                 {
@@ -452,6 +453,9 @@ impl ArborCanvas {
             (Side::Reduced, ReducedLayout::Dendrogram) => {
                 self.draw_dendrogram(&painter, state, colours, rect);
             }
+        }
+        if self.side == Side::Reduced {
+            super::synapses::mark_reduced(&painter, state, &self.comp_screen);
         }
         if self.side == Side::Reduced && state.reduced.is_none() {
             let msg = if state.reduction_note.is_empty() {

@@ -18,6 +18,7 @@ pub enum Purpose {
     SavePng,
     /// A tree of the branching lab as SWC.
     ExportLabSwc,
+    OpenSynapses,
 }
 
 impl Purpose {
@@ -29,12 +30,13 @@ impl Purpose {
             Purpose::SaveSvg => ("Figure (SVG)", &["svg"]),
             Purpose::SavePng => ("Figure (PNG)", &["png"]),
             Purpose::ExportLabSwc => ("SWC reconstruction", &["swc"]),
+            Purpose::OpenSynapses => ("Synapse table (CSV)", &["csv", "CSV"]),
         }
     }
 
     fn suggested(self, base: &str) -> String {
         match self {
-            Purpose::Open => String::new(),
+            Purpose::Open | Purpose::OpenSynapses => String::new(),
             Purpose::SaveJson => format!("{base}-reduced.json"),
             Purpose::SaveSwc => format!("{base}-reduced.swc"),
             Purpose::SaveSvg => format!("{base}-figure.svg"),
@@ -81,7 +83,7 @@ impl Dialogs {
                 let suggested = purpose.suggested(base_name);
                 std::thread::spawn(move || {
                     let d = rfd::FileDialog::new().add_filter(name, exts);
-                    let a = if purpose == Purpose::Open {
+                    let a = if matches!(purpose, Purpose::Open | Purpose::OpenSynapses) {
                         d.pick_file()
                     } else {
                         d.set_file_name(suggested).save_file()

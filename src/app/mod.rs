@@ -15,6 +15,7 @@ pub mod panels;
 pub mod picture;
 pub mod reduction;
 pub mod state;
+pub mod synapses;
 
 use canvas::{ArborCanvas, Camera, ReducedLayout, Side};
 use eframe::egui::{self, Color32, Vec2};
@@ -46,6 +47,9 @@ pub struct StartOptions {
     pub dendrogram: bool,
     /// Save a PNG of the figure once the reduced tree is drawn.
     pub save_png: Option<PathBuf>,
+    /// A synapse table to open for the cell, and the input to choose in it.
+    pub synapses: Option<PathBuf>,
+    pub synapse_input: Option<String>,
 }
 
 /// Opens the window.
@@ -94,6 +98,7 @@ pub struct PollardApp {
     pub left: ArborCanvas,
     pub right: ArborCanvas,
     pub controls: ControlsPanel,
+    pub synapse_panel: synapses::SynapsePanel,
     pub plots: PlotsPanel,
     pub scale: colour::Scale,
     colours: Option<colour::Colours>,
@@ -131,6 +136,7 @@ impl PollardApp {
             left: ArborCanvas::new(Side::Original),
             right: ArborCanvas::new(Side::Reduced),
             controls: ControlsPanel::default(),
+            synapse_panel: synapses::SynapsePanel::default(),
             plots: PlotsPanel::default(),
             scale: colour::Scale::new(),
             colours: None,
@@ -337,6 +343,11 @@ impl PollardApp {
             s.budget = b.max(1);
             self.controls.budget = s.budget;
         }
+        if let Some(p) = &o.synapses {
+            let done =
+                synapses::load(s, p).and_then(|_| synapses::select(s, o.synapse_input.as_deref()));
+            self.error = done.err().or(self.error.take());
+        }
     }
 
     /// Blocks until background work is done and applied (for tests and scripted starts).
@@ -374,6 +385,12 @@ impl PollardApp {
             }
             Purpose::ExportLabSwc => {
                 self.lab.write_swc(&path);
+                return;
+            }
+            Purpose::OpenSynapses => {
+                if let Some(s) = &mut self.state {
+                    self.synapse_panel.error = synapses::load(s, &path).err();
+                }
                 return;
             }
             Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveSvg => self.export(purpose, &path),
@@ -427,7 +444,7 @@ impl PollardApp {
                 picture::svg_figure(s, &self.camera, self.layout, &colours, &self.scale)
                     .into_bytes()
             }
-            Purpose::SavePng | Purpose::Open | Purpose::ExportLabSwc => {
+            Purpose::SavePng | Purpose::Open | Purpose::ExportLabSwc | Purpose::OpenSynapses => {
                 anyhow::bail!("not a direct export")
             }
         };
@@ -547,6 +564,8 @@ impl PollardApp {
                         &self.camera,
                         &mut actions,
                     );
+                    self.synapse_panel
+                        .ui(ui, self.state.as_mut(), &self.dialogs);
                 });
             });
 

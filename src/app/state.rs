@@ -140,15 +140,19 @@ pub enum ColourBy {
     InputResistance,
     Strahler,
     NeuriteType,
+    /// Synapses of the open synapse table (of the chosen input, or all) per point and per
+    /// compartment (see [`super::synapses`]).
+    Synapses,
 }
 
 impl ColourBy {
-    pub const ALL: [ColourBy; 5] = [
+    pub const ALL: [ColourBy; 6] = [
         ColourBy::FromSite,
         ColourBy::ToSoma,
         ColourBy::InputResistance,
         ColourBy::Strahler,
         ColourBy::NeuriteType,
+        ColourBy::Synapses,
     ];
 
     pub fn label(self) -> &'static str {
@@ -158,6 +162,7 @@ impl ColourBy {
             ColourBy::InputResistance => "Local input resistance",
             ColourBy::Strahler => "Strahler order",
             ColourBy::NeuriteType => "Neurite type",
+            ColourBy::Synapses => "Synapse count (open a table)",
         }
     }
 
@@ -165,7 +170,7 @@ impl ColourBy {
     pub fn is_continuous(self) -> bool {
         matches!(
             self,
-            ColourBy::FromSite | ColourBy::ToSoma | ColourBy::InputResistance
+            ColourBy::FromSite | ColourBy::ToSoma | ColourBy::InputResistance | ColourBy::Synapses
         )
     }
 }
@@ -347,6 +352,8 @@ pub struct CellState {
     pub geometry_version: u64,
     /// Bumped whenever any colour may change.
     pub colour_version: u64,
+    /// The open synapse table, placed on this cell.
+    pub synapses: Option<super::synapses::Layer>,
 }
 
 impl CellState {
@@ -373,6 +380,7 @@ impl CellState {
             reduced: None,
             geometry_version: fresh_version(),
             colour_version: fresh_version(),
+            synapses: None,
         };
         let far = s.farthest_tip();
         s.set_site(far);
@@ -559,6 +567,7 @@ impl CellState {
                 self.cell.morph.strahler[self.cell.flat.node_point[k] as usize] as f64
             }
             ColourBy::NeuriteType => self.cell.flat.kind[k] as f64,
+            ColourBy::Synapses => super::synapses::value_full(self, k),
         }
     }
 
@@ -573,6 +582,7 @@ impl CellState {
             ColourBy::InputResistance => r.elec.input_mohm[c],
             ColourBy::Strahler => r.tree.strahler[c] as f64,
             ColourBy::NeuriteType => r.tree.kind[c] as f64,
+            ColourBy::Synapses => super::synapses::value_comp(self, c),
         }
     }
 
@@ -619,6 +629,7 @@ impl CellState {
             ColourBy::InputResistance => "input resistance, MΩ".into(),
             ColourBy::Strahler => "Strahler order".into(),
             ColourBy::NeuriteType => "neurite type".into(),
+            ColourBy::Synapses => super::synapses::value_label(self),
         }
     }
 

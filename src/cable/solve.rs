@@ -293,7 +293,11 @@ impl<T: Scalar> TreeMaps<T> {
     /// (S); 0 at the root. Computed on each call (not stored).
     pub fn rest_of_tree(&self) -> Vec<T> {
         let f = &self.factor;
-        let mut u: Vec<T> = f.g.iter().zip(&self.p).map(|(&g, &p)| g * p / (g + p)).collect();
+        let mut u: Vec<T> =
+            f.g.iter()
+                .zip(&self.p)
+                .map(|(&g, &p)| g * p / (g + p))
+                .collect();
         if let Some(u0) = u.first_mut() {
             *u0 = T::real(0.0);
         }

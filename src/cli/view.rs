@@ -41,6 +41,13 @@ pub struct Args {
     /// window stays open).
     #[arg(long, value_name = "FIGURE.png")]
     pub save_png: Option<PathBuf>,
+    /// Open this synapse table for the cell (format: `pollard reduce --help`) and colour by
+    /// synapse count.
+    #[arg(long, value_name = "TABLE.csv")]
+    pub synapses: Option<PathBuf>,
+    /// With --synapses: choose this input (its synapses are ringed on both trees).
+    #[arg(long, value_name = "NAME", requires = "synapses")]
+    pub input: Option<String>,
 }
 
 #[cfg(feature = "gui")]
@@ -59,6 +66,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }),
         dendrogram: a.dendrogram,
         save_png: a.save_png,
+        synapses: a.synapses,
+        synapse_input: a.input,
     };
     pollard::app::run_with(pollard::app::Start::File(a.cell), opts)?;
     Ok(ExitCode::SUCCESS)

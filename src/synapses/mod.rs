@@ -14,7 +14,7 @@
 //!
 //! # Snapping ([`snap`])
 //! A position goes to the nearest point of the kept cell (the type filter applied): the nearest
-//! point centre, found in an R*-tree ([`rstar`]), or the soma when the position is nearer the
+//! point centre, found in a k-d tree ([`kiddo`]), or the soma when the position is nearer the
 //! soma's surface (a sphere of the soma's area) than that point's. Its *snap distance* is how far
 //! it lies outside the chosen point's sphere (distance to the centre minus the radius), so
 //! synapses on the membrane of a thick soma or dendrite are at 0. A synapse

@@ -3,9 +3,8 @@
 use super::{Location, SynapseError, SynapseTable};
 use crate::morphology::{Flat, Morphology, NONE};
 use crate::reduce::{SiteSpec, Sites};
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
 use rayon::prelude::*;
-use rstar::RTree;
-use rstar::primitives::GeomWithData;
 use std::collections::HashMap;
 
 /// How synapses are placed on the cell.
@@ -143,13 +142,20 @@ pub fn snap(
     } else {
         HashMap::new()
     };
-    let tree = RTree::bulk_load(
-        (0..flat.len())
-            .filter(|&k| k > 0 && keep[k])
-            .map(|k| GeomWithData::new(flat.pos[k], k as u32))
-            .collect(),
-    );
+    // a k-d tree over the kept points' centres (the soma is checked by its surface); what a
+    // query needs of its point sits in one array, in the tree's item order
+    let items: Vec<(u32, u32, f64)> = (1..flat.len())
+        .filter(|&k| keep[k])
+        .map(|k| (k as u32, flat.node_point[k], radius[k]))
+        .collect();
+    let centres: Vec<[f64; 3]> = items.iter().map(|it| flat.pos[it.0 as usize]).collect();
+    let tree = (!centres.is_empty()).then(|| ImmutableKdTree::<f64, 3>::new_from_slice(&centres));
     let s = opts.scale.unwrap_or(1.0);
+    let (soma_pos, soma_r, soma_point) = (flat.pos[0], radius[0], flat.node_point[0]);
+    let outside = |d: f64, r: f64| {
+        let x = d - r;
+        if x < 0.0 { 0.0 } else { x } // NaN stays NaN
+    };
     // Ok((node, point, distance)) or Err(message)
     let placed: Vec<Result<(u32, u32, f64), String>> = table
         .rows
@@ -172,24 +178,20 @@ pub fn snap(
             }
             Location::Pos(p) => {
                 let q = p.map(|v| v * s);
-                let outside = |k: usize| {
-                    let x = dist(q, flat.pos[k]) - radius[k];
-                    if x < 0.0 { 0.0 } else { x } // NaN stays NaN
-                };
                 // the soma by its surface, the rest by the nearest centre
-                let mut best = (0usize, outside(0));
-                if let Some(near) = tree.nearest_neighbor(q) {
-                    let k = near.data as usize;
-                    let d = outside(k);
-                    if d < best.1 || best.1.is_nan() {
-                        best = (k, d);
+                let mut best = (0u32, soma_point, outside(dist(q, soma_pos), soma_r));
+                if let Some(t) = &tree {
+                    let near = t.nearest_one::<SquaredEuclidean>(&q);
+                    let (k, point, rk) = items[near.item as usize];
+                    let d = outside(near.distance.sqrt(), rk);
+                    if d < best.2 || best.2.is_nan() {
+                        best = (k, point, d);
                     }
                 }
-                let (k, d) = best;
-                if d.is_nan() {
+                if best.2.is_nan() {
                     return Err("the position is too large to place".into());
                 }
-                Ok((k as u32, flat.node_point[k], d))
+                Ok(best)
             }
         })
         .collect();
@@ -238,4 +240,27 @@ pub fn snap(
         });
     }
     Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn many_points_at_one_place_do_not_trouble_the_index() {
+        // 3000 points on one spot (a k-d tree splitting on equal values must cope)
+        let mut swc = String::from("1 1 0 0 0 5 -1\n");
+        for i in 2..=3000 {
+            swc.push_str(&format!("{i} 3 10 0 0 1 {}\n", i - 1));
+        }
+        let m = Morphology::parse(&swc, "spot.swc").unwrap();
+        let flat = m.flatten();
+        let t = super::super::parse_table(b"input,x,y,z\na,10,0,1.5\nb,0,6,0\n", "t.csv").unwrap();
+        let s = snap(&t, &m, &flat, &SnapOptions::default()).unwrap();
+        assert_eq!(flat.pos[s.synapses[0].node as usize], [10.0, 0.0, 0.0]);
+        assert!((s.synapses[0].distance_um - 0.5).abs() < 1e-12);
+        // the soma by its surface: 6 µm from the centre of a 5 µm soma is 1 µm out
+        assert_eq!(s.synapses[1].node, 0);
+        assert!((s.synapses[1].distance_um - 1.0).abs() < 1e-12);
+    }
 }
