@@ -11,7 +11,7 @@
 use pollard::cable::{Params, PrepOptions, prepare};
 use pollard::fidelity::{Fidelity, FidelityOptions, percent};
 use pollard::morphology::Morphology;
-use pollard::reduce::{ReduceOptions, Reducer};
+use pollard::reduce::{CapacitanceRule, ReduceOptions, Reducer};
 use std::time::Instant;
 
 const BUDGETS: [usize; 3] = [15, 31, 63];
@@ -32,6 +32,15 @@ fn prep_for(m: &Morphology) -> PrepOptions {
     }
 }
 
+/// `POLLARD_CAPACITANCE=uniform` measures C = τ·G instead of the default fitted capacitances;
+/// `POLLARD_TABLE_MAX=1` adds a row at the largest budget the cell allows.
+fn capacitance_rule() -> CapacitanceRule {
+    match std::env::var("POLLARD_CAPACITANCE").as_deref() {
+        Ok("uniform") => CapacitanceRule::Uniform,
+        _ => CapacitanceRule::Fitted,
+    }
+}
+
 fn flags(p: &PrepOptions) -> String {
     let mut s = Vec::new();
     if let Some(x) = p.scale {
@@ -49,12 +58,19 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
     let prep = prep_for(&m);
     let flat = prepare(&m, &prep).map_err(|e| e.to_string())?;
     let t0 = Instant::now();
-    let red = Reducer::new(&flat, &Params::default(), &ReduceOptions::default())
-        .map_err(|e| e.to_string())?;
+    let ropts = ReduceOptions {
+        capacitance: capacitance_rule(),
+        ..ReduceOptions::default()
+    };
+    let red = Reducer::new(&flat, &Params::default(), &ropts).map_err(|e| e.to_string())?;
     let fid = Fidelity::new(&red, opts).map_err(|e| e.to_string())?;
     let setup = t0.elapsed().as_secs_f64();
     let mut rows = Vec::new();
-    for b in BUDGETS {
+    let mut budgets = BUDGETS.to_vec();
+    if std::env::var("POLLARD_TABLE_MAX").is_ok() {
+        budgets.push(red.max_compartments());
+    }
+    for b in budgets {
         let tree = red.tree(b);
         let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let (e, pe) = (r.epsp_peak_error_np, r.epsp_peak_error_percent);
