@@ -25,6 +25,10 @@ pub(super) const FIT_HZ: [f64; 6] = [5.0, 15.0, 40.0, 100.0, 250.0, 600.0];
 /// Which of [`FIT_HZ`] decide which end of a link serves a point (with the DC attenuation).
 pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
 
+/// Largest tree whose capacitances are fitted; bigger trees (close to the cell already) keep
+/// C = τ·G, so any budget stays within a few milliseconds.
+pub const FIT_MAX_COMPARTMENTS: usize = 1023;
+
 /// Weight of the soma's own input impedance relative to all sites together.
 const SOMA_WEIGHT: f64 = 10.0;
 
@@ -116,7 +120,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     let tau_s = r.params.tau_ms() * 1e-3;
     let c0: Vec<f64> = kept.shunt.iter().map(|g| tau_s * g).collect();
     let n = c0.len();
-    if r.opts.capacitance == super::CapacitanceRule::Uniform {
+    if r.opts.capacitance == super::CapacitanceRule::Uniform || n > FIT_MAX_COMPARTMENTS {
         return c0;
     }
     let full = r.full_log_transfer();

@@ -60,6 +60,7 @@
 
 mod build;
 mod capacitance;
+pub use capacitance::FIT_MAX_COMPARTMENTS;
 mod fine;
 mod order;
 mod sites;
