@@ -5,10 +5,10 @@
 use super::colour::{self, Colours, FAINT, SITE};
 use super::state::{CellState, nice_step};
 use crate::morphology::NONE;
-use eframe::egui::{
-    self, Color32, CornerRadius, Mesh, Pos2, Rect, Sense, Shape, Stroke, Vec2, epaint::Vertex,
-};
+use eframe::egui::{self, Color32, CornerRadius, Mesh, Pos2, Rect, Sense, Shape, Stroke, Vec2};
 use std::sync::Arc;
+
+pub use super::mesh::{append_other_trees, recolour, tessellate};
 
 /// Orthographic camera shared by both canvases.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -99,141 +99,6 @@ impl Projector {
             self.origin.x + x1 * self.scale,
             self.origin.y - y2 * self.scale,
         )
-    }
-}
-
-/// Vertices of the soma disc.
-const SOMA_RIM: usize = 24;
-
-/// Tessellates the arbor: one quad per segment (width from the diameter, at least `min_px`),
-/// a disc for the soma. Vertex 4(k−1)… belong to node k; the soma disc is last.
-pub fn tessellate(
-    parent: &[u32],
-    radius_um: &[f64],
-    screen: &[Pos2],
-    soma_radius_um: f64,
-    scale: f32,
-    min_px: f32,
-    colours: &dyn Fn(usize) -> Color32,
-) -> Mesh {
-    let n = parent.len();
-    let mut mesh = Mesh::default();
-    if n == 0 {
-        return mesh;
-    }
-    mesh.vertices.reserve(4 * n + SOMA_RIM + 1);
-    mesh.indices.reserve(6 * n + 3 * SOMA_RIM);
-    let uv = egui::epaint::WHITE_UV;
-    for k in 1..n {
-        let a = screen[parent[k] as usize];
-        let b = screen[k];
-        let r = radius_um[k];
-        let w = if r.is_finite() {
-            (2.0 * r as f32 * scale).max(min_px)
-        } else {
-            min_px
-        };
-        let d = b - a;
-        let len = d.length();
-        let (dir, nrm) = if len > 1e-6 {
-            let u = d / len;
-            (u, Vec2::new(-u.y, u.x) * (0.5 * w))
-        } else {
-            (Vec2::ZERO, Vec2::ZERO)
-        };
-        // extend the start by half a width so bends do not show gaps
-        let a = a - dir * (0.5 * w);
-        let c = colours(k);
-        let i0 = mesh.vertices.len() as u32;
-        for pos in [a + nrm, a - nrm, b + nrm, b - nrm] {
-            mesh.vertices.push(Vertex { pos, uv, color: c });
-        }
-        mesh.indices
-            .extend_from_slice(&[i0, i0 + 1, i0 + 2, i0 + 1, i0 + 3, i0 + 2]);
-    }
-    let c = colours(0);
-    let centre = screen[0];
-    let r = (soma_radius_um as f32 * scale).max(2.0 * min_px).max(3.0);
-    let i0 = mesh.vertices.len() as u32;
-    mesh.vertices.push(Vertex {
-        pos: centre,
-        uv,
-        color: c,
-    });
-    for i in 0..SOMA_RIM {
-        let t = i as f32 / SOMA_RIM as f32 * std::f32::consts::TAU;
-        mesh.vertices.push(Vertex {
-            pos: centre + Vec2::new(t.cos(), t.sin()) * r,
-            uv,
-            color: c,
-        });
-    }
-    for i in 0..SOMA_RIM as u32 {
-        mesh.indices
-            .extend_from_slice(&[i0, i0 + 1 + i, i0 + 1 + (i + 1) % SOMA_RIM as u32]);
-    }
-    mesh
-}
-
-/// Rewrites the colours of a mesh made by [`tessellate`].
-pub fn recolour(mesh: &mut Mesh, n_nodes: usize, colours: &[Color32]) {
-    if n_nodes == 0 {
-        return;
-    }
-    for (quad, &c) in mesh.vertices.chunks_exact_mut(4).zip(&colours[1..n_nodes]) {
-        for v in quad {
-            v.color = c;
-        }
-    }
-    let c = colours[0];
-    let soma = 4 * (n_nodes - 1);
-    let end = (soma + SOMA_RIM + 1).min(mesh.vertices.len());
-    for v in &mut mesh.vertices[soma..end] {
-        v.color = c;
-    }
-}
-
-/// Appends the trees of the file other than the main one (not part of the cell's model), in
-/// one colour, after the main tree's vertices (so [`recolour`] leaves them alone).
-pub fn append_other_trees(
-    mesh: &mut Mesh,
-    morph: &crate::Morphology,
-    proj: &Projector,
-    min_px: f32,
-    colour: Color32,
-) {
-    let uv = egui::epaint::WHITE_UV;
-    for i in morph.main_len..morph.len() {
-        let p = morph.parent[i];
-        if p == NONE {
-            continue;
-        }
-        let a = proj.project(morph.points[p as usize].pos);
-        let b = proj.project(morph.points[i].pos);
-        let r = morph.points[i].radius.unwrap_or(0.0);
-        let w = if r.is_finite() && r > 0.0 {
-            (2.0 * r as f32 * proj.scale).max(min_px)
-        } else {
-            min_px
-        };
-        let d = b - a;
-        let len = d.length();
-        if len <= 1e-6 {
-            continue;
-        }
-        let u = d / len;
-        let nrm = Vec2::new(-u.y, u.x) * (0.5 * w);
-        let a = a - u * (0.5 * w);
-        let i0 = mesh.vertices.len() as u32;
-        for pos in [a + nrm, a - nrm, b + nrm, b - nrm] {
-            mesh.vertices.push(Vertex {
-                pos,
-                uv,
-                color: colour,
-            });
-        }
-        mesh.indices
-            .extend_from_slice(&[i0, i0 + 1, i0 + 2, i0 + 1, i0 + 3, i0 + 2]);
     }
 }
 
@@ -393,39 +258,8 @@ impl ArborCanvas {
         painter.rect_filled(rect, CornerRadius::same(4), Color32::from_rgb(18, 18, 24));
 
         let dendro = self.side == Side::Reduced && layout == ReducedLayout::Dendrogram;
-        // camera: drag turns, right-drag or shift-drag shifts, wheel zooms, double-click resets
         if !dendro {
-            if response.dragged() {
-                let d = response.drag_delta();
-                let shift = ui.input(|i| i.modifiers.shift);
-                if response.dragged_by(egui::PointerButton::Secondary)
-                    || response.dragged_by(egui::PointerButton::Middle)
-                    || shift
-                {
-                    cam.pan += d;
-                } else {
-                    cam.yaw += d.x * 0.01;
-                    cam.pitch = (cam.pitch + d.y * 0.01).clamp(-3.1, 3.1);
-                }
-                ev.camera_changed = true;
-            }
-            if response.hovered() {
-                let scroll = ui.input(|i| i.smooth_scroll_delta.y);
-                if scroll != 0.0 {
-                    let f = (scroll * 0.002).exp();
-                    // zoom about the pointer
-                    if let Some(p) = response.hover_pos() {
-                        let c = rect.center() + cam.pan;
-                        cam.pan += (p - c) * (1.0 - f);
-                    }
-                    cam.zoom = (cam.zoom * f).clamp(0.05, 200.0);
-                    ev.camera_changed = true;
-                }
-            }
-            if response.double_clicked() {
-                *cam = Camera::default();
-                ev.camera_changed = true;
-            }
+            ev.camera_changed = steer(ui, &response, rect, cam);
         }
 
         if state.cell.is_empty() {
@@ -457,6 +291,19 @@ impl ArborCanvas {
         if self.side == Side::Reduced {
             super::synapses::mark_reduced(&painter, state, &self.comp_screen);
         }
+        self.titles(&painter, state, rect);
+        self.hover(&painter, state, &response, rect);
+        if self.side == Side::Original
+            && response.clicked()
+            && let Some(p) = response.interact_pointer_pos()
+        {
+            ev.clicked_node = nearest(&self.screen, p, 12.0);
+        }
+        ev
+    }
+
+    /// The title, and the reason when there is no reduced tree.
+    fn titles(&self, painter: &egui::Painter, state: &CellState, rect: Rect) {
         if self.side == Side::Reduced && state.reduced.is_none() {
             let msg = if state.reduction_note.is_empty() {
                 "no reduced tree"
@@ -474,9 +321,9 @@ impl ArborCanvas {
         painter.text(
             rect.left_top() + Vec2::new(8.0, 6.0),
             egui::Align2::LEFT_TOP,
-            match (self.side, layout) {
-                (Side::Original, _) => "Original".to_string(),
-                (Side::Reduced, _) => match &state.reduced {
+            match self.side {
+                Side::Original => "Original".to_string(),
+                Side::Reduced => match &state.reduced {
                     Some(r) => format!("Reduced: {} compartments", r.tree.len()),
                     None => "Reduced".to_string(),
                 },
@@ -484,8 +331,16 @@ impl ArborCanvas {
             egui::FontId::proportional(14.0),
             Color32::from_gray(220),
         );
+    }
 
-        // hover and pick
+    /// The hover box over the nearest node or compartment.
+    fn hover(
+        &mut self,
+        painter: &egui::Painter,
+        state: &CellState,
+        response: &egui::Response,
+        rect: Rect,
+    ) {
         self.hovered = None;
         if let Some(p) = response.hover_pos() {
             let hit = if self.side == Side::Original {
@@ -505,16 +360,9 @@ impl ArborCanvas {
                 } else {
                     state.describe_comp(h)
                 };
-                hover_box(&painter, p, rect, &text);
+                hover_box(painter, p, rect, &text);
             }
         }
-        if self.side == Side::Original
-            && response.clicked()
-            && let Some(p) = response.interact_pointer_pos()
-        {
-            ev.clicked_node = nearest(&self.screen, p, 12.0);
-        }
-        ev
     }
 
     fn scale_bar(&self, painter: &egui::Painter, state: &CellState, cam: &Camera, rect: Rect) {
@@ -717,6 +565,44 @@ pub fn dendrogram_layout(parent: &[u32]) -> Vec<(f64, f64)> {
     (0..n)
         .map(|k| (x[k], depth[k] as f64 / max_depth as f64))
         .collect()
+}
+
+/// Camera input: drag turns, right-drag or shift-drag shifts, wheel zooms about the pointer,
+/// double-click resets. True if the camera changed.
+fn steer(ui: &egui::Ui, response: &egui::Response, rect: Rect, cam: &mut Camera) -> bool {
+    let mut changed = false;
+    if response.dragged() {
+        let d = response.drag_delta();
+        let shift = ui.input(|i| i.modifiers.shift);
+        if response.dragged_by(egui::PointerButton::Secondary)
+            || response.dragged_by(egui::PointerButton::Middle)
+            || shift
+        {
+            cam.pan += d;
+        } else {
+            cam.yaw += d.x * 0.01;
+            cam.pitch = (cam.pitch + d.y * 0.01).clamp(-3.1, 3.1);
+        }
+        changed = true;
+    }
+    if response.hovered() {
+        let scroll = ui.input(|i| i.smooth_scroll_delta.y);
+        if scroll != 0.0 {
+            let f = (scroll * 0.002).exp();
+            // zoom about the pointer
+            if let Some(p) = response.hover_pos() {
+                let c = rect.center() + cam.pan;
+                cam.pan += (p - c) * (1.0 - f);
+            }
+            cam.zoom = (cam.zoom * f).clamp(0.05, 200.0);
+            changed = true;
+        }
+    }
+    if response.double_clicked() {
+        *cam = Camera::default();
+        changed = true;
+    }
+    changed
 }
 
 fn nearest(pts: &[Pos2], p: Pos2, within: f32) -> Option<usize> {

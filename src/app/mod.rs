@@ -11,6 +11,7 @@ pub mod colour;
 pub mod files;
 pub mod jobs;
 pub mod lab;
+pub mod mesh;
 pub mod panels;
 pub mod picture;
 pub mod reduction;

@@ -63,6 +63,7 @@ impl ControlsPanel {
         self.budget = s.budget;
     }
 
+    /// The whole panel: one sub-view per section.
     pub fn ui(
         &mut self,
         ui: &mut egui::Ui,
@@ -75,48 +76,7 @@ impl ControlsPanel {
         ui.spacing_mut().slider_width = 150.0;
         ui.add_space(4.0);
         ui.strong("Cell");
-        ui.horizontal_wrapped(|ui| {
-            if ui
-                .button("Open file…")
-                .on_hover_text(
-                    "Open an SWC reconstruction (you can also drop a file on the window)",
-                )
-                .clicked()
-            {
-                out.push(Action::Open);
-            }
-            ui.menu_button("Recent", |ui| {
-                if recent.list.is_empty() {
-                    ui.label("No files opened yet");
-                }
-                for p in &recent.list {
-                    let name = p
-                        .file_name()
-                        .map(|n| n.to_string_lossy().into_owned())
-                        .unwrap_or_default();
-                    if ui
-                        .button(name)
-                        .on_hover_text(p.display().to_string())
-                        .clicked()
-                    {
-                        out.push(Action::OpenRecent(p.clone()));
-                        ui.close();
-                    }
-                }
-                if !recent.list.is_empty() && ui.button("Forget these").clicked() {
-                    out.push(Action::ClearRecent);
-                    ui.close();
-                }
-            });
-            ui.menu_button("Samples", |ui| {
-                for (i, (name, _)) in super::files::samples().iter().enumerate() {
-                    if ui.button(name).clicked() {
-                        out.push(Action::OpenSample(i));
-                        ui.close();
-                    }
-                }
-            });
-        });
+        files_section(ui, recent, out);
         let Some(s) = state else {
             ui.label("Opening…");
             return;
@@ -133,6 +93,32 @@ impl ControlsPanel {
 
         ui.separator();
         ui.strong("Membrane and cytoplasm");
+        self.electrical_section(ui, out);
+        ui.separator();
+        ui.strong("Reduction");
+        self.reduction_section(ui, s, out);
+        ui.separator();
+        ui.strong("Neurite types in the model");
+        for (&k, &on) in &s.kept {
+            let mut v = on;
+            if ui.checkbox(&mut v, capitalised(kind_name(k))).changed() {
+                out.push(Action::Kept(k, v));
+            }
+        }
+
+        ui.separator();
+        ui.strong("Colour the arbors by");
+        colour_section(ui, s, out);
+        ui.separator();
+        ui.strong("View");
+        view_section(ui, layout, cam, out);
+        ui.separator();
+        ui.strong("Save");
+        save_section(ui, s, out);
+    }
+
+    /// Rm, Ra, Cm and the frequency; a drag sends unsettled values, its end a settle.
+    fn electrical_section(&mut self, ui: &mut egui::Ui, out: &mut Vec<Action>) {
         let mut p = self.params;
         let mut any_drag_end = false;
         let mut changed = false;
@@ -222,9 +208,10 @@ impl ControlsPanel {
             self.unsettled = false;
             out.push(Action::Settle);
         }
+    }
 
-        ui.separator();
-        ui.strong("Reduction");
+    /// The compartment budget (or why there is no reduction).
+    fn reduction_section(&mut self, ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
         match &s.reduction {
             Some(r) => {
                 let (lo, hi) = (r.min_compartments(), r.max_compartments().max(1));
@@ -251,94 +238,134 @@ impl ControlsPanel {
                 ui.label(&s.reduction_note);
             }
         }
-
-        ui.separator();
-        ui.strong("Neurite types in the model");
-        for (&k, &on) in &s.kept {
-            let mut v = on;
-            if ui.checkbox(&mut v, capitalised(kind_name(k))).changed() {
-                out.push(Action::Kept(k, v));
-            }
-        }
-
-        ui.separator();
-        ui.strong("Colour the arbors by");
-        for c in ColourBy::ALL {
-            if ui.radio(s.colour_by == c, c.label()).clicked() && s.colour_by != c {
-                out.push(Action::ColourBy(c));
-            }
-        }
-        ui.horizontal(|ui| {
-            ui.label("Attenuation in");
-            for (u, name) in [(LogUnit::Decibel, "dB"), (LogUnit::Neper, "natural log")] {
-                if ui.radio(s.unit == u, name).clicked() && s.unit != u {
-                    out.push(Action::Unit(u));
-                }
-            }
-        });
-        ui.label("Click a point on the original to make it the synapse site.");
-
-        ui.separator();
-        ui.strong("View");
-        ui.horizontal_wrapped(|ui| {
-            if ui
-                .button("Reset")
-                .on_hover_text("Whole cell, seen from the front")
-                .clicked()
-            {
-                out.push(Action::Camera(Camera::default()));
-            }
-            for (v, name, hint) in [
-                (AxisView::Front, "Front", "x to the right, y up"),
-                (AxisView::Side, "Side", "z to the right, y up"),
-                (AxisView::Top, "Top", "x to the right, z up"),
-            ] {
-                if ui.button(name).on_hover_text(hint).clicked() {
-                    out.push(Action::Camera(Camera {
-                        zoom: cam.zoom,
-                        pan: cam.pan,
-                        ..Camera::axis(v)
-                    }));
-                }
-            }
-        });
-        ui.label("Drag to turn, right-drag or shift-drag to shift, scroll to zoom, double-click to reset.");
-        ui.horizontal(|ui| {
-            ui.label("Draw the reduction");
-            for (l, name) in [
-                (ReducedLayout::InPlace, "in place"),
-                (ReducedLayout::Dendrogram, "as a dendrogram"),
-            ] {
-                if ui.radio(layout == l, name).clicked() && layout != l {
-                    out.push(Action::Layout(l));
-                }
-            }
-        });
-
-        ui.separator();
-        ui.strong("Save");
-        ui.horizontal_wrapped(|ui| {
-            let has_tree = s.reduction.is_some();
-            if ui
-                .add_enabled(has_tree, egui::Button::new("Reduced tree (JSON)…"))
-                .clicked()
-            {
-                out.push(Action::Save(Purpose::SaveJson));
-            }
-            if ui
-                .add_enabled(has_tree, egui::Button::new("Reduced tree (SWC)…"))
-                .clicked()
-            {
-                out.push(Action::Save(Purpose::SaveSwc));
-            }
-            if ui.button("Figure (SVG)…").clicked() {
-                out.push(Action::Save(Purpose::SaveSvg));
-            }
-            if ui.button("Figure (PNG)…").clicked() {
-                out.push(Action::Save(Purpose::SavePng));
-            }
-        });
     }
+}
+
+/// Open, recent files, samples.
+fn files_section(ui: &mut egui::Ui, recent: &RecentFiles, out: &mut Vec<Action>) {
+    ui.horizontal_wrapped(|ui| {
+        if ui
+            .button("Open file…")
+            .on_hover_text("Open an SWC reconstruction (you can also drop a file on the window)")
+            .clicked()
+        {
+            out.push(Action::Open);
+        }
+        ui.menu_button("Recent", |ui| {
+            if recent.list.is_empty() {
+                ui.label("No files opened yet");
+            }
+            for p in &recent.list {
+                let name = p
+                    .file_name()
+                    .map(|n| n.to_string_lossy().into_owned())
+                    .unwrap_or_default();
+                if ui
+                    .button(name)
+                    .on_hover_text(p.display().to_string())
+                    .clicked()
+                {
+                    out.push(Action::OpenRecent(p.clone()));
+                    ui.close();
+                }
+            }
+            if !recent.list.is_empty() && ui.button("Forget these").clicked() {
+                out.push(Action::ClearRecent);
+                ui.close();
+            }
+        });
+        ui.menu_button("Samples", |ui| {
+            for (i, (name, _)) in super::files::samples().iter().enumerate() {
+                if ui.button(name).clicked() {
+                    out.push(Action::OpenSample(i));
+                    ui.close();
+                }
+            }
+        });
+    });
+}
+
+/// What colours the arbors, and the log unit.
+fn colour_section(ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
+    for c in ColourBy::ALL {
+        if ui.radio(s.colour_by == c, c.label()).clicked() && s.colour_by != c {
+            out.push(Action::ColourBy(c));
+        }
+    }
+    ui.horizontal(|ui| {
+        ui.label("Attenuation in");
+        for (u, name) in [(LogUnit::Decibel, "dB"), (LogUnit::Neper, "natural log")] {
+            if ui.radio(s.unit == u, name).clicked() && s.unit != u {
+                out.push(Action::Unit(u));
+            }
+        }
+    });
+    ui.label("Click a point on the original to make it the synapse site.");
+}
+
+/// Camera presets and the reduced tree's layout.
+fn view_section(ui: &mut egui::Ui, layout: ReducedLayout, cam: &Camera, out: &mut Vec<Action>) {
+    ui.horizontal_wrapped(|ui| {
+        if ui
+            .button("Reset")
+            .on_hover_text("Whole cell, seen from the front")
+            .clicked()
+        {
+            out.push(Action::Camera(Camera::default()));
+        }
+        for (v, name, hint) in [
+            (AxisView::Front, "Front", "x to the right, y up"),
+            (AxisView::Side, "Side", "z to the right, y up"),
+            (AxisView::Top, "Top", "x to the right, z up"),
+        ] {
+            if ui.button(name).on_hover_text(hint).clicked() {
+                out.push(Action::Camera(Camera {
+                    zoom: cam.zoom,
+                    pan: cam.pan,
+                    ..Camera::axis(v)
+                }));
+            }
+        }
+    });
+    ui.label(
+        "Drag to turn, right-drag or shift-drag to shift, scroll to zoom, double-click to reset.",
+    );
+    ui.horizontal(|ui| {
+        ui.label("Draw the reduction");
+        for (l, name) in [
+            (ReducedLayout::InPlace, "in place"),
+            (ReducedLayout::Dendrogram, "as a dendrogram"),
+        ] {
+            if ui.radio(layout == l, name).clicked() && layout != l {
+                out.push(Action::Layout(l));
+            }
+        }
+    });
+}
+
+/// The export buttons.
+fn save_section(ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
+    ui.horizontal_wrapped(|ui| {
+        let has_tree = s.reduction.is_some();
+        if ui
+            .add_enabled(has_tree, egui::Button::new("Reduced tree (JSON)…"))
+            .clicked()
+        {
+            out.push(Action::Save(Purpose::SaveJson));
+        }
+        if ui
+            .add_enabled(has_tree, egui::Button::new("Reduced tree (SWC)…"))
+            .clicked()
+        {
+            out.push(Action::Save(Purpose::SaveSwc));
+        }
+        if ui.button("Figure (SVG)…").clicked() {
+            out.push(Action::Save(Purpose::SaveSvg));
+        }
+        if ui.button("Figure (PNG)…").clicked() {
+            out.push(Action::Save(Purpose::SavePng));
+        }
+    });
 }
 
 fn capitalised(s: &str) -> String {

@@ -122,9 +122,36 @@ pub fn svg_figure(
     let cell = &s.cell;
 
     // left: the original
-    let proj = Projector::new(cam, left, cell.centre, cell.extent_radius_um);
     out.push_str("<g id=\"original\">\n");
-    arbor(&mut out, s, &proj, &|k| colours.nodes[k]);
+    svg_original(&mut out, s, cam, left, colours);
+    out.push_str("</g>\n");
+    // right: the reduced tree
+    out.push_str("<g id=\"reduced\">\n");
+    let rproj = Projector::new(cam, right, cell.centre, cell.extent_radius_um);
+    match &s.reduced {
+        Some(r) => svg_reduced(&mut out, s, r, &rproj, right, layout, colours),
+        None => text(
+            &mut out,
+            right.center().x,
+            right.center().y,
+            15.0,
+            "middle",
+            &s.reduction_note,
+        ),
+    }
+    out.push_str("</g>\n");
+    // the colour bar
+    out.push_str("<g id=\"colour-bar\">\n");
+    svg_colour_bar(&mut out, s, colours, scale);
+    out.push_str("</g>\n</svg>\n");
+    out
+}
+
+/// The original arbor, the synapse site, a scale bar and the title.
+fn svg_original(out: &mut String, s: &CellState, cam: &Camera, left: Rect, colours: &Colours) {
+    let cell = &s.cell;
+    let proj = Projector::new(cam, left, cell.centre, cell.extent_radius_um);
+    arbor(out, s, &proj, &|k| colours.nodes[k]);
     if let Some(site) = s.site {
         let p = proj.project(cell.flat.pos[site]);
         let _ = writeln!(
@@ -135,116 +162,109 @@ pub fn svg_figure(
             hex(colour::SITE)
         );
     }
-    scale_bar(&mut out, &proj, left);
+    scale_bar(out, &proj, left);
     text(
-        &mut out,
+        out,
         left.left() + 10.0,
         left.top() + 20.0,
         15.0,
         "start",
         "Original",
     );
-    out.push_str("</g>\n");
+}
 
-    // right: the reduced tree
-    out.push_str("<g id=\"reduced\">\n");
-    let rproj = Projector::new(cam, right, cell.centre, cell.extent_radius_um);
-    match &s.reduced {
-        Some(r) => {
-            let t = &r.tree;
-            let widths = edge_widths(t);
-            let pts: Vec<Pos2> = match layout {
-                ReducedLayout::InPlace => {
-                    arbor(&mut out, s, &rproj, &|_| FAINT);
-                    t.pos.iter().map(|&p| rproj.project(p)).collect()
-                }
-                ReducedLayout::Dendrogram => {
-                    let inner = right.shrink2(Vec2::new(24.0, 34.0));
-                    dendrogram_layout(&t.parent)
-                        .into_iter()
-                        .map(|(x, y)| {
-                            Pos2::new(
-                                inner.left() + x as f32 * inner.width(),
-                                inner.top() + y as f32 * inner.height(),
-                            )
-                        })
-                        .collect()
-                }
-            };
-            for c in 0..t.len() {
-                let p = t.parent[c];
-                if p == NONE {
-                    continue;
-                }
-                let a = pts[p as usize];
-                let b = pts[c];
-                let col = hex(colours.comps[c]);
-                let w = widths[c];
-                if layout == ReducedLayout::Dendrogram {
-                    let _ = writeln!(
-                        out,
-                        r#"<polyline points="{:.2},{:.2} {:.2},{:.2} {:.2},{:.2}" fill="none" stroke="{col}" stroke-width="{w:.2}"/>"#,
-                        a.x, a.y, b.x, a.y, b.x, b.y
-                    );
-                } else {
-                    let _ = writeln!(
-                        out,
-                        r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{col}" stroke-width="{w:.2}"/>"#,
-                        a.x, a.y, b.x, b.y
-                    );
-                }
-            }
-            for (c, p) in pts.iter().enumerate() {
-                let rad = if layout == ReducedLayout::InPlace {
-                    ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * rproj.scale)
-                        .clamp(3.0, 14.0)
-                } else {
-                    3.5
-                };
-                let _ = writeln!(
-                    out,
-                    r##"<circle cx="{:.2}" cy="{:.2}" r="{rad:.2}" fill="{}" stroke="#141414"/>"##,
-                    p.x,
-                    p.y,
-                    hex(colours.comps[c])
-                );
-            }
-            if let Some(sc) = r.site_comp {
-                let _ = writeln!(
-                    out,
-                    r#"<circle cx="{:.2}" cy="{:.2}" r="9" fill="none" stroke="{}" stroke-width="2.5"/>"#,
-                    pts[sc].x,
-                    pts[sc].y,
-                    hex(colour::SITE)
-                );
-            }
-            if layout == ReducedLayout::InPlace {
-                scale_bar(&mut out, &rproj, right);
-            }
-            text(
-                &mut out,
-                right.left() + 10.0,
-                right.top() + 20.0,
-                15.0,
-                "start",
-                &format!("Reduced: {} compartments", t.len()),
-            );
+/// The reduced tree in place or as a dendrogram, its site, a scale bar and the title.
+fn svg_reduced(
+    out: &mut String,
+    s: &CellState,
+    r: &super::state::Reduced,
+    rproj: &Projector,
+    right: Rect,
+    layout: ReducedLayout,
+    colours: &Colours,
+) {
+    let t = &r.tree;
+    let widths = edge_widths(t);
+    let pts: Vec<Pos2> = match layout {
+        ReducedLayout::InPlace => {
+            arbor(out, s, rproj, &|_| FAINT);
+            t.pos.iter().map(|&p| rproj.project(p)).collect()
         }
-        None => {
-            text(
-                &mut out,
-                right.center().x,
-                right.center().y,
-                15.0,
-                "middle",
-                &s.reduction_note,
+        ReducedLayout::Dendrogram => {
+            let inner = right.shrink2(Vec2::new(24.0, 34.0));
+            dendrogram_layout(&t.parent)
+                .into_iter()
+                .map(|(x, y)| {
+                    Pos2::new(
+                        inner.left() + x as f32 * inner.width(),
+                        inner.top() + y as f32 * inner.height(),
+                    )
+                })
+                .collect()
+        }
+    };
+    for c in 0..t.len() {
+        let p = t.parent[c];
+        if p == NONE {
+            continue;
+        }
+        let a = pts[p as usize];
+        let b = pts[c];
+        let col = hex(colours.comps[c]);
+        let w = widths[c];
+        if layout == ReducedLayout::Dendrogram {
+            let _ = writeln!(
+                out,
+                r#"<polyline points="{:.2},{:.2} {:.2},{:.2} {:.2},{:.2}" fill="none" stroke="{col}" stroke-width="{w:.2}"/>"#,
+                a.x, a.y, b.x, a.y, b.x, b.y
+            );
+        } else {
+            let _ = writeln!(
+                out,
+                r#"<line x1="{:.2}" y1="{:.2}" x2="{:.2}" y2="{:.2}" stroke="{col}" stroke-width="{w:.2}"/>"#,
+                a.x, a.y, b.x, b.y
             );
         }
     }
-    out.push_str("</g>\n");
+    for (c, p) in pts.iter().enumerate() {
+        let rad = if layout == ReducedLayout::InPlace {
+            ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * rproj.scale)
+                .clamp(3.0, 14.0)
+        } else {
+            3.5
+        };
+        let _ = writeln!(
+            out,
+            r##"<circle cx="{:.2}" cy="{:.2}" r="{rad:.2}" fill="{}" stroke="#141414"/>"##,
+            p.x,
+            p.y,
+            hex(colours.comps[c])
+        );
+    }
+    if let Some(sc) = r.site_comp {
+        let _ = writeln!(
+            out,
+            r#"<circle cx="{:.2}" cy="{:.2}" r="9" fill="none" stroke="{}" stroke-width="2.5"/>"#,
+            pts[sc].x,
+            pts[sc].y,
+            hex(colour::SITE)
+        );
+    }
+    if layout == ReducedLayout::InPlace {
+        scale_bar(out, rproj, right);
+    }
+    text(
+        out,
+        right.left() + 10.0,
+        right.top() + 20.0,
+        15.0,
+        "start",
+        &format!("Reduced: {} compartments", t.len()),
+    );
+}
 
-    // the colour bar
-    out.push_str("<g id=\"colour-bar\">\n");
+/// The heat scale's gradient with its range and label (or the label alone for categories).
+fn svg_colour_bar(out: &mut String, s: &CellState, colours: &Colours, scale: &Scale) {
     if s.colour_by.is_continuous() {
         out.push_str("<defs><linearGradient id=\"heat\" x1=\"0\" x2=\"1\" y1=\"0\" y2=\"0\">\n");
         for i in 0..=16 {
@@ -264,28 +284,12 @@ pub fn svg_figure(
             out,
             r#"<rect x="{x0}" y="18" width="{bw}" height="16" fill="url(#heat)"/>"#
         );
-        text(&mut out, x0 - 6.0, 31.0, 13.0, "end", &format!("{lo:.1}"));
-        text(
-            &mut out,
-            x0 + bw + 6.0,
-            31.0,
-            13.0,
-            "start",
-            &format!("{hi:.1}"),
-        );
-        text(
-            &mut out,
-            x0 + bw + 60.0,
-            31.0,
-            13.0,
-            "start",
-            &s.value_label(),
-        );
+        text(out, x0 - 6.0, 31.0, 13.0, "end", &format!("{lo:.1}"));
+        text(out, x0 + bw + 6.0, 31.0, 13.0, "start", &format!("{hi:.1}"));
+        text(out, x0 + bw + 60.0, 31.0, 13.0, "start", &s.value_label());
     } else {
-        text(&mut out, 20.0, 31.0, 13.0, "start", &s.value_label());
+        text(out, 20.0, 31.0, 13.0, "start", &s.value_label());
     }
-    out.push_str("</g>\n</svg>\n");
-    out
 }
 
 /// Cuts `region` (in points) out of a screenshot and encodes it as PNG.
