@@ -125,7 +125,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
     let (code, err) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         BUDGET,
@@ -258,7 +258,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
     let (code2, err2) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         BUDGET,
@@ -279,7 +279,7 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
     let (code3, err3) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         BUDGET,
@@ -309,7 +309,7 @@ fn all_good_cells_exit_zero() {
     let (code, err) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         BUDGET,
@@ -319,7 +319,7 @@ fn all_good_cells_exit_zero() {
     let (code, err) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         BUDGET,
@@ -330,7 +330,7 @@ fn all_good_cells_exit_zero() {
     let (code, err) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(tmp.path()),
         "--compartments",
         BUDGET,
@@ -429,7 +429,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
     let (code, _) = pollard(&[
         "batch",
         s(&input),
-        "--out",
+        "--out-dir",
         s(&whole),
         "--compartments",
         BUDGET,
@@ -444,7 +444,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
         let (code, err) = pollard(&[
             "batch",
             s(&input),
-            "--out",
+            "--out-dir",
             s(&split),
             "--compartments",
             BUDGET,
@@ -470,7 +470,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
     assert_eq!(uniq.len(), n);
     assert!(!split.join("summary.jsonl").exists());
 
-    let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
+    let (code, err) = pollard(&["batch", "--out-dir", s(&split), "--merge-summaries"]);
     assert_eq!(code, 3, "{err}");
     let merged = read_rows(&split.join("summary.jsonl"));
     assert_eq!(no_time(&merged), no_time(&all));
@@ -484,7 +484,7 @@ fn shards_partition_the_archive_and_merge_into_the_whole() {
     }
     // an incomplete set of shard summaries is refused
     std::fs::remove_file(split.join("summary.shard-2-of-3.jsonl")).unwrap();
-    let (code, err) = pollard(&["batch", "--out", s(&split), "--merge-summaries"]);
+    let (code, err) = pollard(&["batch", "--out-dir", s(&split), "--merge-summaries"]);
     assert_eq!(code, 1);
     assert!(err.contains("shard(s) 2 of 3"), "{err}");
 }
@@ -555,12 +555,12 @@ fn flags_out_of_range_stop_before_any_work() {
         vec!["--shard", "4/3"],
         vec!["--scale", "0"],
         vec!["--junction-fraction", "2"],
-        vec!["--freq", "-1"],
+        vec!["--impedance-freq", "-1"],
     ] {
         let mut args = vec![
             "batch",
             s(&input),
-            "--out",
+            "--out-dir",
             s(&out),
             "--compartments",
             BUDGET,
@@ -575,7 +575,7 @@ fn flags_out_of_range_stop_before_any_work() {
     let (code, _) = pollard(&[
         "batch",
         s(&tmp.path().join("nope")),
-        "--out",
+        "--out-dir",
         s(&out),
         "--compartments",
         "5",

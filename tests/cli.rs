@@ -232,7 +232,7 @@ fn a_million_deep_chain_goes_through_cable_reduce_and_batch() {
     let o = pollard(&[
         "batch",
         cells.to_str().unwrap(),
-        "--out",
+        "--out-dir",
         out.to_str().unwrap(),
         "--compartments",
         "3",

@@ -52,7 +52,7 @@ fn fidelity_writes_the_per_site_table_on_every_real_cell() {
         args.extend([
             "--csv",
             csv.to_str().unwrap(),
-            "--json",
+            "--out",
             json.to_str().unwrap(),
         ]);
         let o = pollard(&args);
@@ -94,7 +94,7 @@ fn trace_writes_soma_and_site_voltages_on_every_real_cell() {
             let mut args = vec!["trace", cell.to_str().unwrap(), "-n", "31", "--site", id];
             args.extend(&flags);
             args.extend(["--duration", "20", "--csv", csv.to_str().unwrap()]);
-            args.extend(["--json", json.to_str().unwrap()]);
+            args.extend(["--out", json.to_str().unwrap()]);
             if synapse {
                 args.push("--synapse");
             }

@@ -138,7 +138,7 @@ fn reduce_takes_types_and_a_site_list() {
         "-n",
         "7",
         "--types",
-        "1,3,4",
+        "soma,basal,apical-dendrite",
         "--sites",
         sites.to_str().unwrap(),
         "--out",
@@ -168,6 +168,30 @@ fn reduce_takes_types_and_a_site_list() {
             assert!(comp[i].is_null(), "axon point {} mapped", p.id);
         }
     }
+}
+
+#[test]
+fn an_unknown_type_name_is_a_usage_error_naming_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("tree.json");
+    let cell = manifest("sample_cells/y_junction.swc");
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "-n",
+        "3",
+        "--types",
+        "soma,dendrites",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        text(&o.stderr).contains("`dendrites`"),
+        "{}",
+        text(&o.stderr)
+    );
+    assert!(!out.exists());
 }
 
 #[test]

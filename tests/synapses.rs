@@ -385,7 +385,7 @@ fn batch_picks_up_the_table_beside_each_cell() {
     let o = pollard(&[
         "batch",
         input.to_str().unwrap(),
-        "--out",
+        "--out-dir",
         out.to_str().unwrap(),
         "--compartments",
         "21",

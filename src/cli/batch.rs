@@ -35,22 +35,30 @@ pub struct Args {
     /// Skip the EPSP fidelity check (faster; its summary columns are then empty).
     #[arg(long = "no-fidelity")]
     pub no_fidelity: bool,
-    /// The output folder (created if missing); its subfolders mirror the input's.
-    #[arg(long, value_name = "OUT_DIR")]
-    pub out: PathBuf,
+    /// Write into this folder (created if missing); its subfolders mirror the input's.
+    #[arg(long = "out-dir", value_name = "OUT_DIR")]
+    pub out_dir: PathBuf,
     /// Compartments of each reduced tree, soma included (an even number is rounded down to
     /// the odd number below; above a cell's maximum gives its maximum).
-    #[arg(long, value_name = "N", required_unless_present = "merge_summaries")]
+    #[arg(
+        long,
+        short = 'n',
+        value_name = "N",
+        required_unless_present = "merge_summaries"
+    )]
     pub compartments: Option<usize>,
-    /// Frequency (Hz) of the soma input-impedance line of each report.
-    #[arg(long, value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
-    pub freq: f64,
+    /// Frequency (Hz) of the report's one impedance line: the soma's input impedance, full cell
+    /// vs reduced tree. It does not change the tree: its conductances are built at DC and its
+    /// capacitances fitted (see --capacitance).
+    #[arg(long = "impedance-freq", value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
+    pub impedance_freq: f64,
     /// Junction link length as a fraction of the branch point's radius.
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
     pub junction_fraction: f64,
-    /// Keep only these SWC types (comma-separated codes, e.g. 1,3,4 drops the axon).
-    #[arg(long, value_name = "CODES", value_delimiter = ',')]
+    /// Keep only these SWC types, comma-separated, as codes or names (e.g. 1,3,4 or
+    /// soma,basal,apical drops the axon); the soma is always kept.
+    #[arg(long, value_name = "LIST", value_delimiter = ',', value_parser = super::common::parse_type)]
     pub types: Option<Vec<i32>>,
     /// Use each cell's synapse table as its sites: NAME.synapses.csv beside NAME.swc (the
     /// format of `pollard reduce --synapses`). Cells without one keep the default sites; the
@@ -176,12 +184,12 @@ fn exit_for(rows: &[batch::Row]) -> ExitCode {
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if a.merge_summaries {
-        let rows = batch::merge_summaries(&a.out)?;
+        let rows = batch::merge_summaries(&a.out_dir)?;
         let failed = rows.iter().filter(|r| r.status == Status::Failed).count();
         eprintln!(
             "joined {} rows ({failed} failed) into {}",
             rows.len(),
-            a.out.join("summary.csv").display()
+            a.out_dir.join("summary.csv").display()
         );
         return Ok(exit_for(&rows));
     }
@@ -199,7 +207,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         default_diameter_um: a.geometry.default_diameter,
         scale: a.geometry.scale,
         types,
-        freq_hz: a.freq,
+        freq_hz: a.impedance_freq,
         junction_length_fraction: a.junction_fraction,
         synapses: a.synapse_tables.then_some(pollard::synapses::TableRule {
             snap_limit_um: a.snap.snap_limit,
@@ -215,9 +223,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     );
     settings.validate()?;
     let shard = a.shard.unwrap_or(Shard::ALL);
-    std::fs::create_dir_all(&a.out)
-        .with_context(|| format!("{}: cannot create the output folder", a.out.display()))?;
-    let cells = batch::plan(input, &a.out, shard)?;
+    std::fs::create_dir_all(&a.out_dir)
+        .with_context(|| format!("{}: cannot create the output folder", a.out_dir.display()))?;
+    let cells = batch::plan(input, &a.out_dir, shard)?;
     let jobs = a
         .jobs
         .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
@@ -241,7 +249,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let (rows, reused) = batch::run(&cells, &settings, &opts, &|r, re| progress.on_row(r, re))?;
     progress.bar.finish_and_clear();
-    let (csv, _) = batch::write_summary(&a.out, &shard.summary_stem(), &rows)?;
+    let (csv, _) = batch::write_summary(&a.out_dir, &shard.summary_stem(), &rows)?;
     let failed = rows.iter().filter(|r| r.status == Status::Failed).count();
     let secs = start.elapsed().as_secs_f64();
     let done = rows.len() - reused;

@@ -17,7 +17,7 @@ pub struct Args {
     pub membrane: super::common::MembraneArgs,
     #[command(flatten)]
     pub geometry: super::common::GeometryArgs,
-    /// Frequency (Hz); 0 = DC. At f > 0 resistances are impedance magnitudes.
+    /// Frequency (Hz) of the maps; 0 = DC. At f > 0 resistances are impedance magnitudes.
     #[arg(
         long = "freq",
         allow_negative_numbers = true,
@@ -33,7 +33,7 @@ pub struct Args {
     pub json: bool,
     /// Write the output to this file instead of the terminal.
     #[arg(long, short = 'o', value_name = "FILE")]
-    pub output: Option<PathBuf>,
+    pub out: Option<PathBuf>,
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
@@ -75,7 +75,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         a.site.zip(site.as_deref()),
         warnings,
     )?;
-    match &a.output {
+    match &a.out {
         Some(path) => {
             let mut out: Vec<u8> = Vec::new();
             write_doc(&mut out, &a, &doc, &maps, &summary, site_node)?;

@@ -109,13 +109,24 @@ pub struct ReduceArgs {
     /// dendritic point, weighted by membrane area.
     #[arg(long = "sites", value_name = "FILE")]
     pub sites: Option<PathBuf>,
-    /// SWC types to keep, comma-separated (the soma is always kept).
-    #[arg(long, value_delimiter = ',', value_name = "LIST")]
+    /// SWC types to keep, comma-separated, as codes or names (e.g. 1,3,4 or soma,basal,apical);
+    /// the soma is always kept.
+    #[arg(long, value_delimiter = ',', value_name = "LIST", value_parser = parse_type)]
     pub types: Option<Vec<i32>>,
     /// Junction link length as a fraction of the branch point's radius.
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
     pub junction_fraction: f64,
+}
+
+/// One entry of `--types`: an SWC type code or its name (soma, axon, basal, apical, …).
+pub fn parse_type(s: &str) -> Result<i32, String> {
+    pollard::morphology::kind_code(s).ok_or_else(|| {
+        format!(
+            "`{s}` is neither an SWC type code nor a type name \
+             (undefined, soma, axon, basal, apical, dendrite, fork-point, end-point)"
+        )
+    })
 }
 
 /// Reads the cell, prepares it and builds the reducer (as `pollard reduce` does).

@@ -25,12 +25,12 @@ pub struct Args {
     pub reduce: super::common::ReduceArgs,
     #[command(flatten)]
     pub fidelity: super::common::FidelityArgs,
-    /// Write the per-site table as CSV here.
+    /// Write the per-site table as CSV to this file.
     #[arg(long, value_name = "SITES.csv")]
     pub csv: Option<PathBuf>,
-    /// Write the per-site table and the summary as JSON here.
-    #[arg(long, value_name = "SITES.json")]
-    pub json: Option<PathBuf>,
+    /// Write the per-site table and the summary as JSON to this file.
+    #[arg(long, short = 'o', value_name = "SITES.json")]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(serde::Serialize)]
@@ -46,8 +46,8 @@ struct Doc<'a> {
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    if a.csv.is_none() && a.json.is_none() {
-        anyhow::bail!("give --csv FILE and/or --json FILE for the per-site table");
+    if a.csv.is_none() && a.out.is_none() {
+        anyhow::bail!("give --out FILE.json and/or --csv FILE.csv for the per-site table");
     }
     let opts = a.fidelity.options();
     opts.validate()?;
@@ -64,7 +64,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if let Some(p) = &a.csv {
         write_atomic(p, sites_csv(&rows).as_bytes(), &inputs)?;
     }
-    if let Some(p) = &a.json {
+    if let Some(p) = &a.out {
         let doc = Doc {
             format: "pollard.fidelity-sites",
             generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),

@@ -47,18 +47,21 @@ pub struct Args {
     /// PREFIX.synapses.csv (needs --synapses).
     #[arg(long = "synapse-csv", value_name = "PREFIX", requires = "synapses")]
     pub synapse_csv: Option<PathBuf>,
-    /// SWC types to keep, comma-separated (e.g. 1,3,4 leaves out the axon); the soma is always
-    /// kept. Points of other types, and everything beyond them, are left out entirely.
-    #[arg(long, value_delimiter = ',', value_name = "LIST")]
+    /// SWC types to keep, comma-separated, as codes or names (e.g. 1,3,4 or
+    /// soma,basal,apical leaves out the axon); the soma is always kept. Points of other types,
+    /// and everything beyond them, are left out entirely.
+    #[arg(long, value_delimiter = ',', value_name = "LIST", value_parser = super::common::parse_type)]
     pub types: Option<Vec<i32>>,
-    /// Frequency (Hz) of the input-impedance line of the report.
+    /// Frequency (Hz) of the report's one impedance line: the soma's input impedance, full cell
+    /// vs reduced tree. It does not change the tree: its conductances are built at DC and its
+    /// capacitances fitted (see --capacitance).
     #[arg(
-        long = "freq",
+        long = "impedance-freq",
         allow_negative_numbers = true,
         default_value_t = 100.0,
         value_name = "HZ"
     )]
-    pub freq: f64,
+    pub impedance_freq: f64,
     /// Junction link length as a fraction of the branch point's radius (multifurcations and a
     /// single-stem soma are split with links this short).
     #[arg(long = "junction-fraction", default_value_t = 1e-4, value_name = "F")]
@@ -93,7 +96,7 @@ pub struct Args {
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let params = a.membrane.params();
-    params.validate(a.freq)?;
+    params.validate(a.impedance_freq)?;
     let name = a.cell.display().to_string();
     let m = Morphology::read(&a.cell)?;
     let flat = prepare(&m, &a.geometry.prep()).with_context(|| name.clone())?;
@@ -116,7 +119,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let opts = ReduceOptions {
         types: a.types.clone(),
         sites,
-        freq_hz: a.freq,
+        freq_hz: a.impedance_freq,
         junction_length_fraction: a.junction_fraction,
         capacitance: a.capacitance.into(),
     };

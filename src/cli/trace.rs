@@ -99,12 +99,12 @@ pub struct Args {
     #[arg(long = "piece-fraction", value_name = "F", allow_negative_numbers = true,
           default_value_t = PieceRule::default().lambda_fraction)]
     pub piece_fraction: f64,
-    /// Write the traces as CSV here.
+    /// Write the traces as CSV to this file.
     #[arg(long, value_name = "TRACES.csv")]
     pub csv: Option<PathBuf>,
-    /// Write the traces as JSON here.
-    #[arg(long, value_name = "TRACES.json")]
-    pub json: Option<PathBuf>,
+    /// Write the traces as JSON to this file.
+    #[arg(long, short = 'o', value_name = "TRACES.json")]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(serde::Serialize)]
@@ -131,8 +131,8 @@ fn peak(v: &[f64], t: &[f64]) -> (f64, f64) {
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    if a.csv.is_none() && a.json.is_none() {
-        anyhow::bail!("give --csv FILE and/or --json FILE for the traces");
+    if a.csv.is_none() && a.out.is_none() {
+        anyhow::bail!("give --out FILE.json and/or --csv FILE.csv for the traces");
     }
     let name = a.cell.display().to_string();
     let (m, reducer) = super::common::reducer_for(&a.cell, &a.membrane, &a.geometry, &a.reduce)?;
@@ -177,7 +177,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if let Some(p) = &a.csv {
         write_atomic(p, tr.to_csv().as_bytes(), &inputs)?;
     }
-    if let Some(p) = &a.json {
+    if let Some(p) = &a.out {
         let doc = Doc {
             format: "pollard.traces",
             generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),

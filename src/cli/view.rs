@@ -22,13 +22,14 @@ pub enum ColourBy {
 pub struct Args {
     /// The SWC file to open.
     pub cell: PathBuf,
-    /// Start with this many compartments in the reduced tree.
-    #[arg(long, value_name = "N")]
-    pub budget: Option<usize>,
+    /// Start with this many compartments in the reduced tree, soma included.
+    #[arg(long, short = 'n', value_name = "N")]
+    pub compartments: Option<usize>,
     /// Start with the synapse site at the point with this SWC id.
     #[arg(long, value_name = "ID")]
     pub site: Option<i64>,
-    /// Start at this frequency (Hz, 0 = DC).
+    /// Frequency (Hz) of the maps at the start (0 = DC; above, resistances are impedance
+    /// magnitudes). The reduced tree does not depend on it.
     #[arg(long, value_name = "HZ")]
     pub freq: Option<f64>,
     /// What colours the arbors at the start.
@@ -54,7 +55,7 @@ pub struct Args {
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     use pollard::app::state::ColourBy as C;
     let opts = pollard::app::StartOptions {
-        budget: a.budget,
+        budget: a.compartments,
         site_id: a.site,
         freq_hz: a.freq,
         colour_by: a.colour_by.map(|c| match c {

@@ -52,6 +52,27 @@ pub fn kind_name(k: i32) -> &'static str {
     }
 }
 
+/// The SWC type code for a name, as [`kind_name`] and the app show them (case-insensitive;
+/// `basal` and `apical` also without "dendrite", `-` or `_` for the space; `dendrite` is 3), or
+/// for a code written as a number. `None` for anything else.
+pub fn kind_code(name: &str) -> Option<i32> {
+    let n = name.trim().to_ascii_lowercase().replace(['-', '_'], " ");
+    if let Ok(code) = n.parse::<i32>() {
+        return Some(code);
+    }
+    let code = match n.as_str() {
+        "undefined" => 0,
+        "soma" => 1,
+        "axon" => 2,
+        "basal" | "basal dendrite" | "dendrite" => 3,
+        "apical" | "apical dendrite" => 4,
+        "fork point" => 5,
+        "end point" => 6,
+        _ => return None,
+    };
+    Some(code)
+}
+
 /// One connected tree of the file.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct TreeInfo {
@@ -383,6 +404,35 @@ impl Morphology {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn type_names_give_the_standard_codes() {
+        // SWC type codes of the format's published description (Cannon et al. 1998, J Neurosci
+        // Methods 84:49): 1 soma, 2 axon, 3 (basal) dendrite, 4 apical dendrite.
+        for (name, code) in [
+            ("soma", 1),
+            ("Axon", 2),
+            ("basal", 3),
+            ("basal dendrite", 3),
+            ("dendrite", 3),
+            ("apical_dendrite", 4),
+            ("apical", 4),
+            ("undefined", 0),
+            ("fork-point", 5),
+            ("end point", 6),
+            ("7", 7),
+            (" 12 ", 12),
+        ] {
+            assert_eq!(kind_code(name), Some(code), "{name}");
+        }
+        for bad in ["", "dendrites", "custom", "1.5", "apicals"] {
+            assert_eq!(kind_code(bad), None, "{bad}");
+        }
+        // every name the app shows reads back to its code
+        for k in 0..=6 {
+            assert_eq!(kind_code(kind_name(k)), Some(k));
+        }
+    }
 
     #[test]
     fn huge_coordinates_give_finite_lengths() {
