@@ -7,7 +7,7 @@ use pollard::fidelity::{Fidelity, FidelityOptions, percent};
 use pollard::morphology::Morphology;
 use pollard::reduce::{ReduceOptions, Reducer};
 use pollard::transient::{
-    Drive, Method, RcNetwork, RunOptions, Stop, Waveform, fine_network, simulate,
+    Drive, Growth, Method, RcNetwork, RunOptions, Stop, Waveform, fine_network, simulate,
 };
 
 fn sample(name: &str) -> Morphology {
@@ -34,6 +34,10 @@ fn peak_of(net: &RcNetwork, at: usize, record: usize, o: &FidelityOptions) -> (f
             method: Method::CrankNicolson,
             stop: Stop::At { duration_ms: 60.0 },
             track_peaks: true,
+            growth: Some(Growth {
+                after_ms: 10.0 * o.tau_ms,
+                ratio: pollard::fidelity::GROWTH_RATIO,
+            }),
         },
     )
     .unwrap();

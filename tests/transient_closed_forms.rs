@@ -6,7 +6,7 @@
 use pollard::cable::{CellMaps, Params};
 use pollard::morphology::{Flat, NONE};
 use pollard::transient::{
-    Drive, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
+    Drive, Growth, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
     simulate,
 };
 use std::f64::consts::PI;
@@ -53,6 +53,7 @@ fn run(dt: f64, method: Method, ms: f64) -> RunOptions {
         method,
         stop: Stop::At { duration_ms: ms },
         track_peaks: false,
+        growth: None,
     }
 }
 
@@ -468,4 +469,44 @@ fn piece_rule_converges_on_a_real_cell() {
     eprintln!("nodes {n1} {n2} {n3}; peak changes {c12:.2e} then {c23:.2e}");
     assert!(c23 < 1e-3, "default rule vs half: {c23}");
     assert!(c23 < c12, "{c12} then {c23}");
+}
+
+#[test]
+fn growing_step_keeps_the_peaks_of_a_fixed_step() {
+    // the fixed-step run is the reference (Crank–Nicolson at dt = 0.025 ms, errors ~1e-4);
+    // the growing step (dt → 2 % of t after 5 ms) must give the same peaks and times to 0.3 %
+    // a generated cell whose farthest points peak late (tens of ms)
+    let text = pollard::synth::to_swc(&pollard::synth::big_cell(3000, 7), &[]);
+    let m = pollard::Morphology::parse(&text, "big.swc").unwrap();
+    let fine = fine_network(&m.flatten(), &Params::default(), PieceRule::default()).unwrap();
+    let drive = current(
+        0,
+        Waveform::Alpha {
+            tau_ms: 0.5,
+            peak_pa: 10.0,
+        },
+    );
+    let peaks = |grow: Option<Growth>| {
+        let mut o = run(0.025, Method::CrankNicolson, 0.0);
+        o.stop = Stop::AllPeaked {
+            min_ms: 1.5,
+            max_ms: 300.0,
+        };
+        o.track_peaks = true;
+        o.growth = grow;
+        let r = simulate(&fine.net, &drive, &[], &o).unwrap();
+        (r.times_ms.len(), r.peaks.unwrap())
+    };
+    let (n_fixed, a) = peaks(None);
+    assert_eq!(a.not_peaked, 0);
+    let (n_grow, b) = peaks(Some(Growth {
+        after_ms: 5.0,
+        ratio: pollard::fidelity::GROWTH_RATIO,
+    }));
+    assert!(n_grow < n_fixed, "{n_grow} steps vs {n_fixed}");
+    for k in 0..a.value_mv.len() {
+        let dv = (a.value_mv[k] - b.value_mv[k]).abs() / a.value_mv[k];
+        let dt = (a.time_ms[k] - b.time_ms[k]).abs() / a.time_ms[k];
+        assert!(dv < 3e-3 && dt < 3e-3, "node {k}: {dv:.2e} {dt:.2e}");
+    }
 }

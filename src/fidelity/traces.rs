@@ -151,6 +151,7 @@ pub fn response_traces(
             duration_ms: opts.duration_ms,
         },
         track_peaks: false,
+        growth: None,
     };
     let drive = |node: usize| match *input {
         Input::Current { waveform } => Drive::Current { node, waveform },

@@ -208,6 +208,16 @@ pub struct RunOptions {
     pub stop: Stop,
     /// Keep every node's running peak and time to peak.
     pub track_peaks: bool,
+    /// A step that grows with t in the slow tail after a brief input; `None`: a fixed step.
+    pub growth: Option<Growth>,
+}
+
+/// From `after_ms` on, the step grows towards `ratio`·t (never below dt), by 25 % per step
+/// at most, M refactored at each change: the tail is followed at a constant relative resolution.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Growth {
+    pub after_ms: f64,
+    pub ratio: f64,
 }
 
 /// Most steps one run may take.
@@ -255,46 +265,54 @@ impl PeakTracker {
         }
     }
 
-    /// Takes step `step`'s voltages (and the previous step's); returns how many nodes set a
-    /// new peak.
-    fn update(&mut self, step: usize, v: &[f64], prev: &[f64]) -> usize {
+    /// Finishes step `step` in one pass: `x` holds the solve's result, which becomes the new
+    /// voltage (2x − v for Crank–Nicolson); `v` is the previous step's. Returns how many nodes
+    /// set a new peak.
+    fn update(&mut self, step: usize, x: &mut [f64], v: &[f64], cn: bool) -> usize {
         let s = self.sign;
         let mut rising = 0;
-        for k in 0..v.len() {
-            let x = s * v[k];
-            if x > self.peak[k] {
-                self.peak[k] = x;
+        for k in 0..x.len() {
+            let vn = if cn { 2.0 * x[k] - v[k] } else { x[k] };
+            x[k] = vn;
+            let y = s * vn;
+            if y > self.peak[k] {
+                self.peak[k] = y;
                 self.idx[k] = step;
-                self.before[k] = s * prev[k];
+                self.before[k] = s * v[k];
                 rising += 1;
             } else if self.idx[k] + 1 == step {
-                self.after[k] = x;
+                self.after[k] = y;
             }
         }
         rising
     }
 
-    /// Peaks refined by the parabola through the three samples around each largest one
-    /// (vertex of the interpolating quadratic; common practice, no source).
-    fn finish(self, dt: f64, last: usize) -> Peaks {
+    /// Peaks refined by the vertex of the quadratic through the three samples around each
+    /// largest one, at their (possibly unequal) times (Newton's divided differences; common
+    /// practice, no source).
+    fn finish(self, times: &[f64]) -> Peaks {
+        let last = times.len() - 1;
         let n = self.peak.len();
         let mut value = vec![0.0; n];
         let mut time = vec![0.0; n];
         let mut not_peaked = 0;
         for k in 0..n {
             let (i, p) = (self.idx[k], self.peak[k]);
-            let (b, a) = (self.before[k], self.after[k]);
-            let denom = b - 2.0 * p + a;
             let (mut dv, mut dtk) = (0.0, 0.0);
             if i == last && last > 0 {
                 not_peaked += 1;
-            } else if i > 0 && denom < 0.0 {
-                let delta = (0.5 * (b - a) / denom).clamp(-0.5, 0.5);
-                dtk = delta * dt;
-                dv = -0.25 * (b - a) * delta;
+            } else if i > 0 {
+                let (h1, h2) = (times[i] - times[i - 1], times[i + 1] - times[i]);
+                let (d1, d2) = ((p - self.before[k]) / h1, (self.after[k] - p) / h2);
+                let c = (d2 - d1) / (h1 + h2);
+                if c < 0.0 {
+                    let slope = d1 + c * h1;
+                    dtk = (-slope / (2.0 * c)).clamp(-h1, h2);
+                    dv = slope * dtk + c * dtk * dtk;
+                }
             }
             value[k] = self.sign * (p + dv);
-            time[k] = i as f64 * dt + dtk;
+            time[k] = times[i] + dtk;
         }
         Peaks {
             value_mv: value,
@@ -309,7 +327,7 @@ fn validate_run(
     drive: &Drive,
     record: &[usize],
     opts: &RunOptions,
-) -> Result<(usize, usize), TransientError> {
+) -> Result<(f64, f64), TransientError> {
     net.validate()?;
     let n = net.len();
     for &k in record.iter().chain(std::iter::once(&drive.node())) {
@@ -328,6 +346,15 @@ fn validate_run(
     };
     check("duration (ms)", max_ms, 0.0, 1e7)?;
     check("shortest duration (ms)", min_ms, 0.0, max_ms)?;
+    if let Some(g) = opts.growth {
+        check(
+            "start of the growing step (ms)",
+            g.after_ms,
+            opts.dt_ms,
+            1e7,
+        )?;
+        check("growing step / t", g.ratio, 1e-6, 0.5)?;
+    }
     let steps = (max_ms / opts.dt_ms).round();
     if steps > MAX_STEPS as f64 {
         return Err(TransientError::TooManySteps {
@@ -335,10 +362,67 @@ fn validate_run(
             limit: MAX_STEPS,
         });
     }
-    Ok((
-        steps as usize,
-        (min_ms / opts.dt_ms).round().min(steps) as usize,
-    ))
+    Ok((min_ms, max_ms))
+}
+
+/// M = C/h + A factored for one dt (h = dt, or dt/2 for Crank–Nicolson), with M⁻¹e_s for a
+/// synapse at s.
+struct Stepper {
+    dt: f64,
+    c_h: Vec<f64>,
+    lu: TreeFactor<f64>,
+    z: Vec<f64>,
+}
+
+impl Stepper {
+    fn new(net: &RcNetwork, dt: f64, cn: bool, synapse_at: Option<usize>) -> Stepper {
+        let h = if cn { 0.5 * dt } else { dt };
+        let c_h: Vec<f64> = net.cap_pf.iter().map(|c| c / h).collect();
+        let diag: Vec<f64> = c_h.iter().zip(&net.g_leak_ns).map(|(c, g)| c + g).collect();
+        let lu = TreeFactor::new(&net.parent, &net.g_axial_ns, &diag);
+        // z = M⁻¹e_s for the synapse's rank-one update (Sherman & Morrison 1950)
+        let z = match synapse_at {
+            Some(s) => {
+                let mut z = vec![0.0; net.len()];
+                z[s] = 1.0;
+                lu.solve_in_place(&mut z);
+                z
+            }
+            None => Vec::new(),
+        };
+        Stepper { dt, c_h, lu, z }
+    }
+
+    /// One step from t0 to t1: `x` ← the solve of (M + γ e_s e_sᵀ)x = C/h·v + input.
+    fn solve(&self, drive: &Drive, cn: bool, v: &[f64], x: &mut [f64], t0: f64, t1: f64) {
+        for k in 0..x.len() {
+            x[k] = self.c_h[k] * v[k];
+        }
+        match *drive {
+            Drive::Current { node, waveform } => {
+                x[node] += if cn {
+                    0.5 * (waveform.at(t0) + waveform.at(t1))
+                } else {
+                    waveform.at(t1)
+                };
+                self.lu.solve_in_place(x);
+            }
+            Drive::Synapse { node, synapse } => {
+                let gam = if cn {
+                    0.5 * (synapse.conductance(t0) + synapse.conductance(t1))
+                } else {
+                    synapse.conductance(t1)
+                };
+                x[node] += gam * synapse.e_rev_mv;
+                self.lu.solve_in_place(x);
+                // (M + γ e_s e_sᵀ)⁻¹b = y − γ·y_s/(1 + γ·z_s)·z
+                let f = gam * x[node] / (1.0 + gam * self.z[node]);
+                for (xk, zk) in x.iter_mut().zip(&self.z) {
+                    *xk -= f * zk;
+                }
+            }
+        }
+    }
 }
 
 /// Integrates the network from rest (V = 0) under `drive`, recording the nodes in `record`
@@ -349,96 +433,74 @@ pub fn simulate(
     record: &[usize],
     opts: &RunOptions,
 ) -> Result<Response, TransientError> {
-    let (max_steps, min_steps) = validate_run(net, drive, record, opts)?;
+    let (min_ms, max_ms) = validate_run(net, drive, record, opts)?;
     let n = net.len();
-    let dt = opts.dt_ms;
-    let (h, cn) = match opts.method {
-        Method::BackwardEuler => (dt, false),
-        Method::CrankNicolson => (0.5 * dt, true),
-    };
-    let c_h: Vec<f64> = net.cap_pf.iter().map(|c| c / h).collect();
-    let diag: Vec<f64> = c_h.iter().zip(&net.g_leak_ns).map(|(c, g)| c + g).collect();
-    let lu = TreeFactor::new(&net.parent, &net.g_axial_ns, &diag);
-    let s = drive.node();
-    // z = M⁻¹e_s for the synapse's rank-one update (Sherman & Morrison 1950)
-    let z = match drive {
-        Drive::Synapse { .. } => {
-            let mut z = vec![0.0; n];
-            z[s] = 1.0;
-            lu.solve_in_place(&mut z);
-            z
-        }
-        Drive::Current { .. } => Vec::new(),
+    let dt0 = opts.dt_ms;
+    let cn = opts.method == Method::CrankNicolson;
+    let syn = match drive {
+        Drive::Synapse { node, .. } => Some(*node),
+        Drive::Current { .. } => None,
     };
     let sign = match drive {
         Drive::Current { waveform, .. } => waveform.polarity(),
-        Drive::Synapse { synapse, .. } => {
-            if synapse.e_rev_mv < 0.0 {
-                -1.0
-            } else {
-                1.0
-            }
-        }
+        Drive::Synapse { synapse, .. } if synapse.e_rev_mv < 0.0 => -1.0,
+        Drive::Synapse { .. } => 1.0,
     };
+    let mut st = Stepper::new(net, dt0, cn, syn);
+    let fixed_steps = (max_ms / dt0).round() as usize;
     let mut v = vec![0.0; n];
     let mut x = vec![0.0; n];
     let mut tracker = opts.track_peaks.then(|| PeakTracker::new(n, sign));
     let mut times = vec![0.0];
     let mut traces: Vec<Vec<f64>> = record.iter().map(|_| vec![0.0]).collect();
     let mut quiet = 0usize;
-    let mut last = 0;
-    for step in 1..=max_steps {
-        let (t0, t1) = ((step - 1) as f64 * dt, step as f64 * dt);
-        for k in 0..n {
-            x[k] = c_h[k] * v[k];
-        }
-        match drive {
-            Drive::Current { waveform, .. } => {
-                x[s] += if cn {
-                    0.5 * (waveform.at(t0) + waveform.at(t1))
-                } else {
-                    waveform.at(t1)
-                };
-                lu.solve_in_place(&mut x);
-            }
-            Drive::Synapse { synapse, .. } => {
-                let gam = if cn {
-                    0.5 * (synapse.conductance(t0) + synapse.conductance(t1))
-                } else {
-                    synapse.conductance(t1)
-                };
-                x[s] += gam * synapse.e_rev_mv;
-                lu.solve_in_place(&mut x);
-                // (M + γ e_s e_sᵀ)⁻¹b = y − γ·y_s/(1 + γ·z_s)·z
-                let f = gam * x[s] / (1.0 + gam * z[s]);
-                for k in 0..n {
-                    x[k] -= f * z[k];
+    let mut step = 0usize;
+    loop {
+        let t0 = times[step];
+        let t1 = match opts.growth {
+            None if step >= fixed_steps => break,
+            // a fixed step: t_n = n·dt exactly
+            None => (step + 1) as f64 * dt0,
+            Some(_) if t0 >= max_ms - 1e-9 * dt0 => break,
+            Some(g) => {
+                if t0 >= g.after_ms && g.ratio * t0 >= 1.25 * st.dt {
+                    st = Stepper::new(net, 1.25 * st.dt, cn, syn);
                 }
+                t0 + st.dt
             }
-        }
-        if cn {
-            for k in 0..n {
-                x[k] = 2.0 * x[k] - v[k];
+        };
+        st.solve(drive, cn, &v, &mut x, t0, t1);
+        step += 1;
+        let rising = match tracker.as_mut() {
+            Some(tr) => tr.update(step, &mut x, &v, cn),
+            None => {
+                if cn {
+                    for k in 0..n {
+                        x[k] = 2.0 * x[k] - v[k];
+                    }
+                }
+                0
             }
-        }
+        };
         std::mem::swap(&mut v, &mut x);
         times.push(t1);
         for (tr, &k) in traces.iter_mut().zip(record) {
             tr.push(v[k]);
         }
-        last = step;
-        if let Some(tr) = tracker.as_mut() {
-            let rising = tr.update(step, &v, &x);
-            quiet = if rising == 0 { quiet + 1 } else { 0 };
-            if matches!(opts.stop, Stop::AllPeaked { .. }) && step >= min_steps && quiet >= 10 {
-                break;
-            }
+        quiet = if rising == 0 { quiet + 1 } else { 0 };
+        if tracker.is_some()
+            && matches!(opts.stop, Stop::AllPeaked { .. })
+            && t1 >= min_ms
+            && quiet >= 10
+        {
+            break;
         }
     }
+    let peaks = tracker.map(|t| t.finish(&times));
     Ok(Response {
         times_ms: times,
         traces,
-        peaks: tracker.map(|t| t.finish(dt, last)),
+        peaks,
     })
 }
 
@@ -464,6 +526,7 @@ mod tests {
             method: Method::CrankNicolson,
             stop: Stop::At { duration_ms: 1.0 },
             track_peaks: false,
+            growth: None,
         };
         let e = simulate(&net, &drive, &[], &o).unwrap_err();
         assert!(e.to_string().contains("time step"), "{e}");
