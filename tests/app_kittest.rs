@@ -459,3 +459,34 @@ fn start_options_set_budget_site_frequency_colouring_and_layout() {
     assert_eq!(app.layout, pollard::app::canvas::ReducedLayout::Dendrogram);
     assert!(s.reduced.as_ref().unwrap().tree.len() <= 3);
 }
+
+#[test]
+fn view_file_loads_only_that_file_and_falls_back_to_the_demo_on_failure() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = dir.path().join("one.swc");
+    std::fs::write(&f, "1 1 0 0 0 5 -1\n2 3 50 0 0 1 1\n").unwrap();
+    let mut app = PollardApp::new(
+        Start::File(f.clone()),
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    // the file is the first and only load: no demo cell is read before it
+    assert!(app.state.is_none() && app.busy());
+    app.wait_idle();
+    assert_eq!(app.state.as_ref().unwrap().cell.name, "one.swc");
+    // a file that cannot be read: the demo cell opens, and the error stays on screen
+    let mut app = PollardApp::new(
+        Start::File(dir.path().join("missing.swc")),
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    app.wait_idle();
+    assert!(app.state.is_some());
+    assert!(
+        app.error
+            .as_deref()
+            .is_some_and(|e| e.contains("missing.swc")),
+        "{:?}",
+        app.error
+    );
+}

@@ -1,6 +1,8 @@
 //! `pollard batch` on a generated folder of cells with broken files mixed in: outputs, summary
 //! rows, exit codes, resumability, shards and byte-identical results.
 
+mod common;
+
 use pollard::batch::{self, Row, RunOptions, Settings, Shard, Status};
 use pollard::synth;
 use std::collections::{BTreeMap, BTreeSet};
@@ -164,12 +166,12 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
             assert_eq!(Some(nc), r.compartments);
             assert!(nc % 2 == 1 && nc <= 11, "{nc}");
             assert_eq!(tree["source"], r.file.as_str());
-            // the full soma input resistance agrees with the cable engine run here on the same
-            // file (a second route: network + two sweeps, Hines 1984)
+            // the full soma input resistance agrees with nalgebra's dense LU of the cell's DC
+            // network (independent of the engine's tree sweeps)
             let m = pollard::Morphology::read(&input.join(&r.file)).unwrap();
             let net =
                 pollard::cable::Network::build(&m.flatten(), &Default::default(), 0.0).unwrap();
-            let z = pollard::cable::Maps::new(&net).input_impedance(0).re * 1e-6;
+            let z = common::dense_z_columns(&net, &[0])[0][0] * 1e-6;
             assert!((rin - z).abs() <= 1e-9 * z, "{rin} {z}");
             let red = r.soma_rin_reduced_mohm.unwrap();
             assert!(red.is_finite() && red > 0.0);

@@ -1,10 +1,13 @@
 //! The direct file → flat route of `pollard cable` gives exactly the cell the full morphology
-//! route gives (same maps at every SWC id), and is only taken on plain files.
+//! route gives (same maps at every SWC id), and is only taken on plain files; on real cells the
+//! maps match a dense nalgebra solve of the same network.
 
 use pollard::cable::prep::{cable_input, flat_from_plain_points};
 use pollard::cable::{CellMaps, Params, PrepOptions, prepare};
 use pollard::{Morphology, swc, synth};
 use std::collections::HashMap;
+
+mod common;
 
 /// Per SWC id: (|Z_kk|, A to soma, A from soma), by the full route.
 fn full_route(text: &str, opts: &PrepOptions, f: f64) -> HashMap<i64, [f64; 3]> {
@@ -77,36 +80,36 @@ fn other_files_take_the_full_route() {
 }
 
 #[test]
-fn real_cells_agree_on_either_route() {
-    // the three real cells kept in tests/data/real, and the shared set (POLLARD_CELLS) when set
-    let mut dirs = vec![std::path::PathBuf::from(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/data/real"
-    ))];
-    if let Ok(extra) = std::env::var("POLLARD_CELLS") {
-        dirs.push(extra.into());
-    }
-    let entries: Vec<_> = dirs
-        .iter()
-        .flat_map(|d| std::fs::read_dir(d).unwrap())
-        .collect();
-    assert!(entries.len() >= 3);
-    for e in entries.into_iter().flatten() {
-        let path = e.path();
-        if path.extension().is_none_or(|x| x != "swc") {
-            continue;
-        }
+fn real_cells_match_a_dense_solve() {
+    // The real cells (tests/data/real, and POLLARD_CELLS when set), prepared as a user would
+    // (--scale 0.001 for the nm file, --default-diameter 0.5 where radii are missing). The maps
+    // of the O(N) sweeps against nalgebra's dense LU of the same DC network: Z_00, Z_k0 at every
+    // node, and Z_kk at a few nodes. None of these files takes the direct route; those that
+    // would are compared with the full route too.
+    let paths = common::real_cell_paths();
+    assert!(paths.len() >= 3);
+    let p = Params::default();
+    for path in paths {
         let text = std::fs::read_to_string(&path).unwrap();
+        let m = Morphology::parse(&text, "t.swc").unwrap();
+        let fl = common::flat_as_a_user_would(&m);
+        let maps = CellMaps::compute(&fl, &p, 0.0).unwrap();
+        let net = pollard::cable::Network::build(&fl, &p, 0.0).unwrap();
+        let n = fl.len();
+        let js = [n / 5, n / 2, n - 1];
+        let z = common::dense_z_columns(&net, &[0, js[0], js[1], js[2]]);
+        let rel = |a: f64, b: f64| (a - b).abs() / b.abs();
+        let mut worst: f64 = 0.0;
+        for (k, &zk) in z[0].iter().enumerate() {
+            worst = worst.max(rel(maps.z_soma(k).re, zk));
+        }
+        for (c, &j) in js.iter().enumerate() {
+            worst = worst.max(rel(maps.z_in(j).re, z[c + 1][j]));
+        }
+        assert!(worst < 1e-9, "{}: {worst:e}", path.display());
         let file = swc::parse_str(&text, "t.swc").unwrap();
-        let direct = flat_from_plain_points(&file.points).is_some();
-        // only the files that need no fix
-        if Morphology::parse(&text, "t.swc")
-            .ok()
-            .and_then(|m| prepare(&m, &PrepOptions::default()).ok())
-            .and_then(|fl| CellMaps::compute(&fl, &Params::default(), 0.0).ok())
-            .is_some()
-        {
-            check_same(&text, direct);
+        if flat_from_plain_points(&file.points).is_some() {
+            check_same(&text, true);
         }
     }
 }

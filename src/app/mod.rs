@@ -123,6 +123,8 @@ pub struct PollardApp {
     pub start_options: Option<StartOptions>,
     /// A PNG to save once the reduced tree has been drawn for a few frames.
     png_when_ready: Option<(PathBuf, u32)>,
+    /// The next load keeps the error shown (the demo cell loaded after a failed first file).
+    keep_error: bool,
 }
 
 impl PollardApp {
@@ -155,15 +157,12 @@ impl PollardApp {
             ctx: None,
             start_options: None,
             png_when_ready: None,
+            keep_error: false,
         };
         app.lab.dialogs = dialogs;
         match start {
             Start::Demo => app.open_demo(),
-            Start::File(p) => {
-                app.open_demo();
-                app.wait_idle();
-                app.open_path(&p);
-            }
+            Start::File(p) => app.open_path(&p),
             Start::Lab => {
                 app.open_demo();
                 app.screen = Screen::Lab;
@@ -265,7 +264,9 @@ impl PollardApp {
                     self.controls.sync_from(&s);
                     self.state = Some(s);
                     self.camera = Camera::default();
-                    self.error = None;
+                    if !std::mem::take(&mut self.keep_error) {
+                        self.error = None;
+                    }
                     self.start_reduction();
                     if self.state.as_ref().is_some_and(|s| s.cell.path.is_some()) {
                         self.apply_start_options();
@@ -277,6 +278,11 @@ impl PollardApp {
                         "Could not open {}: {e}",
                         what.trim_start_matches("opening ")
                     ));
+                    if self.state.is_none() {
+                        // the first file failed: show the demo cell under the message
+                        self.keep_error = true;
+                        self.open_demo();
+                    }
                 }
             }
         }
