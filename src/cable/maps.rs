@@ -1,13 +1,13 @@
-//! Thin adapters over the one tree kernel ([`super::solve`]) for callers not yet moved to
-//! [`TreeMaps`] directly. They hold no numerics of their own.
+//! A thin adapter over the one tree kernel ([`super::solve`]) for callers not yet moved to
+//! [`TreeMaps`] directly (tests). It holds no numerics of its own.
 //!
 //! Replacements: `Maps::new(&net)` → `net.maps()`; `maps.d` / `.p` / `.u` / `.down` →
 //! `subtree_admittance()` / `parent_side()` / `rest_of_tree()` / `down()`;
 //! `maps.soma_transfer(&parent)` → `soma_transfer()`; `maps.site_ratio(&net, j)` →
-//! `site_ratio(j)`; `sweep(parent, g, shunt)` → `TreeMaps::new(parent, g, shunt)`.
+//! `site_ratio(j)`.
 
 use super::solve::TreeMaps;
-use super::{C64, Network, Scalar};
+use super::{C64, Network};
 
 /// The sweeps' results for one network (complex), as plain arrays.
 #[derive(Debug, Clone)]
@@ -21,30 +21,6 @@ pub struct Maps {
     /// Current-transfer ratio of each parent link towards the soma, g_k/(g_k + D_k).
     pub down: Vec<C64>,
     solved: TreeMaps<C64>,
-}
-
-/// What the two sweeps give, in any [`Scalar`] (`f64` at DC, `C64` at f > 0).
-#[derive(Debug, Clone, Default)]
-pub struct Sweep<T> {
-    /// P_k: admittance at k's parent of everything except k's branch (S); P_0 = 0.
-    pub p: Vec<T>,
-    /// g_k/(g_k + D_k): voltage ratio V_k/V_parent for current entering from the parent side.
-    pub down: Vec<T>,
-    /// Input impedance Z_kk = 1/(D_k + U_k) (Ω).
-    pub z_in: Vec<T>,
-    /// Transfer impedance to the soma Z_k0 (Ω).
-    pub z_soma: Vec<T>,
-}
-
-/// [`TreeMaps::new`] as plain arrays.
-pub fn sweep<T: Scalar>(parent: &[u32], g: &[T], shunt: &[T]) -> Sweep<T> {
-    let m = TreeMaps::new(parent, g, shunt);
-    Sweep {
-        p: m.parent_side().to_vec(),
-        down: m.down().to_vec(),
-        z_in: m.input_impedance().to_vec(),
-        z_soma: m.soma_transfer().to_vec(),
-    }
 }
 
 impl Maps {

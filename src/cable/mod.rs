@@ -184,19 +184,7 @@ impl Params {
     /// Checks that every parameter (and the frequency) is finite and in a range where the
     /// model means something.
     pub fn validate(&self, freq_hz: f64) -> Result<(), CableError> {
-        let check = |name, value: f64, lo, hi, unit| {
-            if value.is_finite() && value >= lo && value <= hi {
-                Ok(())
-            } else {
-                Err(CableError::ParamRange {
-                    name,
-                    value,
-                    lo,
-                    hi,
-                    unit,
-                })
-            }
-        };
+        let check = in_range;
         check("Rm", self.rm_ohm_cm2, 1.0, 1e8, "Ω·cm²")?;
         check("Ra", self.ra_ohm_cm, 1.0, 1e6, "Ω·cm")?;
         check("Cm", self.cm_uf_cm2, 0.01, 100.0, "µF/cm²")?;
@@ -214,6 +202,28 @@ impl Params {
     pub fn lambda_um(&self, d_um: f64) -> f64 {
         let d = d_um * UM;
         (self.rm_ohm_cm2 * d / (4.0 * self.ra_ohm_cm)).sqrt() / UM
+    }
+}
+
+/// Ok when `value` is finite and within lo..=hi, else the error naming it (the one range check
+/// of the cable settings, the preparation options and the lab).
+pub fn in_range(
+    name: &'static str,
+    value: f64,
+    lo: f64,
+    hi: f64,
+    unit: &'static str,
+) -> Result<(), CableError> {
+    if value.is_finite() && value >= lo && value <= hi {
+        Ok(())
+    } else {
+        Err(CableError::ParamRange {
+            name,
+            value,
+            lo,
+            hi,
+            unit,
+        })
     }
 }
 

@@ -25,27 +25,11 @@ pub struct PrepOptions {
 impl PrepOptions {
     /// Checks the options' values.
     pub fn validate(&self) -> Result<(), CableError> {
-        if let Some(s) = self.scale
-            && !(s.is_finite() && s > 0.0 && (1e-9..=1e9).contains(&s))
-        {
-            return Err(CableError::ParamRange {
-                name: "scale",
-                value: s,
-                lo: 1e-9,
-                hi: 1e9,
-                unit: "(a factor)",
-            });
+        if let Some(s) = self.scale {
+            super::in_range("scale", s, 1e-9, 1e9, "(a factor)")?;
         }
-        if let Some(d) = self.default_diameter_um
-            && !(d.is_finite() && (1e-4..=1e4).contains(&d))
-        {
-            return Err(CableError::ParamRange {
-                name: "default diameter",
-                value: d,
-                lo: 1e-4,
-                hi: 1e4,
-                unit: "µm",
-            });
+        if let Some(d) = self.default_diameter_um {
+            super::in_range("default diameter", d, 1e-4, 1e4, "µm")?;
         }
         Ok(())
     }

@@ -46,14 +46,6 @@ pub const RALL_TOLERANCE: f64 = 0.02;
 /// Why a lab tree cannot be built or computed.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum LabError {
-    #[error("{name} = {value} is outside the accepted range {lo} to {hi} {unit}")]
-    Range {
-        name: &'static str,
-        value: f64,
-        lo: f64,
-        hi: f64,
-        unit: &'static str,
-    },
     #[error("section {0} does not exist in this tree")]
     NoSection(usize),
     #[error(transparent)]
@@ -179,30 +171,19 @@ impl TreeSpec {
 
     /// Checks every number before anything is built.
     pub fn validate(&self) -> Result<(), LabError> {
-        let check = |name, value: f64, lo, hi, unit| {
-            if value.is_finite() && value >= lo && value <= hi {
-                Ok(())
-            } else {
-                Err(LabError::Range {
-                    name,
-                    value,
-                    lo,
-                    hi,
-                    unit,
-                })
-            }
-        };
+        let check = crate::cable::in_range;
         check("levels", self.levels as f64, 1.0, MAX_LEVELS as f64, "")?;
         check("segments per section", self.segments as f64, 1.0, 400.0, "")?;
         check("soma diameter", self.soma_diam_um, 0.0, 100.0, "µm")?;
         if self.level.len() < self.levels_used() {
-            return Err(LabError::Range {
+            return Err(CableError::ParamRange {
                 name: "level geometry entries",
                 value: self.level.len() as f64,
                 lo: self.levels_used() as f64,
                 hi: MAX_LEVELS as f64,
                 unit: "",
-            });
+            }
+            .into());
         }
         let pieces = self
             .level
