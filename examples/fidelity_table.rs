@@ -41,6 +41,41 @@ fn capacitance_rule() -> CapacitanceRule {
     }
 }
 
+/// The smallest time-to-peak error p95 any reduced tree could reach with this site → compartment
+/// map, whatever its dynamics: each compartment has one soma response, so one time-to-peak t for
+/// all its sites; a site is within relative error e when its own time-to-peak lies in
+/// [t/(1 + e), t/(1 − e)]. Bisection on e, each compartment's best window by two pointers over
+/// its sites' sorted times.
+fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -> f64 {
+    let mut by: Vec<Vec<f64>> = vec![Vec::new(); comps];
+    for r in rows {
+        by[r.compartment as usize].push(r.time_to_peak_full_ms.max(1e-9).ln());
+    }
+    by.iter_mut().for_each(|v| v.sort_by(f64::total_cmp));
+    let need = (0.95 * rows.len() as f64).ceil() as usize;
+    let covered = |e: f64| -> usize {
+        let width = ((1.0 + e) / (1.0 - e).max(1e-12)).ln();
+        by.iter()
+            .map(|v| {
+                let (mut best, mut j) = (0, 0);
+                for i in 0..v.len() {
+                    while v[i] - v[j] > width {
+                        j += 1;
+                    }
+                    best = best.max(i + 1 - j);
+                }
+                best
+            })
+            .sum()
+    };
+    let (mut lo, mut hi) = (0.0, 0.999);
+    for _ in 0..40 {
+        let mid = 0.5 * (lo + hi);
+        if covered(mid) >= need { hi = mid } else { lo = mid }
+    }
+    hi
+}
+
 fn flags(p: &PrepOptions) -> String {
     let mut s = Vec::new();
     if let Some(x) = p.scale {
@@ -73,6 +108,8 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
     for b in budgets {
         let tree = red.tree(b);
         let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
+        let (site_rows, _) = fid.sites(&tree, Some(&m)).map_err(|e| e.to_string())?;
+        let floor = ttp_partition_floor(&site_rows, tree.len());
         let (e, pe) = (r.epsp_peak_error_np, r.epsp_peak_error_percent);
         let got = if tree.len() < b {
             format!("{b} (max {})", tree.len())
@@ -80,7 +117,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
             b.to_string()
         };
         rows.push(format!(
-            "| {name} | {} | {got} | {:.2} / {:.2} | {:.2} / {:.2} | {:.0} % / {:.0} % ({:.2} / {:.2} Np) | {:.0} % | {:.1} % ({:.3} Np) | {} | {} | {:.0} | {} | {:.1} |",
+            "| {name} | {} | {got} | {:.2} / {:.2} | {:.2} / {:.2} | {:.0} % / {:.0} % ({:.2} / {:.2} Np) | {:.0} % (floor {:.0} %) | {:.1} % ({:.3} Np) | {} | {} | {:.0} | {} | {:.1} |",
             flags(&prep),
             r.ln_attenuation_to_soma_error_np.median,
             r.ln_attenuation_to_soma_error_np.p95,
@@ -91,6 +128,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
             e.median,
             e.p95,
             r.time_to_peak_error.p95 * 100.0,
+            floor * 100.0,
             percent(r.soma_epsp_peak_error_np),
             r.soma_epsp_peak_error_np,
             r.sites,
