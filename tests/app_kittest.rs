@@ -490,3 +490,78 @@ fn view_file_loads_only_that_file_and_falls_back_to_the_demo_on_failure() {
         app.error
     );
 }
+
+/// The site's morphology point, the budget, and the soma traces (full cell, reduced tree) shown.
+fn shown_traces(h: &Harness<'static, PollardApp>) -> (u32, usize, Vec<f64>, Vec<f64>) {
+    let sh = h.state().traces.shown.as_ref().expect("traces are shown");
+    (
+        sh.point,
+        sh.budget,
+        sh.full.soma_mv.clone(),
+        sh.reduced.soma_mv.clone(),
+    )
+}
+
+fn peak(v: &[f64]) -> f64 {
+    v.iter().fold(0.0f64, |m, x| m.max(x.abs()))
+}
+
+#[test]
+fn response_traces_follow_the_click_and_the_budget() {
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let (p0, b0, full0, red0) = shown_traces(&h);
+    {
+        let s = h.state().state.as_ref().unwrap();
+        assert_eq!(p0, s.cell.flat.node_point[s.site.unwrap()]);
+        assert_eq!(b0, s.budget);
+        // an inward current depolarises the soma, and a passive dendrite delays the soma's peak
+        // past the current's own peak at t = τ = 0.5 ms (Rall 1967; common knowledge)
+        let sh = h.state().traces.shown.as_ref().unwrap();
+        let (v, t) = sh.full.soma_peak();
+        assert!(v > 0.0 && t > 0.5, "peak {v} mV at {t} ms");
+    }
+    h.get_by_label_contains("peak: reduced");
+
+    // the budget slider: the reduced trace changes, the full cell's is the one kept
+    h.get_by_role_and_label(egui::Role::Slider, "Compartments")
+        .set_value_accesskit(3.0);
+    h.run_steps(2);
+    settle(&mut h);
+    let (p1, b1, full1, red1) = shown_traces(&h);
+    assert_eq!((p1, b1), (p0, 3));
+    assert_eq!(
+        full1, full0,
+        "the full cell's trace does not depend on the budget"
+    );
+    let (a, b) = (peak(&red0), peak(&red1));
+    assert!((a / b).ln().abs() > 1e-3, "reduced peaks {a} vs {b} mV");
+
+    // a click on another point: the traces are that site's
+    let p = {
+        let app = h.state();
+        let s = app.state.as_ref().unwrap();
+        let rect = app.left.last_rect.shrink(30.0);
+        // the visible point nearest the soma (the old site is the farthest tip)
+        let k = (1..s.cell.flat.len())
+            .filter(|&k| s.model.of_full[k] != pollard::morphology::NONE)
+            .filter(|&k| app.left.screen_of(k).is_some_and(|q| rect.contains(q)))
+            .min_by(|&a, &b| {
+                let d = |k: usize| s.model.path_distance[s.model.of_full[k] as usize];
+                d(a).total_cmp(&d(b))
+            })
+            .expect("a visible point");
+        app.left.screen_of(k).unwrap()
+    };
+    click_at(&mut h, p);
+    settle(&mut h);
+    let (p2, _, full2, _) = shown_traces(&h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(p2, s.cell.flat.node_point[s.site.unwrap()]);
+    assert_ne!(p2, p0);
+    let (a, b) = (peak(&full0), peak(&full2));
+    assert!(
+        (a / b).ln().abs() > 1e-2,
+        "soma peaks {a} (far tip) vs {b} mV (near the soma)"
+    );
+}

@@ -17,6 +17,7 @@ pub mod picture;
 pub mod reduction;
 pub mod state;
 pub mod synapses;
+pub mod traces;
 
 use canvas::{ArborCanvas, Camera, ReducedLayout, Side};
 use eframe::egui::{self, Color32, Vec2};
@@ -101,6 +102,8 @@ pub struct PollardApp {
     pub controls: ControlsPanel,
     pub synapse_panel: synapses::SynapsePanel,
     pub plots: PlotsPanel,
+    /// The soma voltage traces for the clicked site.
+    pub traces: traces::TracesView,
     pub scale: colour::Scale,
     colours: Option<colour::Colours>,
     colours_version: (u64, usize),
@@ -141,6 +144,7 @@ impl PollardApp {
             controls: ControlsPanel::default(),
             synapse_panel: synapses::SynapsePanel::default(),
             plots: PlotsPanel::default(),
+            traces: traces::TracesView::default(),
             scale: colour::Scale::new(),
             colours: None,
             colours_version: (0, 0),
@@ -235,7 +239,10 @@ impl PollardApp {
 
     /// True while something runs in the background.
     pub fn busy(&self) -> bool {
-        self.load_job.is_some() || self.reduce_job.is_some() || self.pending_dialog.is_some()
+        self.load_job.is_some()
+            || self.reduce_job.is_some()
+            || self.pending_dialog.is_some()
+            || self.traces.busy()
     }
 
     /// Applies finished background work. Called every frame.
@@ -306,6 +313,7 @@ impl PollardApp {
                 self.dialog_answered(purpose, path);
             }
         }
+        self.traces.poll();
         if let Some(lab_tree) = self.lab.take_send_to_main() {
             self.open_morphology(lab_tree.0, lab_tree.1);
             self.screen = Screen::Cell;
@@ -360,8 +368,7 @@ impl PollardApp {
     /// Blocks until background work is done and applied (for tests and scripted starts).
     pub fn wait_idle(&mut self) {
         let start = std::time::Instant::now();
-        while self.load_job.is_some() || self.reduce_job.is_some() || self.pending_dialog.is_some()
-        {
+        while self.busy() {
             self.poll();
             std::thread::sleep(std::time::Duration::from_millis(2));
             if start.elapsed().as_secs() > 300 {
@@ -581,7 +588,13 @@ impl PollardApp {
             .default_size(250.0)
             .min_size(160.0)
             .show(ui, |ui| match &self.state {
-                Some(s) => self.plots.ui(ui, s),
+                Some(s) => {
+                    egui::Panel::right("traces")
+                        .resizable(true)
+                        .default_size(ui.available_width() * 0.34)
+                        .show(ui, |ui| self.traces.ui(ui, s));
+                    self.plots.ui(ui, s);
+                }
                 None => {
                     ui.allocate_space(ui.available_size());
                 }

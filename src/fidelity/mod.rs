@@ -11,7 +11,10 @@
 
 mod traces;
 
-pub use traces::{Input, SiteRef, TraceOptions, Traces, resolve_site, response_traces, sites_csv};
+pub use traces::{
+    Input, SideTraces, SiteRef, TraceOptions, Traces, full_cell_traces, reduced_tree_traces,
+    resolve_site, response_traces, sites_csv,
+};
 
 use crate::cable::{CableError, network_arrays};
 use crate::morphology::{Morphology, NONE};

@@ -122,28 +122,33 @@ pub fn resolve_site(
     }
 }
 
-/// Soma and site traces for `input` at morphology point `point` (see [`resolve_site`]): the
-/// full cell's fine network and `tree`, integrated over the same times.
-pub fn response_traces(
-    reducer: &Reducer,
-    tree: &ReducedTree,
-    point: u32,
+/// One network's soma and site voltage (mV, relative to rest) over time.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SideTraces {
+    pub times_ms: Vec<f64>,
+    pub soma_mv: Vec<f64>,
+    pub site_mv: Vec<f64>,
+}
+
+impl SideTraces {
+    /// The soma trace's largest |V| (mV) and its time (ms), the first sample if all are 0.
+    pub fn soma_peak(&self) -> (f64, f64) {
+        let mut best = (0.0f64, 0.0f64);
+        for (v, t) in self.soma_mv.iter().zip(&self.times_ms) {
+            if v.abs() > best.0.abs() {
+                best = (*v, *t);
+            }
+        }
+        best
+    }
+}
+
+fn run(
+    net: &RcNetwork,
+    node: usize,
     input: &Input,
     opts: &TraceOptions,
-) -> Result<Traces, FidelityError> {
-    let kept = reducer.kept_flat();
-    let k = kept.point_node.get(point as usize).copied().unwrap_or(NONE);
-    let c = tree
-        .point_compartment
-        .get(point as usize)
-        .copied()
-        .unwrap_or(NONE);
-    if k == NONE || c == NONE || c as usize >= tree.len() {
-        return Err(FidelityError::Mismatch {
-            what: "the site is not a point of the reduced cell",
-        });
-    }
-    let fine = fine_network(kept, reducer.params(), opts.pieces)?;
+) -> Result<SideTraces, FidelityError> {
     let run_opts = RunOptions {
         dt_ms: opts.dt_ms,
         method: opts.method,
@@ -153,25 +158,80 @@ pub fn response_traces(
         track_peaks: false,
         growth: None,
     };
-    let drive = |node: usize| match *input {
+    let drive = match *input {
         Input::Current { waveform } => Drive::Current { node, waveform },
         Input::Synapse { synapse } => Drive::Synapse { node, synapse },
     };
-    let site = fine.node_of[k as usize] as usize;
-    let full = simulate(&fine.net, &drive(site), &[0, site], &run_opts)?;
+    let r = simulate(net, &drive, &[0, node], &run_opts)?;
+    let mut t = r.traces.into_iter();
+    Ok(SideTraces {
+        times_ms: r.times_ms,
+        soma_mv: t.next().unwrap_or_default(),
+        site_mv: t.next().unwrap_or_default(),
+    })
+}
+
+/// The full cell's half of [`response_traces`]: its fine network driven at morphology point
+/// `point` (the expensive half; it does not depend on the budget).
+pub fn full_cell_traces(
+    reducer: &Reducer,
+    point: u32,
+    input: &Input,
+    opts: &TraceOptions,
+) -> Result<SideTraces, FidelityError> {
+    let kept = reducer.kept_flat();
+    let k = kept.point_node.get(point as usize).copied().unwrap_or(NONE);
+    if k == NONE {
+        return Err(FidelityError::Mismatch {
+            what: "the site is not a point of the reduced cell",
+        });
+    }
+    let fine = fine_network(kept, reducer.params(), opts.pieces)?;
+    run(&fine.net, fine.node_of[k as usize] as usize, input, opts)
+}
+
+/// The reduced tree's half of [`response_traces`]: `tree` driven at the compartment that
+/// serves morphology point `point`. Returns the compartment too.
+pub fn reduced_tree_traces(
+    tree: &ReducedTree,
+    point: u32,
+    input: &Input,
+    opts: &TraceOptions,
+) -> Result<(u32, SideTraces), FidelityError> {
+    let c = tree
+        .point_compartment
+        .get(point as usize)
+        .copied()
+        .unwrap_or(NONE);
+    if c == NONE || c as usize >= tree.len() {
+        return Err(FidelityError::Mismatch {
+            what: "the site is not a point of the reduced cell",
+        });
+    }
     let net = RcNetwork::from_reduced(tree);
-    let red = simulate(&net, &drive(c as usize), &[0, c as usize], &run_opts)?;
-    let mut f = full.traces.into_iter();
-    let mut r = red.traces.into_iter();
+    Ok((c, run(&net, c as usize, input, opts)?))
+}
+
+/// Soma and site traces for `input` at morphology point `point` (see [`resolve_site`]): the
+/// full cell's fine network and `tree`, integrated over the same times.
+pub fn response_traces(
+    reducer: &Reducer,
+    tree: &ReducedTree,
+    point: u32,
+    input: &Input,
+    opts: &TraceOptions,
+) -> Result<Traces, FidelityError> {
+    let (c, red) = reduced_tree_traces(tree, point, input, opts)?;
+    let full = full_cell_traces(reducer, point, input, opts)?;
     Ok(Traces {
         point,
         swc_id: None,
         compartment: c,
         times_ms: full.times_ms,
-        soma_full_mv: f.next().unwrap_or_default(),
-        site_full_mv: f.next().unwrap_or_default(),
-        soma_reduced_mv: r.next().unwrap_or_default(),
-        site_reduced_mv: r.next().unwrap_or_default(),
+        soma_full_mv: full.soma_mv,
+        site_full_mv: full.site_mv,
+        soma_reduced_mv: red.soma_mv,
+        site_reduced_mv: red.site_mv,
     })
 }
 

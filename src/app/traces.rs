@@ -1,0 +1,241 @@
+//! The response-trace plot under the drawings: the soma voltage over time for a brief current
+//! at the clicked site, full cell vs reduced tree, with the peak error beside it.
+//!
+//! The full cell's half (its fine network, [`full_cell_traces`]) is the expensive one and does
+//! not depend on the budget: it runs on a background thread and is kept per site for the current
+//! reduction (a new membrane or new kept types make a new reduction, which empties the store).
+//! The reduced half is redone, in the same job, when the budget moves. One job at a time: a
+//! click during a run waits for it, then the latest wish is computed.
+
+use super::jobs::Job;
+use super::state::{CellState, Reduction};
+use crate::fidelity::{Input, SideTraces, TraceOptions, full_cell_traces, reduced_tree_traces};
+use crate::morphology::NONE;
+use crate::transient::Waveform;
+use eframe::egui::{self, Color32};
+use egui_plot::{Legend, Line, Plot};
+use std::sync::Arc;
+
+/// The test input: an alpha current I = I₀·(t/τ)·e^(1−t/τ) (τ = 0.5 ms, I₀ = 10 pA) flowing
+/// into the cell at the site (depolarising), as the fidelity report uses.
+pub const INPUT: Input = Input::Current {
+    waveform: Waveform::Alpha {
+        tau_ms: 0.5,
+        peak_pa: 10.0,
+    },
+};
+
+/// How many sites' full-cell traces are kept.
+const KEEP: usize = 32;
+
+/// What the traces are of: a reduction (by identity), a morphology point, a budget.
+#[derive(Clone)]
+struct Key {
+    reduction: Arc<Reduction>,
+    point: u32,
+    budget: usize,
+}
+
+impl PartialEq for Key {
+    fn eq(&self, o: &Key) -> bool {
+        Arc::ptr_eq(&self.reduction, &o.reduction)
+            && self.point == o.point
+            && self.budget == o.budget
+    }
+}
+
+/// Traces for one site at one budget.
+pub struct Shown {
+    key: Key,
+    /// Morphology point of the site.
+    pub point: u32,
+    pub budget: usize,
+    pub full: Arc<SideTraces>,
+    pub reduced: SideTraces,
+    /// The compartment serving the site, and how many the tree has.
+    pub compartment: u32,
+    pub compartments: usize,
+}
+
+impl Shown {
+    /// ln(peak_reduced/peak_full) of the soma traces (Np, signed: < 0 when the tree answers
+    /// too weakly).
+    pub fn peak_error_np(&self) -> f64 {
+        let (pf, _) = self.full.soma_peak();
+        let (pr, _) = self.reduced.soma_peak();
+        (pr.abs() / pf.abs()).ln()
+    }
+}
+
+/// The trace plot and what feeds it.
+pub struct TracesView {
+    pub shown: Option<Shown>,
+    pub error: Option<String>,
+    pub opts: TraceOptions,
+    job: Option<(Key, Job<Shown>)>,
+    /// Full-cell traces per morphology point, for `store_of`.
+    store: Vec<(u32, Arc<SideTraces>)>,
+    store_of: Option<Arc<Reduction>>,
+}
+
+impl Default for TracesView {
+    fn default() -> Self {
+        TracesView {
+            shown: None,
+            error: None,
+            opts: TraceOptions {
+                duration_ms: 40.0,
+                ..TraceOptions::default()
+            },
+            job: None,
+            store: Vec::new(),
+            store_of: None,
+        }
+    }
+}
+
+/// The traces the state asks for: its reduction, site and budget (None while there is none).
+fn wanted(s: &CellState) -> Option<Key> {
+    let r = s.reduction.as_ref()?;
+    let point = *s.cell.flat.node_point.get(s.site?)?;
+    if point == NONE {
+        return None;
+    }
+    let budget = s
+        .budget
+        .clamp(r.min_compartments(), r.max_compartments().max(1));
+    Some(Key {
+        reduction: r.clone(),
+        point,
+        budget,
+    })
+}
+
+impl TracesView {
+    /// True while traces are being computed.
+    pub fn busy(&self) -> bool {
+        self.job.is_some()
+    }
+
+    /// Takes a finished job's traces.
+    pub fn poll(&mut self) {
+        let Some((_, job)) = &self.job else { return };
+        let Some(r) = job.try_take() else { return };
+        self.job = None;
+        match r {
+            Ok(shown) => {
+                let of = &shown.key.reduction;
+                if !self.store_of.as_ref().is_some_and(|o| Arc::ptr_eq(o, of)) {
+                    self.store.clear();
+                    self.store_of = Some(of.clone());
+                }
+                if !self.store.iter().any(|(p, _)| *p == shown.point) {
+                    if self.store.len() >= KEEP {
+                        self.store.remove(0);
+                    }
+                    self.store.push((shown.point, shown.full.clone()));
+                }
+                self.error = None;
+                self.shown = Some(shown);
+            }
+            Err(e) => self.error = Some(format!("{e:#}")),
+        }
+    }
+
+    /// Starts the job the state asks for, unless it is shown, running, or another runs.
+    pub fn update(&mut self, s: &CellState, ctx: Option<egui::Context>) {
+        self.poll();
+        let Some(key) = wanted(s) else { return };
+        if self.job.is_some() || self.shown.as_ref().is_some_and(|sh| sh.key == key) {
+            return;
+        }
+        let stored = self
+            .store_of
+            .as_ref()
+            .filter(|o| Arc::ptr_eq(o, &key.reduction))
+            .and_then(|_| self.store.iter().find(|(p, _)| *p == key.point))
+            .map(|(_, f)| f.clone());
+        let (k, opts) = (key.clone(), self.opts);
+        let job = Job::spawn("computing the traces".into(), ctx, move |p| {
+            let reducer = k.reduction.reducer();
+            let full = match stored {
+                Some(f) => f,
+                None => {
+                    p.set("the full cell");
+                    Arc::new(full_cell_traces(reducer, k.point, &INPUT, &opts)?)
+                }
+            };
+            p.set("the reduced tree");
+            let tree = reducer.tree(k.budget);
+            let (compartment, reduced) = reduced_tree_traces(&tree, k.point, &INPUT, &opts)?;
+            Ok(Shown {
+                point: k.point,
+                budget: k.budget,
+                full,
+                reduced,
+                compartment,
+                compartments: tree.len(),
+                key: k,
+            })
+        });
+        self.job = Some((key, job));
+    }
+
+    /// The plot with its title and the peak error.
+    pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
+        self.update(s, Some(ui.ctx().clone()));
+        ui.horizontal(|ui| {
+            ui.label("Soma voltage for a brief current at the clicked point");
+            if let Some((_, job)) = &self.job {
+                ui.spinner();
+                ui.weak(job.status());
+            }
+        });
+        if let Some(e) = &self.error {
+            ui.colored_label(Color32::from_rgb(255, 110, 100), e);
+        }
+        if s.reduction.is_none() {
+            ui.weak(&s.reduction_note);
+        }
+        let Some(sh) = &self.shown else {
+            return;
+        };
+        let (pf, tf) = sh.full.soma_peak();
+        let (pr, tr) = sh.reduced.soma_peak();
+        let np = sh.peak_error_np();
+        // signed relative difference (e^x − 1)·100 of the peaks; typographic minus
+        let pct = format!("{:+.0}", np.exp_m1() * 100.0).replace('-', "−");
+        ui.label(format!(
+            "peak: reduced {pct} % vs cell ({np:+.2} Np) — cell {pf:.3} mV at {tf:.1} ms, \
+             reduced tree {pr:.3} mV at {tr:.1} ms",
+        ))
+        .on_hover_text(format!(
+            "10 pA alpha current (τ 0.5 ms) flowing into the cell at the site; the reduced tree \
+             gets it at compartment {} of {}. Voltage relative to rest.",
+            sh.compartment, sh.compartments
+        ));
+        let line = |t: &SideTraces| -> Vec<[f64; 2]> {
+            t.times_ms
+                .iter()
+                .zip(&t.soma_mv)
+                .map(|(&x, &y)| [x, y])
+                .collect()
+        };
+        Plot::new("traces")
+            .legend(Legend::default().position(egui_plot::Corner::RightTop))
+            .x_axis_label("time (ms)")
+            .y_axis_label("soma voltage above rest (mV)")
+            .show(ui, |pu| {
+                pu.line(
+                    Line::new("cell", line(&sh.full))
+                        .color(Color32::from_rgb(150, 150, 160))
+                        .width(2.0),
+                );
+                pu.line(
+                    Line::new("reduced tree", line(&sh.reduced))
+                        .color(Color32::from_rgb(250, 170, 60))
+                        .width(2.0),
+                );
+            });
+    }
+}
