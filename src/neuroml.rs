@@ -36,6 +36,10 @@ pub enum NeuromlError {
     BadRest(f64),
 }
 
+/// The resting potential written when none is asked for (mV): the leak's reversal and the
+/// initial potential (pollard's own numbers are relative to rest).
+pub const DEFAULT_REST_MV: f64 = -65.0;
+
 /// Relative difference above which a segment gets its own group.
 const EXACT: f64 = 1e-12;
 

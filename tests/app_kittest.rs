@@ -179,10 +179,12 @@ fn exports_a_figure_and_the_reduced_tree_to_a_folder() {
     let svg = dir.path().join("figure.svg");
     let json = dir.path().join("tree.json");
     let swc = dir.path().join("tree.swc");
+    let nml = dir.path().join("tree.cell.nml");
     let mut h = harness(app_with(vec![
         Some(svg.clone()),
         Some(json.clone()),
         Some(swc.clone()),
+        Some(nml.clone()),
     ]));
     settle(&mut h);
     h.get_by_label("Figure (SVG)…").click();
@@ -212,6 +214,11 @@ fn exports_a_figure_and_the_reduced_tree_to_a_folder() {
     let t = std::fs::read_to_string(&swc).expect("swc written");
     let m = pollard::Morphology::parse(&t, "tree.swc").expect("the saved SWC reads back");
     assert_eq!(m.len(), n);
+    h.get_by_label("Reduced tree (NeuroML)…").click();
+    h.run_steps(2);
+    let x = std::fs::read_to_string(&nml).expect("NeuroML written");
+    assert!(x.contains("<neuroml xmlns=\"http://www.neuroml.org/schema/neuroml2\""));
+    assert_eq!(x.matches("<segment id=").count(), n);
 }
 
 #[test]

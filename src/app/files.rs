@@ -14,6 +14,7 @@ pub enum Purpose {
     Open,
     SaveJson,
     SaveSwc,
+    SaveNeuroml,
     SaveSvg,
     SavePng,
     /// A tree of the branching lab as SWC.
@@ -27,6 +28,7 @@ impl Purpose {
             Purpose::Open => ("SWC reconstruction", &["swc", "SWC"]),
             Purpose::SaveJson => ("Reduced tree (JSON)", &["json"]),
             Purpose::SaveSwc => ("Reduced tree (SWC)", &["swc"]),
+            Purpose::SaveNeuroml => ("Reduced tree (NeuroML cell)", &["nml"]),
             Purpose::SaveSvg => ("Figure (SVG)", &["svg"]),
             Purpose::SavePng => ("Figure (PNG)", &["png"]),
             Purpose::ExportLabSwc => ("SWC reconstruction", &["swc"]),
@@ -39,6 +41,7 @@ impl Purpose {
             Purpose::Open | Purpose::OpenSynapses => String::new(),
             Purpose::SaveJson => format!("{base}-reduced.json"),
             Purpose::SaveSwc => format!("{base}-reduced.swc"),
+            Purpose::SaveNeuroml => format!("{base}-reduced.cell.nml"),
             Purpose::SaveSvg => format!("{base}-figure.svg"),
             Purpose::SavePng => format!("{base}-figure.png"),
             Purpose::ExportLabSwc => format!("{base}.swc"),

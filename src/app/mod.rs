@@ -407,7 +407,9 @@ impl PollardApp {
                 }
                 return;
             }
-            Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveSvg => self.export(purpose, &path),
+            Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveNeuroml | Purpose::SaveSvg => {
+                self.export(purpose, &path)
+            }
             Purpose::SavePng => {
                 if let Some(ctx) = &self.ctx {
                     let (tx, rx) = std::sync::mpsc::channel();
@@ -434,7 +436,7 @@ impl PollardApp {
         }
     }
 
-    /// Writes the reduced tree (JSON or SWC) or the figure (SVG) to `path`.
+    /// Writes the reduced tree (JSON, SWC or NeuroML) or the figure (SVG) to `path`.
     pub fn export(&mut self, purpose: Purpose, path: &Path) -> anyhow::Result<()> {
         let s = self
             .state
@@ -442,14 +444,14 @@ impl PollardApp {
             .ok_or_else(|| anyhow::anyhow!("no cell is open"))?;
         let inputs: Vec<&Path> = s.cell.path.iter().map(|p| p.as_path()).collect();
         let bytes = match purpose {
-            Purpose::SaveJson | Purpose::SaveSwc => {
+            Purpose::SaveJson | Purpose::SaveSwc | Purpose::SaveNeuroml => {
                 let r = s.reduction.as_ref().ok_or_else(|| {
                     anyhow::anyhow!("there is no reduced tree yet ({})", s.reduction_note)
                 })?;
-                if purpose == Purpose::SaveJson {
-                    r.export_json(s.budget)?
-                } else {
-                    r.export_swc(s.budget)?
+                match purpose {
+                    Purpose::SaveJson => r.export_json(s.budget)?,
+                    Purpose::SaveSwc => r.export_swc(s.budget)?,
+                    _ => r.export_neuroml(s.budget)?,
                 }
                 .into_bytes()
             }

@@ -359,6 +359,12 @@ fn save_section(ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
         {
             out.push(Action::Save(Purpose::SaveSwc));
         }
+        if ui
+            .add_enabled(has_tree, egui::Button::new("Reduced tree (NeuroML)…"))
+            .clicked()
+        {
+            out.push(Action::Save(Purpose::SaveNeuroml));
+        }
         if ui.button("Figure (SVG)…").clicked() {
             out.push(Action::Save(Purpose::SaveSvg));
         }

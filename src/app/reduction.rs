@@ -199,6 +199,19 @@ impl Reduction {
         )?)
     }
 
+    /// The reduced tree at `budget` as a NeuroML cell (rest at the CLI's default).
+    pub fn export_neuroml(&self, budget: usize) -> anyhow::Result<String> {
+        let t = self.reducer.tree(budget);
+        let id = crate::neuroml::cell_id_from(&self.source);
+        let rest = crate::neuroml::DEFAULT_REST_MV;
+        Ok(crate::neuroml::reduced_tree_neuroml(
+            &t,
+            &id,
+            &self.source,
+            rest,
+        )?)
+    }
+
     /// The reduced tree at `budget` as SWC text.
     pub fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
         let t = self.reducer.tree(budget);

@@ -85,7 +85,7 @@ pub struct Args {
     #[arg(
         long = "neuroml-rest",
         allow_negative_numbers = true,
-        default_value_t = -65.0,
+        default_value_t = pollard::neuroml::DEFAULT_REST_MV,
         value_name = "MV"
     )]
     pub neuroml_rest: f64,
