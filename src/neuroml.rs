@@ -14,9 +14,12 @@
 //! Each compartment is first drawn as its equivalent cylinder under the cell's Rm and Ra (the
 //! radius and length that give its g and G: r³ = (g·Ra/π)·(G·Rm/2π), l = G·Rm/(2π·r)). The
 //! exporter then measures every segment exactly as a reader will (from the printed coordinates)
-//! and puts a segment whose g, G or C would then differ from the tree's by more than 1e-12
-//! (relative) in a group of its own, with the resistivity and densities that make it exact.
+//! and, for each of resistivity, leak density and specific capacitance separately, gives a
+//! segment whose g, G or C would differ from the tree's by more than 1e-12 (relative) a value of
+//! its own (on a group `segment_K`; the others take the cell's value on `all` or
+//! `<property>_uniform`). With fitted capacitances that is one capacitance line per segment.
 
+use crate::cable::Params;
 use crate::reduce::ReducedTree;
 use std::f64::consts::PI;
 use std::fmt::Write as _;
@@ -53,8 +56,24 @@ pub struct Segment {
     pub resistivity_ohm_cm: f64,
     pub leak_s_per_cm2: f64,
     pub capacitance_uf_per_cm2: f64,
-    /// True when the segment needs properties of its own (not the cell's Rm, Ra, Cm).
-    pub own_group: bool,
+    /// Which of resistivity, leak density and specific capacitance (in that order) the segment
+    /// needs of its own instead of the cell's Ra, 1/Rm and Cm.
+    pub own: [bool; 3],
+}
+
+impl Segment {
+    /// True when the segment needs any property of its own (and so a group of its own).
+    pub fn own_group(&self) -> bool {
+        self.own.iter().any(|&x| x)
+    }
+
+    fn property(&self, k: usize) -> f64 {
+        [
+            self.resistivity_ohm_cm,
+            self.leak_s_per_cm2,
+            self.capacitance_uf_per_cm2,
+        ][k]
+    }
 }
 
 /// Length of a segment as a reader computes it from the printed coordinates (µm).
@@ -151,7 +170,7 @@ pub fn segments(tree: &ReducedTree) -> Result<Vec<Segment>, NeuromlError> {
             resistivity_ohm_cm: ra,
             leak_s_per_cm2: 1.0 / rm,
             capacitance_uf_per_cm2: cm,
-            own_group: false,
+            own: [false; 3],
         };
         // measure as the reader will; the diameter then gives the leak with the cell's Rm at
         // that length (or, without leak, the axial conductance with its Ra)
@@ -176,13 +195,19 @@ pub fn segments(tree: &ReducedTree) -> Result<Vec<Segment>, NeuromlError> {
         } else {
             ra
         };
-        s.own_group = rel(need_leak, 1.0 / rm) > EXACT
-            || rel(need_cap, cm) > EXACT
-            || rel(need_ra, ra) > EXACT;
-        if s.own_group {
-            s.leak_s_per_cm2 = need_leak;
-            s.capacitance_uf_per_cm2 = need_cap;
+        s.own = [
+            rel(need_ra, ra) > EXACT,
+            rel(need_leak, 1.0 / rm) > EXACT,
+            rel(need_cap, cm) > EXACT,
+        ];
+        if s.own[0] {
             s.resistivity_ohm_cm = need_ra;
+        }
+        if s.own[1] {
+            s.leak_s_per_cm2 = need_leak;
+        }
+        if s.own[2] {
+            s.capacitance_uf_per_cm2 = need_cap;
         }
         out.push(s);
     }
@@ -264,59 +289,75 @@ pub fn reduced_tree_neuroml(
         pt(&mut o, "distal", &s.distal, s.diameter_um);
         let _ = writeln!(o, "      </segment>");
     }
-    let own: Vec<usize> = (0..segs.len()).filter(|&k| segs[k].own_group).collect();
-    let _ = writeln!(o, r#"      <segmentGroup id="uniform">"#);
-    for k in (0..segs.len()).filter(|&k| !segs[k].own_group) {
-        let _ = writeln!(o, r#"        <member segment="{k}"/>"#);
-    }
-    let _ = writeln!(o, "      </segmentGroup>");
-    for &k in &own {
-        let _ = writeln!(
-            o,
-            r#"      <segmentGroup id="segment_{k}">
-        <member segment="{k}"/>
-      </segmentGroup>"#
-        );
-    }
-    let _ = writeln!(
-        o,
-        r#"      <segmentGroup id="soma_group">
-        <member segment="0"/>
-      </segmentGroup>"#
-    );
-    let _ = writeln!(o, r#"      <segmentGroup id="all">"#);
-    let _ = writeln!(o, r#"        <include segmentGroup="uniform"/>"#);
-    for &k in &own {
-        let _ = writeln!(o, r#"        <include segmentGroup="segment_{k}"/>"#);
-    }
-    let _ = writeln!(o, "      </segmentGroup>");
+    write_groups(&mut o, &segs);
     let _ = writeln!(o, "    </morphology>");
-    // one property line per group: the uniform group first, then the segments of their own
-    let groups: Vec<(String, Segment)> = std::iter::once((
-        "uniform".to_string(),
-        Segment {
-            resistivity_ohm_cm: p.ra_ohm_cm,
-            leak_s_per_cm2: 1.0 / p.rm_ohm_cm2,
-            capacitance_uf_per_cm2: p.cm_uf_cm2,
-            ..segs[0]
-        },
-    ))
-    .chain(own.iter().map(|&k| (format!("segment_{k}"), segs[k])))
-    .collect();
+    write_biophysics(&mut o, &segs, &tree.params, cell_id, rest_mv);
+    let _ = writeln!(o, "  </cell>");
+    let _ = writeln!(o, "</neuroml>");
+    Ok(o)
+}
+
+/// The three properties: NeuroML element, group name prefix, unit.
+const PROPERTIES: [(&str, &str); 3] = [
+    ("resistivity", "ohm_cm"),
+    ("leak", "S_per_cm2"),
+    ("capacitance", "uF_per_cm2"),
+];
+
+/// Segment groups: `all`; per property with exceptions, `<property>_uniform` (the segments that
+/// take the cell's value); `segment_K` for each segment with a property of its own. So every
+/// property's groups partition the segments.
+fn write_groups(o: &mut String, segs: &[Segment]) {
+    let members = |o: &mut String, id: &str, ks: &mut dyn Iterator<Item = usize>| {
+        let _ = writeln!(o, r#"      <segmentGroup id="{id}">"#);
+        for k in ks {
+            let _ = writeln!(o, r#"        <member segment="{k}"/>"#);
+        }
+        let _ = writeln!(o, "      </segmentGroup>");
+    };
+    members(o, "all", &mut (0..segs.len()));
+    members(o, "soma_group", &mut std::iter::once(0));
+    for (p, (name, _)) in PROPERTIES.iter().enumerate() {
+        if segs.iter().any(|s| s.own[p]) && segs.iter().any(|s| !s.own[p]) {
+            let id = format!("{name}_uniform");
+            members(o, &id, &mut (0..segs.len()).filter(|&k| !segs[k].own[p]));
+        }
+    }
+    for (k, _) in segs.iter().enumerate().filter(|(_, s)| s.own_group()) {
+        members(o, &format!("segment_{k}"), &mut std::iter::once(k));
+    }
+}
+
+/// The (group, value) lines of property `p`: the cell's value on `all` or on
+/// `<property>_uniform`, then each segment that has its own.
+fn property_lines(segs: &[Segment], p: usize, cell_value: f64) -> Vec<(String, f64)> {
+    let name = PROPERTIES[p].0;
+    let n_own = segs.iter().filter(|s| s.own[p]).count();
+    let mut out = Vec::with_capacity(n_own + 1);
+    if n_own == 0 {
+        out.push(("all".to_string(), cell_value));
+    } else if n_own < segs.len() {
+        out.push((format!("{name}_uniform"), cell_value));
+    }
+    for (k, s) in segs.iter().enumerate().filter(|(_, s)| s.own[p]) {
+        out.push((format!("segment_{k}"), s.property(p)));
+    }
+    out
+}
+
+fn write_biophysics(o: &mut String, segs: &[Segment], p: &Params, cell_id: &str, rest_mv: f64) {
     let _ = writeln!(o, "    <biophysicalProperties id=\"{cell_id}_biophysics\">");
     let _ = writeln!(o, "      <membraneProperties>");
-    for (g, s) in &groups {
+    for (g, v) in property_lines(segs, 1, 1.0 / p.rm_ohm_cm2) {
         let _ = writeln!(
             o,
-            r#"        <channelDensity id="leak_{g}" ionChannel="passive" condDensity="{:e} S_per_cm2" erev="{rest_mv:e} mV" segmentGroup="{g}" ion="non_specific"/>"#,
-            s.leak_s_per_cm2
+            r#"        <channelDensity id="leak_{g}" ionChannel="passive" condDensity="{v:e} S_per_cm2" erev="{rest_mv:e} mV" segmentGroup="{g}" ion="non_specific"/>"#
         );
     }
-    for (g, s) in &groups {
+    for (g, v) in property_lines(segs, 2, p.cm_uf_cm2) {
         let _ = writeln!(
             o,
-            r#"        <specificCapacitance value="{:e} uF_per_cm2" segmentGroup="{g}"/>"#,
-            s.capacitance_uf_per_cm2
+            r#"        <specificCapacitance value="{v:e} uF_per_cm2" segmentGroup="{g}"/>"#
         );
     }
     let _ = writeln!(
@@ -325,18 +366,14 @@ pub fn reduced_tree_neuroml(
     );
     let _ = writeln!(o, "      </membraneProperties>");
     let _ = writeln!(o, "      <intracellularProperties>");
-    for (g, s) in &groups {
+    for (g, v) in property_lines(segs, 0, p.ra_ohm_cm) {
         let _ = writeln!(
             o,
-            r#"        <resistivity value="{:e} ohm_cm" segmentGroup="{g}"/>"#,
-            s.resistivity_ohm_cm
+            r#"        <resistivity value="{v:e} ohm_cm" segmentGroup="{g}"/>"#
         );
     }
     let _ = writeln!(o, "      </intracellularProperties>");
     let _ = writeln!(o, "    </biophysicalProperties>");
-    let _ = writeln!(o, "  </cell>");
-    let _ = writeln!(o, "</neuroml>");
-    Ok(o)
 }
 
 fn role_name(r: crate::reduce::Role) -> &'static str {
@@ -449,10 +486,16 @@ mod tests {
         }
         // children start where their parent's node is
         assert_eq!(segs[3].proximal, segs[1].distal);
-        assert!(!segs[0].own_group && !segs[1].own_group);
-        assert!(segs[3].own_group && segs[4].own_group);
+        assert!(!segs[0].own_group() && !segs[1].own_group());
+        // C ≠ τG: only the capacitance is its own; no leak: leak and capacitance
+        assert_eq!(segs[3].own, [false, false, true]);
+        assert_eq!(segs[4].own, [false, true, true]);
         let nml = reduced_tree_neuroml(&t, "test_cell", "a <test> & more", -70.0).unwrap();
         assert!(nml.contains(r#"<segmentGroup id="segment_3">"#));
+        // the cell's Ra holds for most segments (the stiff link far out may need its own)
+        assert!(nml.contains(r#"<resistivity value="1.5e2 ohm_cm" segmentGroup=""#));
+        assert!(nml.matches("<resistivity ").count() <= 2);
+        assert!(nml.contains(r#"segmentGroup="capacitance_uniform"/>"#));
         assert!(nml.contains(r#"condDensity="0e0 S_per_cm2""#));
         assert!(nml.contains("a &lt;test&gt; &amp; more"));
         assert_eq!(nml.matches("<segment id=").count(), 5);

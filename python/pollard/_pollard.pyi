@@ -74,7 +74,7 @@ class ReducedTree:
     def swc_type(self) -> npt.NDArray[np.int32]: ...
     @property
     def role(self) -> List[str]:
-        """soma, branch_point, tip, junction or soma_leaf per compartment."""
+        """soma, branch_point, tip, junction, soma_leaf or section_point per compartment."""
     @property
     def point_ids(self) -> npt.NDArray[np.int64]:
         """SWC id of every point of the cell, in the order of point_compartment."""
@@ -150,12 +150,14 @@ def reduce(
     cm: float = 1.0,
     freq: float = 100.0,
     junction_fraction: float = 1e-4,
+    capacitance: str = "fitted",
     scale: Optional[float] = None,
     default_diameter: Optional[float] = None,
 ) -> ReducedTree:
     """Reduces a cell to a strict binary tree of `compartments` compartments (odd; an even
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
-    (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is)."""
+    (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
+    `capacitance`: "fitted" (to the cell's transfer impedances) or "uniform" (C = Rm·Cm·G)."""
 
 def synth_cell(path: PathLike, points: int, seed: int = 1) -> None:
     """Writes an invented cell of about `points` points (deterministic for a seed)."""

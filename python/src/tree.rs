@@ -7,7 +7,9 @@ use pollard::cable::Params;
 use pollard::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
 use pollard::fidelity::{Fidelity, FidelityOptions};
 use pollard::morphology::NONE;
-use pollard::reduce::{Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv};
+use pollard::reduce::{
+    CapacitanceRule, Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv,
+};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use serde_json::Value;
@@ -379,6 +381,7 @@ fn role_name(r: Role) -> &'static str {
         Role::Tip => "tip",
         Role::Junction => "junction",
         Role::SomaLeaf => "soma_leaf",
+        Role::SectionPoint => "section_point",
     }
 }
 
@@ -408,7 +411,7 @@ fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
 /// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
 /// command `pollard reduce`).
 #[pyfunction]
-#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, freq=100.0, junction_fraction=1e-4, scale=None, default_diameter=None))]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None))]
 #[allow(clippy::too_many_arguments)]
 pub fn reduce(
     py: Python<'_>,
@@ -421,9 +424,19 @@ pub fn reduce(
     cm: f64,
     freq: f64,
     junction_fraction: f64,
+    capacitance: &str,
     scale: Option<f64>,
     default_diameter: Option<f64>,
 ) -> PyResult<ReducedTree> {
+    let capacitance = match capacitance {
+        "fitted" => CapacitanceRule::Fitted,
+        "uniform" => CapacitanceRule::Uniform,
+        other => {
+            return Err(fail(format!(
+                "capacitance: {other:?} is neither \"fitted\" nor \"uniform\""
+            )));
+        }
+    };
     let (m, prep) = cell_of(py, cell, scale, default_diameter)?;
     let site_text = sites.map(sites_text).transpose()?;
     let params = Params {
@@ -450,6 +463,7 @@ pub fn reduce(
             sites,
             freq_hz: freq,
             junction_length_fraction: junction_fraction,
+            capacitance,
         };
         let reducer = Reducer::new(&flat, &params, &opts).map_err(|e| format!("{name}: {e}"))?;
         let tree = reducer.tree(compartments);
@@ -488,6 +502,7 @@ fn role_of(s: &str) -> Result<Role, String> {
         "tip" => Role::Tip,
         "junction" => Role::Junction,
         "soma_leaf" => Role::SomaLeaf,
+        "section_point" => Role::SectionPoint,
         _ => return Err(format!("unknown compartment role {s:?}")),
     })
 }
