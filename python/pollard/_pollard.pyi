@@ -148,7 +148,7 @@ def reduce(
     rm: float = 20000.0,
     ra: float = 150.0,
     cm: float = 1.0,
-    freq: float = 100.0,
+    impedance_freq: float = 100.0,
     junction_fraction: float = 1e-4,
     capacitance: str = "fitted",
     scale: Optional[float] = None,

@@ -411,7 +411,7 @@ fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
 /// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
 /// command `pollard reduce`).
 #[pyfunction]
-#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None))]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None))]
 #[allow(clippy::too_many_arguments)]
 pub fn reduce(
     py: Python<'_>,
@@ -422,7 +422,7 @@ pub fn reduce(
     rm: f64,
     ra: f64,
     cm: f64,
-    freq: f64,
+    impedance_freq: f64,
     junction_fraction: f64,
     capacitance: &str,
     scale: Option<f64>,
@@ -461,7 +461,7 @@ pub fn reduce(
         let opts = ReduceOptions {
             types,
             sites,
-            freq_hz: freq,
+            freq_hz: impedance_freq,
             junction_length_fraction: junction_fraction,
             capacitance,
         };
