@@ -71,7 +71,11 @@ fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -
     let (mut lo, mut hi) = (0.0, 0.999);
     for _ in 0..40 {
         let mid = 0.5 * (lo + hi);
-        if covered(mid) >= need { hi = mid } else { lo = mid }
+        if covered(mid) >= need {
+            hi = mid
+        } else {
+            lo = mid
+        }
     }
     hi
 }

@@ -265,24 +265,31 @@ impl PeakTracker {
         }
     }
 
-    /// Finishes step `step` in one pass: `x` holds the solve's result, which becomes the new
-    /// voltage (2x − v for Crank–Nicolson); `v` is the previous step's. Returns how many nodes
-    /// set a new peak.
-    fn update(&mut self, step: usize, x: &mut [f64], v: &[f64], cn: bool) -> usize {
+    /// Finishes step `step` in one pass (see [`finish_step`]) and keeps the peaks. Returns how
+    /// many nodes set a new peak.
+    fn update(
+        &mut self,
+        step: usize,
+        v: &mut [f64],
+        y: &mut [f64],
+        c_h: &[f64],
+        cn: bool,
+    ) -> usize {
         let s = self.sign;
         let mut rising = 0;
-        for k in 0..x.len() {
-            let vn = if cn { 2.0 * x[k] - v[k] } else { x[k] };
-            x[k] = vn;
-            let y = s * vn;
-            if y > self.peak[k] {
-                self.peak[k] = y;
+        for k in 0..y.len() {
+            let vn = if cn { 2.0 * y[k] - v[k] } else { y[k] };
+            let x = s * vn;
+            if x > self.peak[k] {
+                self.peak[k] = x;
                 self.idx[k] = step;
                 self.before[k] = s * v[k];
                 rising += 1;
             } else if self.idx[k] + 1 == step {
-                self.after[k] = y;
+                self.after[k] = x;
             }
+            v[k] = vn;
+            y[k] = c_h[k] * vn;
         }
         rising
     }
@@ -365,6 +372,16 @@ fn validate_run(
     Ok((min_ms, max_ms))
 }
 
+/// The end of a step in one pass: the solve's result `y` gives the new voltage (2y − v for
+/// Crank–Nicolson, y for backward Euler) into `v`, and `y` becomes the next right-hand side C/h·v.
+fn finish_step(v: &mut [f64], y: &mut [f64], c_h: &[f64], cn: bool) {
+    for k in 0..y.len() {
+        let vn = if cn { 2.0 * y[k] - v[k] } else { y[k] };
+        v[k] = vn;
+        y[k] = c_h[k] * vn;
+    }
+}
+
 /// M = C/h + A factored for one dt (h = dt, or dt/2 for Crank–Nicolson), with M⁻¹e_s for a
 /// synapse at s.
 struct Stepper {
@@ -393,11 +410,9 @@ impl Stepper {
         Stepper { dt, c_h, lu, z }
     }
 
-    /// One step from t0 to t1: `x` ← the solve of (M + γ e_s e_sᵀ)x = C/h·v + input.
-    fn solve(&self, drive: &Drive, cn: bool, v: &[f64], x: &mut [f64], t0: f64, t1: f64) {
-        for k in 0..x.len() {
-            x[k] = self.c_h[k] * v[k];
-        }
+    /// One step from t0 to t1: `x` holds C/h·v on entry and the solve of
+    /// (M + γ e_s e_sᵀ)x = C/h·v + input on return.
+    fn solve(&self, drive: &Drive, cn: bool, x: &mut [f64], t0: f64, t1: f64) {
         match *drive {
             Drive::Current { node, waveform } => {
                 x[node] += if cn {
@@ -448,8 +463,9 @@ pub fn simulate(
     };
     let mut st = Stepper::new(net, dt0, cn, syn);
     let fixed_steps = (max_ms / dt0).round() as usize;
+    // v: the voltage; y: C/h·v (the next right-hand side), then the solve's result
     let mut v = vec![0.0; n];
-    let mut x = vec![0.0; n];
+    let mut y = vec![0.0; n];
     let mut tracker = opts.track_peaks.then(|| PeakTracker::new(n, sign));
     let mut times = vec![0.0];
     let mut traces: Vec<Vec<f64>> = record.iter().map(|_| vec![0.0]).collect();
@@ -465,24 +481,22 @@ pub fn simulate(
             Some(g) => {
                 if t0 >= g.after_ms && g.ratio * t0 >= 1.25 * st.dt {
                     st = Stepper::new(net, 1.25 * st.dt, cn, syn);
+                    for k in 0..n {
+                        y[k] = st.c_h[k] * v[k];
+                    }
                 }
                 t0 + st.dt
             }
         };
-        st.solve(drive, cn, &v, &mut x, t0, t1);
+        st.solve(drive, cn, &mut y, t0, t1);
         step += 1;
         let rising = match tracker.as_mut() {
-            Some(tr) => tr.update(step, &mut x, &v, cn),
+            Some(tr) => tr.update(step, &mut v, &mut y, &st.c_h, cn),
             None => {
-                if cn {
-                    for k in 0..n {
-                        x[k] = 2.0 * x[k] - v[k];
-                    }
-                }
+                finish_step(&mut v, &mut y, &st.c_h, cn);
                 0
             }
         };
-        std::mem::swap(&mut v, &mut x);
         times.push(t1);
         for (tr, &k) in traces.iter_mut().zip(record) {
             tr.push(v[k]);
