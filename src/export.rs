@@ -263,8 +263,14 @@ fn tree_json<B: serde::Serialize>(
             tau_ms: p.tau_ms(),
             freq_hz: o.freq_hz,
             types_kept: o.types.as_deref(),
-            sites: match o.sites {
+            sites: match &o.sites {
                 crate::reduce::Sites::Default => "default",
+                crate::reduce::Sites::List(l)
+                    if l.iter()
+                        .any(|x| matches!(x, crate::reduce::SiteSpec::Weighted { .. })) =>
+                {
+                    "synapses"
+                }
                 crate::reduce::Sites::List(_) => "list",
             },
             junction_length_fraction: o.junction_length_fraction,

@@ -273,6 +273,7 @@ fn the_same_table_in_nanometres_with_scale_gives_the_same_matrix() {
     assert_eq!(a["matrix"], b["matrix"]);
     assert_eq!(a["synapses"]["compartment"], b["synapses"]["compartment"]);
     assert_eq!(a["summary"]["synapses"], 765);
+    assert_eq!(um["parameters"]["sites"], "synapses");
     let da = a["synapses"]["snap_distance_um"].as_array().unwrap();
     let db = b["synapses"]["snap_distance_um"].as_array().unwrap();
     for (x, y) in da.iter().zip(db) {

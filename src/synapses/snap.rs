@@ -100,26 +100,14 @@ fn kept_nodes(flat: &Flat, types: Option<&[i32]>) -> Vec<bool> {
     keep
 }
 
-/// Places every synapse of `table` on `flat` (the prepared cell of `morph`, already scaled).
-pub fn snap(
+/// Where each row goes: Ok((node, point, snap distance)) or the row's fault. Positions are
+/// placed in parallel through a k-d tree of the kept points.
+fn place_all(
     table: &SynapseTable,
     morph: &Morphology,
     flat: &Flat,
     opts: &SnapOptions,
-) -> Result<Snapped, SynapseError> {
-    let file = &table.file;
-    let row_err = |line: usize, message: String| SynapseError::Row {
-        file: file.clone(),
-        line,
-        message,
-    };
-    let limit = opts.limit_um;
-    if !(limit.is_finite() && limit >= 0.0) {
-        return Err(SynapseError::Table {
-            file: file.clone(),
-            message: format!("the snap limit {limit} µm is not a finite number ≥ 0"),
-        });
-    }
+) -> Vec<Result<(u32, u32, f64), String>> {
     let keep = kept_nodes(flat, opts.types.as_deref());
     let radius: Vec<f64> = (0..flat.len())
         .map(|k| {
@@ -157,7 +145,7 @@ pub fn snap(
         if x < 0.0 { 0.0 } else { x } // NaN stays NaN
     };
     // Ok((node, point, distance)) or Err(message)
-    let placed: Vec<Result<(u32, u32, f64), String>> = table
+    table
         .rows
         .par_iter()
         .map(|r| match r.location {
@@ -194,7 +182,30 @@ pub fn snap(
                 Ok(best)
             }
         })
-        .collect();
+        .collect()
+}
+
+/// Places every synapse of `table` on `flat` (the prepared cell of `morph`, already scaled).
+pub fn snap(
+    table: &SynapseTable,
+    morph: &Morphology,
+    flat: &Flat,
+    opts: &SnapOptions,
+) -> Result<Snapped, SynapseError> {
+    let file = &table.file;
+    let row_err = |line: usize, message: String| SynapseError::Row {
+        file: file.clone(),
+        line,
+        message,
+    };
+    let limit = opts.limit_um;
+    if !(limit.is_finite() && limit >= 0.0) {
+        return Err(SynapseError::Table {
+            file: file.clone(),
+            message: format!("the snap limit {limit} µm is not a finite number ≥ 0"),
+        });
+    }
+    let placed = place_all(table, morph, flat, opts);
     let mut out = Snapped {
         file: file.clone(),
         inputs: table.inputs.clone(),
