@@ -160,7 +160,7 @@ fn leaf_targets(
 /// into the node they hang from (g·D/(g + D)); each path node x between kept a and b is
 /// eliminated top-down: S = g_up + g_dn + G_x, new link g_up·g_dn/S, a gains g_up·G_x/S and the
 /// next node down g_dn·G_x/S. All values stay ≥ 0. O(N).
-pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[Vec<C64>]) -> Kept {
+pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
     let n = fine.len();
     let (p, g) = (&fine.parent, &fine.g);
     let mut has = kept.to_vec();
@@ -228,7 +228,7 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[Vec<C64>]) -> Kept {
 fn serving(
     fine: &Fine,
     kept: &[bool],
-    dynamics: &[Vec<C64>],
+    dynamics: &[&[C64]],
     (has, kept_child, top): (&[bool], &[u32], &[u32]),
     out: &Kept,
 ) -> Vec<u32> {

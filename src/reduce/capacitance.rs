@@ -176,7 +176,9 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         target,
         weight,
     };
-    let theta = lbfgs(&prob, n, 200);
+    // iterations shrink with the tree so any budget stays quick (200 up to 63 compartments)
+    let iters = (200 * 63 / n).clamp(30, 200);
+    let theta = lbfgs(&prob, n, iters);
     let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
         fitted

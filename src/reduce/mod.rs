@@ -557,9 +557,9 @@ impl Reducer {
             }
         }
         let lz = self.full_log_transfer();
-        let dynamics: Vec<Vec<C64>> = capacitance::SERVE_HZ_INDEX
+        let dynamics: Vec<&[C64]> = capacitance::SERVE_HZ_INDEX
             .iter()
-            .filter_map(|&i| lz.get(i).cloned())
+            .filter_map(|&i| lz.get(i).map(Vec::as_slice))
             .collect();
         let kron = build::kron(fine, &keep, &dynamics);
         let m = kron.node.len();
