@@ -420,3 +420,60 @@ fn batch_picks_up_the_table_beside_each_cell() {
         serde_json::from_str(&std::fs::read_to_string(out.join("c.json")).unwrap()).unwrap();
     assert!(v.get("synapses").is_none());
 }
+
+#[test]
+fn the_csv_files_hold_the_same_map_as_the_json() {
+    let dir = tempfile::tempdir().unwrap();
+    let cell = manifest("sample_cells/practice_pyramidal.swc");
+    let table = dir.path().join("t.csv");
+    // an input name with a comma and a quote, and one far synapse left out
+    std::fs::write(
+        &table,
+        "input,x,y,z,weight\n\"a, \"\"b\"\"\",0,8.632,0,2\nc,0,9,0,1\nc,900,900,900,1\n",
+    )
+    .unwrap();
+    let prefix = dir.path().join("map");
+    let v = synapse_json(
+        dir.path(),
+        &cell,
+        &table,
+        &["--skip-far", "--synapse-csv", prefix.to_str().unwrap()],
+    );
+    let read = |n: &str| std::fs::read_to_string(dir.path().join(format!("map.{n}.csv"))).unwrap();
+    let inputs = read("inputs");
+    assert_eq!(
+        inputs.lines().next().unwrap(),
+        "row,input,synapses,weight,compartments,sharing,most_on_one"
+    );
+    assert!(inputs.contains("0,\"a, \"\"b\"\"\",1,2,1,0,1"), "{inputs}");
+    let matrix = read("matrix");
+    let rows: Vec<Vec<&str>> = matrix
+        .lines()
+        .skip(1)
+        .map(|l| l.split(',').collect())
+        .collect();
+    let m = &v["synapses"]["matrix"];
+    assert_eq!(rows.len(), m["row"].as_array().unwrap().len());
+    for (i, r) in rows.iter().enumerate() {
+        assert_eq!(r[0], m["row"][i].to_string());
+        assert_eq!(r[1], m["column"][i].to_string());
+        assert_eq!(r[2], m["count"][i].to_string());
+    }
+    let syn = read("synapses");
+    let lines: Vec<&str> = syn.lines().collect();
+    assert_eq!(
+        lines[0],
+        "line,row,compartment,snap_distance_um,swc_id,left_out"
+    );
+    assert_eq!(lines.len(), 4);
+    assert!(
+        lines[3].starts_with("4,1,,") && lines[3].ends_with(",,1"),
+        "{}",
+        lines[3]
+    );
+    assert!(
+        lines[1].starts_with("2,0,") && lines[1].ends_with(",1,0"),
+        "{}",
+        lines[1]
+    );
+}
