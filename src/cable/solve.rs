@@ -36,7 +36,8 @@ pub struct TreeFactor<T> {
     inv: Vec<T>,
 }
 
-/// Checks the shape the kernel relies on; a violation is a programming error in the caller.
+/// Checks the lengths the kernel relies on; a violation is a programming error in the caller
+/// (the parents-first order is checked during the elimination).
 fn check_shape<T>(parent: &[u32], g: &[T], shunt: &[T]) {
     let n = parent.len();
     assert!(
@@ -44,36 +45,29 @@ fn check_shape<T>(parent: &[u32], g: &[T], shunt: &[T]) {
         "tree arrays differ in length"
     );
     assert!(n == 0 || parent[0] == NONE, "node 0 must be the root");
-    assert!(
-        parent
-            .iter()
-            .enumerate()
-            .skip(1)
-            .all(|(k, &p)| (p as usize) < k),
-        "parents must come first (parent[k] < k)"
-    );
 }
 
 /// Upward elimination (k = n−1 … 1; Hines 1984). On entry `d` holds the shunts, on return D.
 /// When `p` is given, `p[k]` receives S_p + the branches of k's later siblings (the part of P_k
 /// known when k is reached).
-fn eliminate<T: Scalar>(
+fn eliminate<T: Scalar, const RECORD_P: bool>(
     parent: &[u32],
     g: &[T],
     d: &mut [T],
     down: &mut [T],
     inv: &mut [T],
-    mut p: Option<&mut [T]>,
+    p: &mut [T],
 ) {
     let one = T::real(1.0);
     for k in (1..parent.len()).rev() {
         let q = parent[k] as usize;
+        assert!(q < k, "parents must come first (parent[k] < k)");
         let dk = d[k];
         let i = one / (g[k] + dk);
         inv[k] = i;
         let w = g[k] * i;
         down[k] = w;
-        if let Some(p) = p.as_deref_mut() {
+        if RECORD_P {
             p[k] = d[q];
         }
         d[q] += w * dk;
@@ -103,7 +97,10 @@ impl<T: Scalar> TreeFactor<T> {
         let mut d = shunt;
         let mut down = vec![zero; n];
         let mut inv = vec![zero; n];
-        eliminate(&parent, &g, &mut d, &mut down, &mut inv, p);
+        match p {
+            Some(p) => eliminate::<T, true>(&parent, &g, &mut d, &mut down, &mut inv, p),
+            None => eliminate::<T, false>(&parent, &g, &mut d, &mut down, &mut inv, &mut []),
+        }
         TreeFactor {
             parent,
             g,
