@@ -30,8 +30,8 @@ def fail(msg):
 def main(path):
     with open(path) as f:
         doc = json.load(f)
-    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 2:
-        print("not a version-2 pollard reduced tree:", path)
+    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 3:
+        print("not a version-3 pollard reduced tree:", path)
         return 1
     comps = doc["compartments"]
     n = len(comps)
@@ -105,7 +105,7 @@ def main(path):
 
     # 3. feed-forward form
     ff = doc["feed_forward"]
-    w = ff["w"]
+    w = ff["current_ratio_to_parent"]
     y_root = ff["root_input_conductance_ns"]
     if abs(1000.0 / y_root - r_mohm) / r_mohm > 1e-6:
         errors += fail("root input conductance does not match the solve")
@@ -125,7 +125,7 @@ def main(path):
     print(f"feed-forward form vs solve: worst relative difference {worst:.2e}")
     if worst > 1e-6:
         errors += fail("feed-forward form differs from the solve")
-    layers = ff["layers"]
+    layers = ff["compartments_by_depth"]
     if sorted(k for layer in layers for k in layer) != list(range(n)):
         errors += fail("layers do not cover every compartment once")
     for d, layer in enumerate(layers):
@@ -146,7 +146,7 @@ def main(path):
 
     # site map: counts add up
     counted = sum(c["site_count"] for c in comps)
-    if counted != len(doc["site_map"]["sites"]):
+    if counted != len(doc["site_map"]):
         errors += fail("site counts do not add up to the number of sites")
 
     print("OK" if errors == 0 else f"{errors} check(s) failed")

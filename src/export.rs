@@ -73,7 +73,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
 
 /// Version of the reduced-tree JSON layout (`assets/reduced-tree.schema.json`). Raised when a
 /// field changes meaning or is removed; adding fields keeps it.
-pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 2;
+pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 3;
 
 /// The `format` value of a reduced-tree JSON file.
 pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";
@@ -95,7 +95,7 @@ struct Parameters<'a> {
     ra_ohm_cm: f64,
     cm_uf_cm2: f64,
     tau_ms: f64,
-    freq_hz: f64,
+    impedance_freq_hz: f64,
     types_kept: Option<&'a [i32]>,
     sites: &'static str,
     junction_length_fraction: f64,
@@ -115,15 +115,9 @@ struct SiteOut {
     position_um: [f64; 3],
     weight: f64,
     compartment: u32,
-    ln_attenuation_full: f64,
-    ln_attenuation_reduced: f64,
-    ln_attenuation_error: f64,
-}
-
-#[derive(serde::Serialize)]
-struct SiteMap {
-    points: PointMap,
-    sites: Vec<SiteOut>,
+    attenuation_to_soma_full_np: f64,
+    attenuation_to_soma_reduced_np: f64,
+    attenuation_to_soma_error_np: f64,
 }
 
 #[derive(serde::Serialize)]
@@ -135,7 +129,10 @@ struct TreeFile<'a, B: serde::Serialize> {
     parameters: Parameters<'a>,
     compartments: &'a [crate::reduce::Compartment],
     feed_forward: crate::reduce::FeedForward,
-    site_map: SiteMap,
+    /// Every point of the file → its compartment (null: left out).
+    point_map: PointMap,
+    /// Every site of the reduction → its compartment, with its DC attenuation to the soma.
+    site_map: Vec<SiteOut>,
     report: &'a crate::reduce::Report,
     /// The synapse table's map ([`crate::synapses`]), when the sites came from one.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -245,9 +242,9 @@ fn tree_json<B: serde::Serialize>(
                 position_um: src.point_pos.get(i).copied().unwrap_or([f64::NAN; 3]),
                 weight: s.weight,
                 compartment: c,
-                ln_attenuation_full: s.ln_attenuation_full,
-                ln_attenuation_reduced: red,
-                ln_attenuation_error: s.ln_attenuation_full - red,
+                attenuation_to_soma_full_np: s.ln_attenuation_full,
+                attenuation_to_soma_reduced_np: red,
+                attenuation_to_soma_error_np: s.ln_attenuation_full - red,
             }
         })
         .collect();
@@ -261,7 +258,7 @@ fn tree_json<B: serde::Serialize>(
             ra_ohm_cm: p.ra_ohm_cm,
             cm_uf_cm2: p.cm_uf_cm2,
             tau_ms: p.tau_ms(),
-            freq_hz: o.freq_hz,
+            impedance_freq_hz: o.freq_hz,
             types_kept: o.types.as_deref(),
             sites: match &o.sites {
                 crate::reduce::Sites::Default => "default",
@@ -279,17 +276,15 @@ fn tree_json<B: serde::Serialize>(
         },
         compartments: &tree.compartments,
         feed_forward: tree.feed_forward(),
-        site_map: SiteMap {
-            points: PointMap {
-                swc_id: src.point_ids.to_vec(),
-                compartment: tree
-                    .point_compartment
-                    .iter()
-                    .map(|&c| (c != NONE).then_some(c))
-                    .collect(),
-            },
-            sites,
+        point_map: PointMap {
+            swc_id: src.point_ids.to_vec(),
+            compartment: tree
+                .point_compartment
+                .iter()
+                .map(|&c| (c != NONE).then_some(c))
+                .collect(),
         },
+        site_map: sites,
         report,
         synapses: extras.synapses,
         fidelity: extras.fidelity,

@@ -383,7 +383,7 @@ fn role_name(r: crate::reduce::Role) -> &'static str {
         Role::BranchPoint => "branch",
         Role::Tip => "tip",
         Role::Junction => "junction",
-        Role::SomaLeaf => "soma_leaf",
+        Role::SomaLeaf => "soma_second_child",
         Role::SectionPoint => "section_point",
     }
 }

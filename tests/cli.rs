@@ -40,7 +40,7 @@ fn inspect_reads_real_files_and_reports_their_oddities() {
         "branch_points",
         "tips",
         "total_length_um",
-        "surface_area_um2",
+        "membrane_area_um2",
         "soma_area_um2",
         "max_path_distance_um",
         "warnings",

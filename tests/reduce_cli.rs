@@ -44,7 +44,7 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
     assert_eq!(v["format"], "pollard.reduced-tree");
-    assert_eq!(v["schema_version"], 2);
+    assert_eq!(v["schema_version"], 3);
     let comps = v["compartments"].as_array().unwrap();
     assert_eq!(comps.len(), 15);
     // the schema's required fields are present in every compartment
@@ -97,7 +97,10 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
         "{stdout}"
     );
     assert!(stdout.contains("the soma's own EPSP"), "{stdout}");
-    assert_eq!(v["feed_forward"]["w"][0], serde_json::Value::Null);
+    assert_eq!(
+        v["feed_forward"]["current_ratio_to_parent"][0],
+        serde_json::Value::Null
+    );
     assert_eq!(v["compartments"][0]["parent"], serde_json::Value::Null);
     // the SWC has one point per compartment, the root first
     let swc_text = std::fs::read_to_string(&swc).unwrap();
@@ -160,8 +163,8 @@ fn reduce_takes_types_and_a_site_list() {
     assert_eq!(total, 3);
     assert_eq!(v["parameters"]["types_kept"], serde_json::json!([1, 3, 4]));
     // axon points (type 2) are mapped to no compartment
-    let ids = v["site_map"]["points"]["swc_id"].as_array().unwrap();
-    let comp = v["site_map"]["points"]["compartment"].as_array().unwrap();
+    let ids = v["point_map"]["swc_id"].as_array().unwrap();
+    let comp = v["point_map"]["compartment"].as_array().unwrap();
     for (i, p) in m.points.iter().enumerate() {
         assert_eq!(ids[i], p.id);
         if p.kind == 2 {

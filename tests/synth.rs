@@ -157,7 +157,7 @@ fn cylinder_matches_its_closed_form_geometry() {
     let pi = std::f64::consts::PI;
     assert_eq!(met.soma_area_um2, 0.0);
     assert!((met.total_length_um - l).abs() < 1e-9);
-    assert!((met.surface_area_um2 - pi * d * l).abs() < 1e-9 * pi * d * l);
+    assert!((met.membrane_area_um2 - pi * d * l).abs() < 1e-9 * pi * d * l);
     assert!((met.volume_um3 - pi * d * d * l / 4.0).abs() < 1e-9 * l);
     assert_eq!((met.tips, met.branch_points, met.stems), (1, 0, 1));
     let flat = m.flatten();

@@ -74,7 +74,7 @@ class ReducedTree:
     def swc_type(self) -> npt.NDArray[np.int32]: ...
     @property
     def role(self) -> List[str]:
-        """soma, branch_point, tip, junction, soma_leaf or section_point per compartment."""
+        """soma, branch_point, tip, junction, soma_second_child or section_point per compartment."""
     @property
     def point_ids(self) -> npt.NDArray[np.int64]:
         """SWC id of every point of the cell, in the order of point_compartment."""

@@ -109,7 +109,7 @@ impl ReducedTree {
     fn swc_type<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i32>> {
         arr(py, self.col(|c| c.swc_type))
     }
-    /// What each compartment is named after: soma, branch_point, tip, junction, soma_leaf.
+    /// What each compartment is named after: soma, branch_point, tip, junction, soma_second_child.
     #[getter]
     fn role(&self) -> Vec<&'static str> {
         self.col(|c| role_name(c.role))
@@ -140,16 +140,16 @@ impl ReducedTree {
                 .collect(),
         )
     }
-    /// The exact DC feed-forward form: `w` (current-transfer ratio to the parent, NaN at the
-    /// soma), `subtree_conductance_ns`, `root_input_conductance_ns` and `layers` (compartment
-    /// ids by depth). The soma voltage for injected currents I is
+    /// The exact DC feed-forward form: `current_ratio_to_parent` (w, NaN at the soma),
+    /// `subtree_conductance_ns`, `root_input_conductance_ns` and `compartments_by_depth`. The
+    /// soma voltage for injected currents I is
     /// sum_k I_k * prod(w on k's path) / root_input_conductance_ns (pA / nS = mV).
     #[getter]
     fn feed_forward<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
         let f = self.tree.feed_forward();
         let d = PyDict::new(py);
         d.set_item(
-            "w",
+            "current_ratio_to_parent",
             arr(py, f.w.iter().map(|w| w.unwrap_or(f64::NAN)).collect()),
         )?;
         d.set_item("subtree_conductance_ns", arr(py, f.subtree_conductance_ns))?;
@@ -158,7 +158,7 @@ impl ReducedTree {
         for l in f.layers {
             layers.append(arr(py, l.into_iter().map(|x| x as i64).collect()))?;
         }
-        d.set_item("layers", layers)?;
+        d.set_item("compartments_by_depth", layers)?;
         Ok(d)
     }
     /// What was lost (the report of `pollard reduce --json`), as a dict.
@@ -260,19 +260,19 @@ impl ReducedTree {
             f64s(&|r| r.time_to_peak_reduced_ms),
         )?;
         d.set_item(
-            "ln_attenuation_to_soma_full",
+            "attenuation_to_soma_full_np",
             f64s(&|r| r.ln_attenuation_to_soma_full),
         )?;
         d.set_item(
-            "ln_attenuation_to_soma_reduced",
+            "attenuation_to_soma_reduced_np",
             f64s(&|r| r.ln_attenuation_to_soma_reduced),
         )?;
         d.set_item(
-            "ln_attenuation_from_soma_full",
+            "attenuation_from_soma_full_np",
             f64s(&|r| r.ln_attenuation_from_soma_full),
         )?;
         d.set_item(
-            "ln_attenuation_from_soma_reduced",
+            "attenuation_from_soma_reduced_np",
             f64s(&|r| r.ln_attenuation_from_soma_reduced),
         )?;
         Ok(d)
@@ -380,7 +380,7 @@ fn role_name(r: Role) -> &'static str {
         Role::BranchPoint => "branch_point",
         Role::Tip => "tip",
         Role::Junction => "junction",
-        Role::SomaLeaf => "soma_leaf",
+        Role::SomaLeaf => "soma_second_child",
         Role::SectionPoint => "section_point",
     }
 }
@@ -501,7 +501,7 @@ fn role_of(s: &str) -> Result<Role, String> {
         "branch_point" => Role::BranchPoint,
         "tip" => Role::Tip,
         "junction" => Role::Junction,
-        "soma_leaf" => Role::SomaLeaf,
+        "soma_second_child" => Role::SomaLeaf,
         "section_point" => Role::SectionPoint,
         _ => return Err(format!("unknown compartment role {s:?}")),
     })
@@ -587,31 +587,27 @@ fn load(path: &Path) -> Result<ReducedTree, String> {
             ));
         }
     }
-    let sm = field("site_map")?;
-    let points = &sm["points"];
+    let points = field("point_map")?;
     let ids = points["swc_id"]
         .as_array()
-        .ok_or("site_map.points.swc_id is not a list")?;
+        .ok_or("point_map.swc_id is not a list")?;
     let point_ids = ids
         .iter()
-        .map(|v| {
-            v.as_i64()
-                .ok_or("site_map.points.swc_id holds a non-integer")
-        })
+        .map(|v| v.as_i64().ok_or("point_map.swc_id holds a non-integer"))
         .collect::<Result<Vec<_>, _>>()?;
     let pc = points["compartment"]
         .as_array()
-        .ok_or("site_map.points.compartment is not a list")?;
+        .ok_or("point_map.compartment is not a list")?;
     let point_compartment = pc
         .iter()
         .map(|v| v.as_u64().map_or(NONE, |c| c as u32))
         .collect();
-    let sites = sm["sites"]
+    let sites = field("site_map")?
         .as_array()
-        .ok_or("site_map.sites is not a list")?;
+        .ok_or("site_map is not a list")?;
     let site_compartment = sites
         .iter()
-        .map(|s| int(&s["compartment"], "site_map.sites[].compartment").map(|c| c as u32))
+        .map(|s| int(&s["compartment"], "site_map[].compartment").map(|c| c as u32))
         .collect::<Result<Vec<_>, _>>()?;
     let report = field("report")?.to_string();
     let tree = pollard::reduce::ReducedTree {

@@ -63,17 +63,18 @@ def test_arrays_agree_with_the_cli_json(tmp_path, cell, n):
     np.testing.assert_array_equal(tree.position_um, [c["position_um"] for c in comps])
     np.testing.assert_array_equal(tree.depth, [c["depth"] for c in comps])
     assert tree.role == [c["role"] for c in comps]
-    pm = doc["site_map"]["points"]
+    pm = doc["point_map"]
     np.testing.assert_array_equal(tree.point_ids, pm["swc_id"])
     np.testing.assert_array_equal(tree.point_compartment,
                                   [-1 if c is None else c for c in pm["compartment"]])
     np.testing.assert_array_equal(tree.site_compartment,
-                                  [s["compartment"] for s in doc["site_map"]["sites"]])
+                                  [s["compartment"] for s in doc["site_map"]])
     ff = tree.feed_forward
-    np.testing.assert_array_equal(ff["w"], [np.nan if w is None else w
-                                            for w in doc["feed_forward"]["w"]])
+    np.testing.assert_array_equal(ff["current_ratio_to_parent"], [
+        np.nan if w is None else w for w in doc["feed_forward"]["current_ratio_to_parent"]])
     assert ff["root_input_conductance_ns"] == doc["feed_forward"]["root_input_conductance_ns"]
-    assert [list(layer) for layer in ff["layers"]] == doc["feed_forward"]["layers"]
+    assert ([list(layer) for layer in ff["compartments_by_depth"]]
+            == doc["feed_forward"]["compartments_by_depth"])
     assert tree.report == doc["report"]
     # to_json writes the same bytes as the command (same source string)
     mine = tmp_path / "py.json"
@@ -100,7 +101,7 @@ def test_options_reach_the_reduction(tmp_path):
     _, doc2 = cli_tree(tmp_path, cell, 7, "--sites", sites)
     from_list = pollard.reduce(m, compartments=7, sites=ids)
     from_file = pollard.reduce(m, compartments=7, sites=str(sites))
-    want = [s["compartment"] for s in doc2["site_map"]["sites"]]
+    want = [s["compartment"] for s in doc2["site_map"]]
     np.testing.assert_array_equal(from_list.site_compartment, want)
     np.testing.assert_array_equal(from_file.site_compartment, want)
 
@@ -139,7 +140,7 @@ def test_numpy_matrix_gives_input_resistance_and_feed_forward(cell):
     ff = tree.feed_forward
     gain = np.ones(n)
     for k in range(1, n):
-        gain[k] = gain[tree.parent[k]] * ff["w"][k]
+        gain[k] = gain[tree.parent[k]] * ff["current_ratio_to_parent"][k]
     rng = np.random.default_rng(7)
     for _ in range(3):
         i = rng.uniform(0.0, 1.0, n)
@@ -262,16 +263,16 @@ def test_fidelity_report_and_sites(tmp_path):
     tree = pollard.reduce(cell, compartments=21)
     rep = tree.fidelity()
     sites = tree.fidelity_sites()
-    json_sites = doc["site_map"]["sites"]
+    json_sites = doc["site_map"]
     assert rep["sites"] == len(json_sites) == len(sites["swc_id"])
     # the per-site DC attenuations agree with the reducer's, written by the command line
     np.testing.assert_array_equal(sites["swc_id"], [s["swc_id"] for s in json_sites])
     np.testing.assert_array_equal(sites["compartment"], [s["compartment"] for s in json_sites])
-    np.testing.assert_allclose(sites["ln_attenuation_to_soma_full"],
-                               [s["ln_attenuation_full"] for s in json_sites], rtol=1e-9,
+    np.testing.assert_allclose(sites["attenuation_to_soma_full_np"],
+                               [s["attenuation_to_soma_full_np"] for s in json_sites], rtol=1e-9,
                                atol=1e-12)
-    np.testing.assert_allclose(sites["ln_attenuation_to_soma_reduced"],
-                               [s["ln_attenuation_reduced"] for s in json_sites], rtol=1e-9,
+    np.testing.assert_allclose(sites["attenuation_to_soma_reduced_np"],
+                               [s["attenuation_to_soma_reduced_np"] for s in json_sites], rtol=1e-9,
                                atol=1e-12)
     err = np.abs(np.log(sites["epsp_peak_reduced_mv"] / sites["epsp_peak_full_mv"]))
     np.testing.assert_allclose(sites["epsp_peak_error_np"], err, rtol=1e-12, atol=1e-15)

@@ -221,13 +221,18 @@ pub struct Row {
     /// Compartments of the reduced tree.
     pub compartments: Option<usize>,
     /// Soma input resistance of the full cell at DC (MΩ).
+    #[serde(rename = "soma_input_resistance_dc_full_mohm")]
     pub soma_rin_full_mohm: Option<f64>,
     /// Soma input resistance of the reduced tree at DC (MΩ).
+    #[serde(rename = "soma_input_resistance_dc_reduced_mohm")]
     pub soma_rin_reduced_mohm: Option<f64>,
     /// Error over the synapse sites, |ln A_full − ln A_reduced| of the DC attenuation to the
     /// soma (nepers): median, 95th percentile and largest. Empty when the cell has no sites.
+    #[serde(rename = "attenuation_to_soma_error_median_np")]
     pub site_error_median_np: Option<f64>,
+    #[serde(rename = "attenuation_to_soma_error_p95_np")]
     pub site_error_p95_np: Option<f64>,
+    #[serde(rename = "attenuation_to_soma_error_max_np")]
     pub site_error_max_np: Option<f64>,
     /// Synapses and inputs of the cell's synapse table (empty without one).
     #[serde(default)]

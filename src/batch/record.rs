@@ -48,11 +48,11 @@ impl Record {
 /// The decimal columns of a [`Row`].
 const FLOAT_FIELDS: [&str; 11] = [
     "total_length_um",
-    "soma_rin_full_mohm",
-    "soma_rin_reduced_mohm",
-    "site_error_median_np",
-    "site_error_p95_np",
-    "site_error_max_np",
+    "soma_input_resistance_dc_full_mohm",
+    "soma_input_resistance_dc_reduced_mohm",
+    "attenuation_to_soma_error_median_np",
+    "attenuation_to_soma_error_p95_np",
+    "attenuation_to_soma_error_max_np",
     "epsp_peak_error_median_np",
     "epsp_peak_error_p95_np",
     "time_to_peak_error_p95",

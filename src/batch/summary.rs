@@ -5,7 +5,7 @@ use crate::export::write_atomic;
 use std::path::{Path, PathBuf};
 
 /// The CSV header, in the column order of [`csv_fields`].
-pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_rin_full_mohm,soma_rin_reduced_mohm,site_error_median_np,site_error_p95_np,site_error_max_np,synapses,inputs,epsp_peak_error_median_np,epsp_peak_error_p95_np,time_to_peak_error_p95,soma_epsp_peak_error_np,seconds,error";
+pub const CSV_HEADER: &str = "file,status,points,tips,total_length_um,compartments,soma_input_resistance_dc_full_mohm,soma_input_resistance_dc_reduced_mohm,attenuation_to_soma_error_median_np,attenuation_to_soma_error_p95_np,attenuation_to_soma_error_max_np,synapses,inputs,epsp_peak_error_median_np,epsp_peak_error_p95_np,time_to_peak_error_p95,soma_epsp_peak_error_np,seconds,error";
 
 /// The fields of a row in the order of [`CSV_HEADER`]; missing values are empty fields.
 pub fn csv_fields(r: &Row) -> [String; 19] {

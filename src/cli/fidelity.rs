@@ -11,7 +11,7 @@ use std::process::ExitCode;
 #[command(after_help = "\
 Per site (one row each): its SWC id and line, its compartment; the soma EPSP peak (mV) and time
 to peak (ms) for an alpha current at the site in the full cell and in the reduced tree, the peak
-error |ln(reduced/full)| (nepers) and the time-to-peak error |ttp_red - ttp_full|/ttp_full; the
+error |ln(reduced/full)| (Np) and the time-to-peak error |ttp_red - ttp_full|/ttp_full; the
 DC log attenuation to the soma ln(Z_kk/Z_k0) and from the soma ln(Z_00/Z_0k), full and reduced.
 One simulation of each network (current at the soma) gives every site, by reciprocity.")]
 pub struct Args {

@@ -46,7 +46,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     writeln!(
         out,
         "  membrane area        {:.1} µm²",
-        met.surface_area_um2
+        met.membrane_area_um2
     )?;
     writeln!(out, "  volume               {:.1} µm³", met.volume_um3)?;
     writeln!(
@@ -66,7 +66,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         writeln!(
             out,
             "    {:>3} {:<16} {:>8} points {:>10.1} µm {:>12.1} µm² {:>6} tips",
-            t.type_code, t.name, t.points, t.length_um, t.surface_area_um2, t.tips
+            t.type_code, t.name, t.points, t.length_um, t.membrane_area_um2, t.tips
         )?;
     }
     if a.sholl_step > 0.0 {

@@ -262,11 +262,11 @@ fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::
     let s = &r.ln_attenuation_error;
     writeln!(
         w,
-        "  {} sites, error in DC log attenuation to the soma (nepers): median {:.4}, 95th percentile {:.4}, max {:.4}, weighted RMS {:.4}",
+        "  {} sites, error in DC log attenuation to the soma (Np): median {:.4}, 95th percentile {:.4}, max {:.4}, weighted RMS {:.4}",
         r.sites, s.median, s.p95, s.max, r.ln_attenuation_error_weighted_rms
     )?;
     // a short view of the curve: budgets 1, 3, 7, 15, … and the maximum
-    write!(w, "  error vs budget (weighted RMS, nepers):")?;
+    write!(w, "  error vs budget (weighted RMS, Np):")?;
     let mut next = 1usize;
     for c in &r.error_curve {
         if c.compartments == next || c.compartments == max {
@@ -313,7 +313,7 @@ pub fn write_fidelity(w: &mut impl Write, f: &FidelityReport) -> std::io::Result
     let d = &f.ln_attenuation_from_soma_error_np;
     writeln!(
         w,
-        "  error in DC log attenuation from the soma (nepers): median {:.4}, 95th percentile {:.4}, max {:.4}",
+        "  error in DC log attenuation from the soma (Np): median {:.4}, 95th percentile {:.4}, max {:.4}",
         d.median, d.p95, d.max
     )?;
     let worst: Vec<String> = f

@@ -184,10 +184,14 @@ pub struct SiteFidelity {
     pub time_to_peak_error: f64,
     /// DC log attenuation to the soma ln(Z_kk/Z_k0) (Np), site in the full cell and its
     /// compartment in the reduced tree.
+    #[serde(rename = "attenuation_to_soma_full_np")]
     pub ln_attenuation_to_soma_full: f64,
+    #[serde(rename = "attenuation_to_soma_reduced_np")]
     pub ln_attenuation_to_soma_reduced: f64,
     /// DC log attenuation from the soma ln(Z_00/Z_0k) (Np).
+    #[serde(rename = "attenuation_from_soma_full_np")]
     pub ln_attenuation_from_soma_full: f64,
+    #[serde(rename = "attenuation_from_soma_reduced_np")]
     pub ln_attenuation_from_soma_reduced: f64,
 }
 
@@ -260,8 +264,10 @@ pub struct FidelityReport {
     /// |ttp_red − ttp_full|/ttp_full.
     pub time_to_peak_error: ErrorStats,
     /// DC |ln A_site − ln A_compartment| to the soma (Np).
+    #[serde(rename = "attenuation_to_soma_error_np")]
     pub ln_attenuation_to_soma_error_np: ErrorStats,
     /// DC |ln(Z_00/Z_0k) full − reduced| from the soma (Np).
+    #[serde(rename = "attenuation_from_soma_error_np")]
     pub ln_attenuation_from_soma_error_np: ErrorStats,
     /// The soma's own EPSP (current at the soma, soma voltage): peak error (Np) and percent.
     pub soma_epsp_peak_error_np: f64,

@@ -238,7 +238,7 @@ pub fn response_traces(
 /// The per-site table as CSV (one row per site, the columns of [`SiteFidelity`]).
 pub fn sites_csv(rows: &[SiteFidelity]) -> String {
     let mut s = String::from(
-        "site,swc_id,swc_line,compartment,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,ln_attenuation_to_soma_full,ln_attenuation_to_soma_reduced,ln_attenuation_from_soma_full,ln_attenuation_from_soma_reduced\n",
+        "site,swc_id,swc_line,compartment,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,attenuation_to_soma_full_np,attenuation_to_soma_reduced_np,attenuation_from_soma_full_np,attenuation_from_soma_reduced_np\n",
     );
     for r in rows {
         s.push_str(&format!(

@@ -175,7 +175,7 @@ impl Morphology {
                 name: kind_name(p.kind),
                 points: 0,
                 length_um: 0.0,
-                surface_area_um2: 0.0,
+                membrane_area_um2: 0.0,
                 tips: 0,
             });
             e.points += 1;
@@ -186,7 +186,7 @@ impl Morphology {
                 if a.is_finite() {
                     area += a;
                     vol += seg.volume();
-                    e.surface_area_um2 += a;
+                    e.membrane_area_um2 += a;
                 }
                 if self.is_soma[self.parent[i] as usize] {
                     stems += 1;
@@ -212,7 +212,7 @@ impl Morphology {
             branch_points,
             tips,
             total_length_um: total_len,
-            surface_area_um2: area + soma_area,
+            membrane_area_um2: area + soma_area,
             volume_um3: vol + soma_vol,
             soma_points: self.soma.len(),
             soma_area_um2: soma_area,

@@ -121,7 +121,7 @@ pub struct Metrics {
     pub branch_points: usize,
     pub tips: usize,
     pub total_length_um: f64,
-    pub surface_area_um2: f64,
+    pub membrane_area_um2: f64,
     pub volume_um3: f64,
     pub soma_points: usize,
     pub soma_area_um2: f64,
@@ -139,7 +139,7 @@ pub struct TypeMetrics {
     pub name: &'static str,
     pub points: usize,
     pub length_um: f64,
-    pub surface_area_um2: f64,
+    pub membrane_area_um2: f64,
     pub tips: usize,
 }
 
@@ -462,7 +462,7 @@ mod tests {
         let cyl = 2.0 * PI * 1.0 * 10.0;
         let fr = PI * 1.5 * (100.0f64 + 0.25).sqrt();
         let soma = 4.0 * PI * 9.0;
-        assert!((met.surface_area_um2 - (cyl + fr + soma)).abs() < 1e-9);
+        assert!((met.membrane_area_um2 - (cyl + fr + soma)).abs() < 1e-9);
         assert_eq!(met.tips, 1);
         assert_eq!(met.stems, 1);
         assert!((met.total_length_um - 20.0).abs() < 1e-12);

@@ -100,7 +100,7 @@ pub enum ReduceError {
     #[error("the types to keep are empty")]
     NoTypes,
     #[error(
-        "the point on line {line} is {nepers:.0} nepers of DC attenuation from the soma: that part of the cell is electrically cut off (a segment far longer than its length constant); check the coordinates' units (--scale)"
+        "the point on line {line} is {nepers:.0} Np of DC attenuation from the soma: that part of the cell is electrically cut off (a segment far longer than its length constant); check the coordinates' units (--scale)"
     )]
     CutOff { line: usize, nepers: f64 },
 }
@@ -171,6 +171,7 @@ pub enum Role {
     /// Inserted to split a multifurcation into bifurcations.
     Junction,
     /// Inserted as the second child of a soma with a single stem.
+    #[serde(rename = "soma_second_child")]
     SomaLeaf,
     /// A point inside a section, where the leaf standing for a collapsed subtree sits.
     SectionPoint,
@@ -258,6 +259,7 @@ pub struct CurvePoint {
     /// Weighted RMS over the sites of (ln A_site − ln A_compartment) at DC (nepers), where A is
     /// the attenuation to the soma. Exact on the maximal tree's network (junction links
     /// included).
+    #[serde(rename = "attenuation_to_soma_error_rms_np")]
     pub rms_ln_attenuation_error: f64,
 }
 
@@ -270,12 +272,14 @@ pub struct CurvePoint {
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct FeedForward {
     /// Per compartment: current-transfer ratio to the parent; `None` at the root.
+    #[serde(rename = "current_ratio_to_parent")]
     pub w: Vec<Option<f64>>,
     /// Per compartment: subtree input conductance Y_k (nS).
     pub subtree_conductance_ns: Vec<f64>,
     /// Y_0: the root's input conductance (nS).
     pub root_input_conductance_ns: f64,
     /// Compartment ids grouped by depth (layer 0 = the root).
+    #[serde(rename = "compartments_by_depth")]
     pub layers: Vec<Vec<u32>>,
 }
 
@@ -306,6 +310,7 @@ pub struct Report {
     pub soma_input_resistance_dc_full_mohm: f64,
     pub soma_input_resistance_dc_reduced_mohm: f64,
     pub soma_input_resistance_dc_relative_error: f64,
+    #[serde(rename = "impedance_freq_hz")]
     pub freq_hz: f64,
     /// |Z_in| of the soma at `freq_hz`, full kept cell (MΩ).
     pub soma_input_impedance_full_mohm: f64,
@@ -316,8 +321,10 @@ pub struct Report {
     pub tau_ms: f64,
     pub sites: usize,
     /// |ln A_site(full) − ln A_compartment(reduced)| over the sites, DC (nepers).
+    #[serde(rename = "attenuation_to_soma_error_np")]
     pub ln_attenuation_error: Stats,
     /// Weighted RMS of the same, as in the curve.
+    #[serde(rename = "attenuation_to_soma_error_weighted_rms_np")]
     pub ln_attenuation_error_weighted_rms: f64,
     /// The predicted curve over every odd budget.
     pub error_curve: Vec<CurvePoint>,
