@@ -60,8 +60,9 @@ pub(super) fn replay(
 }
 
 /// Where each alive leaf sits: the node of its region whose DC log attenuation to the soma is
-/// closest to the weighted mean over its sites (exact placement is free: Kron reduction keeps the
-/// chosen node's relations to the soma exactly). A leaf without sites stays at its own node.
+/// closest to its target level (see [`leaf_targets`]); exact placement is free: Kron reduction
+/// keeps the chosen node's relations to the soma exactly. A leaf without sites stays at its own
+/// node, and the soma stays the soma.
 pub(super) fn place_leaves(
     fine: &Fine,
     sk: &Skeleton,
@@ -73,35 +74,40 @@ pub(super) fn place_leaves(
     let n = fine.len();
     let a = &fine.ln_att;
     let in_region = |y: usize, l: usize| rep[sk.section_of[y] as usize] as usize == l;
-    let target = leaf_targets(fine, sk, alive_leaf, rep, region, sites);
-    // the site with the smallest ln A at or above the target, per leaf
-    let mut best = vec![NONE; n];
-    let mut top = vec![NONE; n];
-    for &(x, w) in sites {
-        let x = x as usize;
-        let l = rep[sk.section_of[x] as usize] as usize;
-        if !alive_leaf[l] || w <= 0.0 {
-            continue;
+    // the leaves to place, numbered compactly, and each site's leaf number
+    let mut lid = vec![NONE; n];
+    let mut leaves: Vec<usize> = Vec::new();
+    for l in 1..n {
+        if alive_leaf[l] && region[l].w > 0.0 {
+            lid[l] = leaves.len() as u32;
+            leaves.push(l);
         }
-        let t = target[l];
-        if a[x] >= t && (best[l] == NONE || a[x] < a[best[l] as usize]) {
-            best[l] = x as u32;
+    }
+    let site_leaf: Vec<(u32, u32, f64)> = sites
+        .iter()
+        .filter(|&&(_, w)| w > 0.0)
+        .filter_map(|&(x, w)| {
+            let i = lid[rep[sk.section_of[x as usize] as usize] as usize];
+            (i != NONE).then_some((i, x, w))
+        })
+        .collect();
+    let target = leaf_targets(a, sk, &leaves, region, &site_leaf);
+    // the site with the smallest ln A at or above the target, and the highest, per leaf
+    let mut best = vec![NONE; leaves.len()];
+    let mut top = vec![NONE; leaves.len()];
+    for &(i, x, _) in &site_leaf {
+        let (i, xa) = (i as usize, a[x as usize]);
+        if xa >= target[i] && (best[i] == NONE || xa < a[best[i] as usize]) {
+            best[i] = x;
         }
-        if top[l] == NONE || a[x] > a[top[l] as usize] {
-            top[l] = x as u32;
+        if top[i] == NONE || xa > a[top[i] as usize] {
+            top[i] = x;
         }
     }
     let mut place: Vec<u32> = (0..n as u32).collect();
-    // the soma stays the soma, even when it is the only compartment
-    for l in 1..n {
-        if !alive_leaf[l] || region[l].w <= 0.0 {
-            continue;
-        }
-        let t = target[l];
-        let mut u = if best[l] != NONE { best[l] } else { top[l] } as usize;
-        if u == NONE as usize {
-            continue;
-        }
+    for (i, &l) in leaves.iter().enumerate() {
+        let t = target[i];
+        let mut u = if best[i] != NONE { best[i] } else { top[i] } as usize;
         // walk up while the parent is still at or above the target and inside the region
         loop {
             let p = fine.parent[u] as usize;
@@ -122,33 +128,35 @@ pub(super) fn place_leaves(
 /// The DC log attenuation each leaf should sit at. A leaf's sites are served by the leaf or by
 /// its parent, whichever is closer in ln A, so the best level is the weighted mean of the sites
 /// the leaf itself serves: a one-dimensional two-centre k-means with one centre fixed at the
-/// parent (Lloyd 1982), started from the mean of all the region's sites.
+/// parent (Lloyd 1982), started from the mean of all the region's sites. `site_leaf` holds
+/// (leaf number, fine node, weight) per site of a leaf in `leaves`.
 fn leaf_targets(
-    fine: &Fine,
+    a: &[f64],
     sk: &Skeleton,
-    alive_leaf: &[bool],
-    rep: &[u32],
+    leaves: &[usize],
     region: &[Moments],
-    sites: &[(u32, f64)],
+    site_leaf: &[(u32, u32, f64)],
 ) -> Vec<f64> {
-    let a = &fine.ln_att;
-    let mut t: Vec<f64> = region.iter().map(|m| m.mean).collect();
-    let parent_level = |l: usize| {
-        let p = sk.rparent[l];
-        if p == NONE { 0.0 } else { a[p as usize] }
-    };
+    let mut t: Vec<f64> = leaves.iter().map(|&l| region[l].mean).collect();
+    let parent_level: Vec<f64> = leaves
+        .iter()
+        .map(|&l| {
+            let p = sk.rparent[l];
+            if p == NONE { 0.0 } else { a[p as usize] }
+        })
+        .collect();
+    let mut acc = vec![Moments::default(); leaves.len()];
     for _ in 0..6 {
-        let mut acc = vec![Moments::default(); t.len()];
-        for &(x, w) in sites {
-            let x = x as usize;
-            let l = rep[sk.section_of[x] as usize] as usize;
-            if alive_leaf[l] && (a[x] - t[l]).abs() < (a[x] - parent_level(l)).abs() {
-                acc[l].add(w, a[x]);
+        acc.iter_mut().for_each(|m| *m = Moments::default());
+        for &(i, x, w) in site_leaf {
+            let (i, xa) = (i as usize, a[x as usize]);
+            if (xa - t[i]).abs() < (xa - parent_level[i]).abs() {
+                acc[i].add(w, xa);
             }
         }
-        for (l, m) in acc.iter().enumerate() {
-            if alive_leaf[l] && m.w > 0.0 {
-                t[l] = m.mean;
+        for (ti, m) in t.iter_mut().zip(&acc) {
+            if m.w > 0.0 {
+                *ti = m.mean;
             }
         }
     }
