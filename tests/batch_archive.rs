@@ -139,6 +139,9 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
     // stderr is not a terminal here: plain progress lines, and one line per failure
     assert!(err.contains("cells (100 %), 7 failed"), "{err}");
     assert_eq!(err.matches("failed: ").count(), 7, "{err}");
+    // the hidden record folder is named where a user reads the outcome
+    let records = out.join(".pollard-batch");
+    assert!(err.contains(&records.display().to_string()), "{err}");
 
     let rows = read_rows(&out.join("summary.jsonl"));
     let files: Vec<&str> = rows.iter().map(|r| r.file.as_str()).collect();

@@ -18,7 +18,8 @@ const SOME_FAILED: u8 = 3;
 #[derive(clap::Args, Debug)]
 #[command(after_help = "\
 Outputs: OUT_DIR/<same folders>/<name>.json per cell, OUT_DIR/summary.csv and summary.jsonl
-(one row per input file; with --shard I/K: summary.shard-I-of-K.csv/.jsonl).
+(one row per input file; with --shard I/K: summary.shard-I-of-K.csv/.jsonl). Why a cell failed:
+the summary's `error` column, and its record OUT_DIR/.pollard-batch/<same folders>/<name>.json.
 A second run skips the cells already done with the same flags; --force redoes them.
 Exit code: 0 all cells reduced; 3 some cells failed (see the summary); 1 the batch could not run;
 2 the command line is wrong.")]
@@ -260,5 +261,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         done as f64 / secs.max(1e-9),
         csv.display()
     );
+    if failed > 0 {
+        eprintln!(
+            "why cells failed is in the `error` column of {} and in each failed cell's record (the error and the settings) under {}",
+            csv.display(),
+            a.out_dir.join(batch::RECORD_DIR).display()
+        );
+    }
     Ok(exit_for(&rows))
 }
