@@ -58,6 +58,8 @@ pub trait Scalar:
     fn exp(self) -> Self;
     /// Modulus |x|.
     fn abs(self) -> f64;
+    /// max(|Re x|, |Im x|): within a factor √2 of |x| and much cheaper (for range checks).
+    fn abs_bound(self) -> f64;
     fn to_c64(self) -> C64;
     /// From the membrane admittance per area (the imaginary part is dropped for `f64`, which is
     /// only used at DC where it is 0).
@@ -79,6 +81,10 @@ impl Scalar for f64 {
     }
     #[inline]
     fn abs(self) -> f64 {
+        f64::abs(self)
+    }
+    #[inline]
+    fn abs_bound(self) -> f64 {
         f64::abs(self)
     }
     #[inline]
@@ -107,6 +113,10 @@ impl Scalar for C64 {
     #[inline]
     fn abs(self) -> f64 {
         self.norm()
+    }
+    #[inline]
+    fn abs_bound(self) -> f64 {
+        self.re.abs().max(self.im.abs())
     }
     #[inline]
     fn to_c64(self) -> C64 {

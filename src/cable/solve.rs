@@ -246,9 +246,10 @@ impl<T: Scalar> TreeMaps<T> {
         let factor = TreeFactor::build(parent, g, shunt, Some(&mut p));
         let (z_in, z_soma) = downward(&factor, &mut p);
         // |Z_k0| is a product of link ratios: far from the soma it can underflow
+        // (max(|re|, |im|) is within √2 of |z|: no square root per node for the check)
         let ln_z_soma = z_soma
             .iter()
-            .any(|z| out_of_range(z.abs()))
+            .any(|z| out_of_range(z.abs_bound()))
             .then(|| ln_soma_transfer(&factor));
         TreeMaps {
             factor,
