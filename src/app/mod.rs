@@ -593,7 +593,7 @@ impl PollardApp {
                 Some(s) => {
                     egui::Panel::right("traces")
                         .resizable(true)
-                        .default_size(ui.available_width() * 0.34)
+                        .default_size(430.0)
                         .show(ui, |ui| self.traces.ui(ui, s));
                     self.plots.ui(ui, s);
                 }

@@ -185,7 +185,11 @@ impl TracesView {
     pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
         self.update(s, Some(ui.ctx().clone()));
         ui.horizontal(|ui| {
-            ui.label("Soma voltage for a brief current at the clicked point");
+            ui.label("Soma voltage for a brief inward current at the clicked point")
+                .on_hover_text(
+                    "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the site; \
+                     the reduced tree gets it at the site's compartment. mV above rest.",
+                );
             if let Some((_, job)) = &self.job {
                 ui.spinner();
                 ui.weak(job.status());
@@ -203,15 +207,20 @@ impl TracesView {
         let (pf, tf) = sh.full.soma_peak();
         let (pr, tr) = sh.reduced.soma_peak();
         let np = sh.peak_error_np();
-        // signed relative difference (e^x − 1)·100 of the peaks; typographic minus
-        let pct = format!("{:+.0}", np.exp_m1() * 100.0).replace('-', "−");
-        ui.label(format!(
-            "peak: reduced {pct} % vs cell ({np:+.2} Np) — cell {pf:.3} mV at {tf:.1} ms, \
-             reduced tree {pr:.3} mV at {tr:.1} ms",
-        ))
+        // signed relative difference (e^x − 1)·100 of the peaks, with a typographic minus
+        let minus = |t: String| t.replace('-', "−");
+        ui.horizontal_wrapped(|ui| {
+            let pct = np.exp_m1() * 100.0;
+            let digits = if pct.abs() < 10.0 { 1 } else { 0 };
+            ui.strong(minus(format!(
+                "peak: reduced {pct:+.digits$} % vs cell ({np:+.2} Np)"
+            )));
+            ui.weak(format!("(cell {pf:.3} mV at {tf:.1} ms)"));
+        })
+        .response
         .on_hover_text(format!(
-            "10 pA alpha current (τ 0.5 ms) flowing into the cell at the site; the reduced tree \
-             gets it at compartment {} of {}. Voltage relative to rest.",
+            "cell {pf:.3} mV at {tf:.1} ms; reduced tree {pr:.3} mV at {tr:.1} ms, current at \
+             compartment {} of {}",
             sh.compartment, sh.compartments
         ));
         let line = |t: &SideTraces| -> Vec<[f64; 2]> {
@@ -224,17 +233,17 @@ impl TracesView {
         Plot::new("traces")
             .legend(Legend::default().position(egui_plot::Corner::RightTop))
             .x_axis_label("time (ms)")
-            .y_axis_label("soma voltage above rest (mV)")
+            .y_axis_label("mV above rest")
             .show(ui, |pu| {
                 pu.line(
                     Line::new("cell", line(&sh.full))
-                        .color(Color32::from_rgb(150, 150, 160))
-                        .width(2.0),
+                        .color(Color32::from_rgb(175, 175, 185))
+                        .width(4.0),
                 );
                 pu.line(
                     Line::new("reduced tree", line(&sh.reduced))
                         .color(Color32::from_rgb(250, 170, 60))
-                        .width(2.0),
+                        .width(1.5),
                 );
             });
     }
