@@ -191,11 +191,23 @@ impl Reduction {
             point_ids: &self.ids,
             point_pos: &self.pos,
         };
-        Ok(crate::export::reduced_tree_json(
+        // the saved file carries the same fidelity summary as `pollard reduce` writes
+        let fid = crate::fidelity::Fidelity::new(
+            &self.reducer,
+            &crate::fidelity::FidelityOptions::default(),
+        )?;
+        let fidelity = fid.report(&t, None)?;
+        let extras = crate::export::TreeExtras::<()> {
+            fidelity: Some(&fidelity),
+            ..Default::default()
+        };
+        Ok(crate::export::reduced_tree_json_with(
             &src,
             &self.reducer,
             &t,
             &report,
+            extras,
+            true,
         )?)
     }
 
