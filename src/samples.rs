@@ -21,7 +21,7 @@ pub struct Sample {
 /// Every sample cell; the first is the app's default.
 pub const SAMPLES: &[Sample] = &[
     Sample {
-        name: "Pyramidal-like cell (invented)",
+        name: "practice_pyramidal.swc: the demo cell (pyramidal-like, invented)",
         file_name: "practice_pyramidal.swc",
         text: include_str!("../sample_cells/practice_pyramidal.swc"),
     },

@@ -282,11 +282,11 @@ fn colouring_choices_and_views_do_not_panic() {
     let mut h = harness(app_with(vec![]));
     settle(&mut h);
     for label in [
-        "Signal reaching the soma",
+        "Voltage at the soma, current at each point",
         "Local input resistance",
         "Strahler order",
         "Neurite type",
-        "Signal spreading from the site",
+        "Voltage, current at the injection point",
     ] {
         h.get_by_label(label).click();
         h.run_steps(2);
@@ -298,7 +298,7 @@ fn colouring_choices_and_views_do_not_panic() {
         "Reset",
         "as a dendrogram",
         "in place",
-        "natural log",
+        "Np",
     ] {
         h.get_by_label(label).click();
         h.run_steps(2);

@@ -410,11 +410,9 @@ impl ArborCanvas {
         let proj = Projector::new(cam, rect, cell.centre, cell.extent_radius_um);
         let t = &r.tree;
         let widths = edge_widths(t);
-        for c in 0..t.len() {
-            let p = proj.project(t.pos[c]);
-            let rad = ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * proj.scale)
-                .clamp(3.0, 14.0);
-            self.comp_screen.push((p, rad));
+        let radii = t.disc_radii(rect.width().min(rect.height()));
+        for (c, &rad) in radii.iter().enumerate() {
+            self.comp_screen.push((proj.project(t.pos[c]), rad));
         }
         for (c, &w) in widths.iter().enumerate().skip(1) {
             let p = t.parent[c];

@@ -17,6 +17,7 @@ pub mod picture;
 pub mod reduction;
 pub mod state;
 pub mod synapses;
+pub mod terms;
 pub mod traces;
 
 use canvas::{ArborCanvas, Camera, ReducedLayout, Side};
@@ -177,7 +178,10 @@ impl PollardApp {
 
     /// Loads the built-in demo cell (in the background).
     pub fn open_demo(&mut self) {
-        self.start_load("demo cell".into(), Box::new(|| Ok(Cell::demo())));
+        self.start_load(
+            crate::samples::SAMPLES[0].file_name.into(),
+            Box::new(|| Ok(Cell::demo())),
+        );
     }
 
     /// Loads a file (in the background); on failure the current cell stays and the error shows.

@@ -221,7 +221,10 @@ impl ControlsPanel {
                         .logarithmic(hi > 64)
                         .text("Compartments"),
                 );
-                resp.on_hover_text("How many compartments the reduced tree may use");
+                resp.on_hover_text(format!(
+                    "How many compartments the reduced tree may use, soma included.\n\n{}",
+                    super::terms::JUNCTION_FRACTION
+                ));
                 if b != s.budget {
                     self.budget = b;
                     out.push(Action::Budget(b));
@@ -288,19 +291,28 @@ fn files_section(ui: &mut egui::Ui, recent: &RecentFiles, out: &mut Vec<Action>)
 /// What colours the arbors, and the log unit.
 fn colour_section(ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
     for c in ColourBy::ALL {
-        if ui.radio(s.colour_by == c, c.label()).clicked() && s.colour_by != c {
+        let r = ui.radio(s.colour_by == c, c.label());
+        let r = match c {
+            ColourBy::Strahler => r.on_hover_text(super::terms::STRAHLER),
+            _ => r,
+        };
+        if r.clicked() && s.colour_by != c {
             out.push(Action::ColourBy(c));
         }
     }
     ui.horizontal(|ui| {
-        ui.label("Attenuation in");
-        for (u, name) in [(LogUnit::Decibel, "dB"), (LogUnit::Neper, "natural log")] {
-            if ui.radio(s.unit == u, name).clicked() && s.unit != u {
+        ui.label("Attenuation in")
+            .on_hover_text(super::terms::LOG_UNITS);
+        for (u, name) in [(LogUnit::Decibel, "dB"), (LogUnit::Neper, "Np")] {
+            let r = ui
+                .radio(s.unit == u, name)
+                .on_hover_text(super::terms::LOG_UNITS);
+            if r.clicked() && s.unit != u {
                 out.push(Action::Unit(u));
             }
         }
     });
-    ui.label("Click a point on the original to make it the synapse site.");
+    ui.label("Click a point on the original to make it the injection point.");
 }
 
 /// Camera presets and the reduced tree's layout.
@@ -336,7 +348,12 @@ fn view_section(ui: &mut egui::Ui, layout: ReducedLayout, cam: &Camera, out: &mu
             (ReducedLayout::InPlace, "in place"),
             (ReducedLayout::Dendrogram, "as a dendrogram"),
         ] {
-            if ui.radio(layout == l, name).clicked() && layout != l {
+            let r = ui.radio(layout == l, name);
+            let r = match l {
+                ReducedLayout::Dendrogram => r.on_hover_text(super::terms::DENDROGRAM),
+                _ => r,
+            };
+            if r.clicked() && layout != l {
                 out.push(Action::Layout(l));
             }
         }
@@ -407,9 +424,9 @@ impl PlotsPanel {
         let thinned: Vec<[f64; 2]> = orig.iter().step_by(step).copied().collect();
         self.points_drawn = thinned.len();
         let what = if s.colour_by == ColourBy::ToSoma {
-            "Signal reaching the soma"
+            "Voltage at the soma, current at each point"
         } else {
-            "Signal from the site"
+            "Voltage, current at the injection point"
         };
         ui.label(format!("{what} vs path distance"));
         Plot::new("attenuation")
@@ -424,9 +441,12 @@ impl PlotsPanel {
                 );
                 if !red.is_empty() {
                     pu.points(
-                        Points::new("reduced compartments", red)
-                            .radius(3.5)
-                            .color(Color32::from_rgb(250, 170, 60)),
+                        Points::new(
+                            "reduced tree: current at the injection point's compartment",
+                            red,
+                        )
+                        .radius(3.5)
+                        .color(Color32::from_rgb(250, 170, 60)),
                     );
                 }
             });
@@ -434,7 +454,7 @@ impl PlotsPanel {
 }
 
 fn error_plot(ui: &mut egui::Ui, s: &CellState) {
-    ui.label("Error vs number of compartments");
+    ui.label("Reduction error vs number of compartments");
     match &s.reduction {
         Some(r) => {
             let curve: Vec<[f64; 2]> = r
@@ -447,7 +467,7 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
             Plot::new("error")
                 .legend(Legend::default())
                 .x_axis_label("compartments")
-                .y_axis_label("RMS error, ln units")
+                .y_axis_label("weighted RMS error of DC attenuation to the soma (Np)")
                 .show(ui, |pu| {
                     pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
                     pu.vline(
@@ -463,7 +483,7 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
 }
 
 fn sholl_plot(ui: &mut egui::Ui, s: &CellState) {
-    ui.label("Sholl profile");
+    ui.label("Sholl profile").on_hover_text(super::terms::SHOLL);
     let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
     Plot::new("sholl")
         .x_axis_label("distance from the soma centre (µm)")

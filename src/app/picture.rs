@@ -226,10 +226,10 @@ fn svg_reduced(
             );
         }
     }
+    let radii = t.disc_radii(right.width().min(right.height()));
     for (c, p) in pts.iter().enumerate() {
         let rad = if layout == ReducedLayout::InPlace {
-            ((t.area_um2[c] / (4.0 * std::f64::consts::PI)).sqrt() as f32 * rproj.scale)
-                .clamp(3.0, 14.0)
+            radii[c]
         } else {
             3.5
         };

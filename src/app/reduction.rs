@@ -41,6 +41,12 @@ impl RTree {
         self.parent.len()
     }
 
+    /// Drawn radius (px) of each compartment's disc in a view `view_px` across
+    /// ([`disc_radii`] of the membrane areas).
+    pub fn disc_radii(&self, view_px: f32) -> Vec<f32> {
+        disc_radii(&self.area_um2, view_px)
+    }
+
     pub fn is_empty(&self) -> bool {
         self.parent.is_empty()
     }
@@ -232,5 +238,59 @@ impl Reduction {
             format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
         ];
         Ok(crate::export::reduced_tree_swc(&t, &header))
+    }
+}
+
+/// Drawn radius (px) of each disc in a view `view_px` across: the disc's area
+/// follows the compartment's membrane area relative to the largest one, and the largest
+/// disc shrinks as 1/√n with the count, so that n discs cover a bounded share of the view at
+/// any budget (a rule of this app, no source). Always at least 2 px.
+pub fn disc_radii(area_um2: &[f64], view_px: f32) -> Vec<f32> {
+    let n = area_um2.len().max(1) as f32;
+    let largest = area_um2.iter().copied().fold(0.0, f64::max);
+    let r_max = (0.06 * view_px / n.sqrt()).clamp(3.0, 14.0);
+    area_um2
+        .iter()
+        .map(|&a| {
+            let share = if largest > 0.0 && a.is_finite() {
+                (a / largest).sqrt()
+            } else {
+                1.0
+            };
+            (r_max * share as f32).max(2.0)
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::disc_radii;
+
+    /// Share of a square view covered by the discs (overlaps counted twice).
+    fn covered(r: &[f32], view: f32) -> f32 {
+        r.iter().map(|r| std::f32::consts::PI * r * r).sum::<f32>() / (view * view)
+    }
+
+    #[test]
+    fn discs_stay_readable_at_any_budget() {
+        // common practice, no source: n discs of a 600 px view cover at most ~3 % of it above
+        // the 3 px floor, and never grow into one blob as n grows
+        let view = 600.0;
+        for n in [1usize, 15, 63, 255, 1023] {
+            let areas: Vec<f64> = (0..n).map(|i| 1e3 * (1.0 + i as f64)).collect();
+            let r = disc_radii(&areas, view);
+            assert!(r.iter().all(|&x| (2.0..=14.0).contains(&x)), "{n}: {r:?}");
+            let floor = n as f32 * std::f32::consts::PI * 9.0 / (view * view);
+            assert!(
+                covered(&r, view) <= 0.035f32.max(floor),
+                "{n}: {}",
+                covered(&r, view)
+            );
+        }
+        // a thousandfold larger area than the rest does not change the others' floor of 2 px,
+        // and the largest disc is the largest
+        let r = disc_radii(&[1e9, 1.0, 1.0], view);
+        assert_eq!(r[1], 2.0);
+        assert!(r[0] > r[1]);
     }
 }

@@ -101,7 +101,11 @@ impl Cell {
 
     /// The built-in demo cell.
     pub fn demo() -> Cell {
-        Cell::new("demo cell".into(), None, crate::samples::demo())
+        Cell::new(
+            crate::samples::SAMPLES[0].file_name.into(),
+            None,
+            crate::samples::demo(),
+        )
     }
 
     /// Number of nodes in the whole main tree.
@@ -157,8 +161,8 @@ impl ColourBy {
 
     pub fn label(self) -> &'static str {
         match self {
-            ColourBy::FromSite => "Signal spreading from the site",
-            ColourBy::ToSoma => "Signal reaching the soma",
+            ColourBy::FromSite => "Voltage, current at the injection point",
+            ColourBy::ToSoma => "Voltage at the soma, current at each point",
             ColourBy::InputResistance => "Local input resistance",
             ColourBy::Strahler => "Strahler order",
             ColourBy::NeuriteType => "Neurite type",
@@ -194,7 +198,7 @@ impl LogUnit {
     pub fn suffix(self) -> &'static str {
         match self {
             LogUnit::Decibel => "dB",
-            LogUnit::Neper => "(natural log)",
+            LogUnit::Neper => "Np",
         }
     }
 }
@@ -624,7 +628,7 @@ impl CellState {
     /// Human-readable description of the colour values.
     pub fn value_label(&self) -> String {
         match self.colour_by {
-            ColourBy::FromSite => format!("V / V at site, {}", self.unit.suffix()),
+            ColourBy::FromSite => format!("V / V at the injection point, {}", self.unit.suffix()),
             ColourBy::ToSoma => format!("V at soma / V at point, {}", self.unit.suffix()),
             ColourBy::InputResistance => "input resistance, MΩ".into(),
             ColourBy::Strahler => "Strahler order".into(),
@@ -663,7 +667,7 @@ impl CellState {
         ));
         if self.site.is_some() {
             s.push_str(&format!(
-                "\nfrom the site {:.2} {}",
+                "\nfrom the injection point {:.2} {}",
                 self.unit.from_ln(self.ln_from_site[m]),
                 self.unit.suffix()
             ));
@@ -678,7 +682,7 @@ impl CellState {
         };
         let t = &r.tree;
         let mut s = format!(
-            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s), {} synapse site(s)\ninput resistance {:.1} MΩ",
+            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s), {} site(s)\ninput resistance {:.1} MΩ",
             t.id[c],
             t.g_axial_ns[c],
             t.g_leak_ns[c],
@@ -697,7 +701,7 @@ impl CellState {
         }
         if r.site_comp.is_some() {
             s.push_str(&format!(
-                "\nfrom the site {:.2} {}",
+                "\nfrom the injection point {:.2} {}",
                 self.unit.from_ln(r.ln_from_site[c]),
                 self.unit.suffix()
             ));

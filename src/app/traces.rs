@@ -185,10 +185,10 @@ impl TracesView {
     pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
         self.update(s, Some(ui.ctx().clone()));
         ui.horizontal(|ui| {
-            ui.label("Soma voltage for a brief inward current at the clicked point")
+            ui.label("Soma voltage for a brief inward current at the injection point")
                 .on_hover_text(
-                    "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the site; \
-                     the reduced tree gets it at the site's compartment. mV above rest.",
+                    "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the injection point; \
+                     the reduced tree gets it at the injection point's compartment. mV above rest.",
                 );
             if let Some((_, job)) = &self.job {
                 ui.spinner();

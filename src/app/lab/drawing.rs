@@ -229,7 +229,7 @@ impl LabView {
             Pos2::new(bar.right() + 6.0, bar.center().y),
             egui::Align2::LEFT_CENTER,
             format!(
-                "{} … {}    ring: injection site    ×: killed tip",
+                "{} … {}    ring: injection point    ×: killed tip",
                 fmt(range.0),
                 fmt(range.1)
             ),

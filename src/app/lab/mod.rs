@@ -482,7 +482,8 @@ impl LabView {
                 ui.set_width(ui.available_width());
                 ui.label(RichText::new(p.label()).strong().size(15.0));
                 ui.label(p.text());
-                ui.label(RichText::new(p.formula()).monospace());
+                ui.label(RichText::new(p.formula()).monospace())
+                    .on_hover_text(crate::app::terms::R_INFINITY);
             });
         }
         if let Some(e) = &self.error {
@@ -539,7 +540,8 @@ impl LabView {
                 &mut self.x_axis,
                 XAxis::Electrotonic,
                 "electrotonic distance X (in λ, at DC)",
-            );
+            )
+            .on_hover_text(crate::app::terms::ELECTROTONIC);
         });
         self.plots(ui, r);
         self.result = Some(result);

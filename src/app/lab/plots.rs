@@ -122,7 +122,7 @@ impl LabView {
             title: format!("Voltage along the path{freq}"),
             key: vec![(TIP, "current at the tip"), (SOMA, "current at the soma")],
             dashed,
-            y_label: "V / V at the injection site",
+            y_label: "V / V at the injection point",
             y_range: &[0.0, 1.05],
             curves: [
                 Some(curve("current at the tip", &s.v_from_tip, TIP)),
@@ -186,7 +186,7 @@ pub(super) fn numbers(ui: &mut egui::Ui, r: &LabResult, cylinder: Option<&LabRes
             ui.label("Input resistance at the soma");
             ui.label(format!("{:.1} MΩ", s.rin_mohm[0]));
             ui.end_row();
-            ui.label("Input resistance at the injection site");
+            ui.label("Input resistance at the injection point");
             ui.label(format!("{:.1} MΩ", s.rin_mohm[s.inject_at]));
             ui.end_row();
             ui.label("Attenuation, tip to soma");
