@@ -428,7 +428,13 @@ impl PlotsPanel {
         } else {
             "Voltage, current at the injection point"
         };
-        ui.label(format!("{what} vs path distance"));
+        ui.label(format!(
+            "{what} vs path distance (reduced tree: current at the compartment)"
+        ))
+        .on_hover_text(
+            "Orange: the reduced tree with the current injected at the injection point's \
+             compartment (not at the point itself), so its offset is not a reduction error.",
+        );
         Plot::new("attenuation")
             .legend(Legend::default().position(egui_plot::Corner::RightBottom))
             .x_axis_label("path distance from the soma (µm)")
@@ -441,12 +447,9 @@ impl PlotsPanel {
                 );
                 if !red.is_empty() {
                     pu.points(
-                        Points::new(
-                            "reduced tree: current at the injection point's compartment",
-                            red,
-                        )
-                        .radius(3.5)
-                        .color(Color32::from_rgb(250, 170, 60)),
+                        Points::new("reduced tree", red)
+                            .radius(3.5)
+                            .color(Color32::from_rgb(250, 170, 60)),
                     );
                 }
             });
@@ -454,7 +457,10 @@ impl PlotsPanel {
 }
 
 fn error_plot(ui: &mut egui::Ui, s: &CellState) {
-    ui.label("Reduction error vs number of compartments");
+    ui.label("Reduction error vs number of compartments")
+        .on_hover_text(
+            "Weighted RMS over the sites of the error in DC attenuation to the soma, in Np",
+        );
     match &s.reduction {
         Some(r) => {
             let curve: Vec<[f64; 2]> = r
@@ -467,7 +473,7 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
             Plot::new("error")
                 .legend(Legend::default())
                 .x_axis_label("compartments")
-                .y_axis_label("weighted RMS error of DC attenuation to the soma (Np)")
+                .y_axis_label("DC attenuation error, RMS (Np)")
                 .show(ui, |pu| {
                     pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
                     pu.vline(
