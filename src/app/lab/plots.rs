@@ -154,7 +154,7 @@ impl LabView {
             title: format!("Morphoelectrotonic distance{freq}"),
             key: vec![(TIP, "towards the soma"), (SOMA, "away from the soma")],
             dashed: None,
-            y_label: "ln(attenuation) to or from the soma",
+            y_label: "attenuation to or from the soma (Np)",
             y_range: &[0.0],
             curves: vec![
                 curve("towards the soma", &s.melec_in, TIP),
