@@ -11,7 +11,8 @@ Checks (exit status 1 if any fails):
      (and the full cell's within the junction effect plus 1e-6);
   3. the feed-forward form: for random injected currents I, the soma voltage of the dense solve
      equals (sum_k I_k * prod of w along k's path to the root) / Y_root;
-  4. the slowest time constant (smallest eigenvalue of C^-1 G) equals tau = Rm*Cm.
+  4. the slowest time constant (smallest eigenvalue of C^-1 G) equals tau = Rm*Cm (uniform
+     capacitances), or lies within 10 % of it from 15 compartments on (fitted capacitances).
 
 Needs numpy only. Units in the file: nS, pF, um; 1/nS = 1 GOhm = 1000 MOhm; nS/pF = 1/ms.
 """
@@ -141,8 +142,14 @@ def main(path):
     tau_slow = 1.0 / sv.min() ** 2
     rel_tau = abs(tau_slow - tau) / tau
     print(f"slowest time constant {tau_slow:.9g} ms, tau = {tau} ms (rel {rel_tau:.2e})")
-    if rel_tau > 1e-6:
+    # uniform capacitances (C = tau x leak) keep tau exactly; fitted ones trade that for the
+    # transients and stay within 10 % from 15 compartments on (README, "How the reduction works")
+    rule = doc["parameters"].get("capacitance", "uniform")
+    n_comp = len(doc["compartments"])
+    if rule == "uniform" and rel_tau > 1e-6:
         errors += fail("the slowest time constant is not tau")
+    elif rule == "fitted" and n_comp >= 15 and rel_tau > 0.10:
+        errors += fail("the slowest time constant is more than 10 % from tau")
 
     # site map: counts add up
     counted = sum(c["site_count"] for c in comps)

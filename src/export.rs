@@ -99,6 +99,8 @@ struct Parameters<'a> {
     types_kept: Option<&'a [i32]>,
     sites: &'static str,
     junction_length_fraction: f64,
+    /// How the capacitances were chosen (`fitted` or `uniform`).
+    capacitance: crate::reduce::CapacitanceRule,
     compartments_requested: usize,
     compartments: usize,
 }
@@ -271,6 +273,7 @@ fn tree_json<B: serde::Serialize>(
                 crate::reduce::Sites::List(_) => "list",
             },
             junction_length_fraction: o.junction_length_fraction,
+            capacitance: o.capacitance,
             compartments_requested: tree.requested,
             compartments: tree.len(),
         },
