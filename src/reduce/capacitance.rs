@@ -48,17 +48,22 @@ pub(super) fn full_log_transfer(r: &Reducer) -> Vec<Vec<C64>> {
                 Ok(n) => n,
                 Err(_) => return Vec::new(),
             };
-            let f = TreeFactor::new(&net.parent, &net.g, &net.shunt);
             let mut lz = vec![C64::new(0.0, 0.0); net.len()];
-            if !lz.is_empty() {
-                lz[0] = -f.root_admittance().ln();
-            }
-            for k in 1..net.len() {
-                lz[k] = lz[net.parent[k] as usize] + f.down()[k].ln();
-            }
+            log_soma_column(&TreeFactor::new(&net.parent, &net.g, &net.shunt), &mut lz);
             lz
         })
         .collect()
+}
+
+/// The soma column in log form, phase unwrapped along each path: ln Z_00 = −ln D_0 and
+/// ln Z_c0 = ln Z_p0 + ln(g/(g + D_c)) (the downward voltage ratios of Hines 1984's elimination).
+fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64]) {
+    if let Some(first) = lz.first_mut() {
+        *first = -f.root_admittance().ln();
+    }
+    for k in 1..lz.len() {
+        lz[k] = lz[f.parent()[k] as usize] + f.down()[k].ln();
+    }
 }
 
 /// The fitting problem of one reduced tree.
@@ -91,11 +96,7 @@ impl Problem<'_> {
             let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
             let shunt: Vec<C64> = (0..n).map(|k| C64::new(self.leak[k], w * cap[k])).collect();
             let fac = TreeFactor::new(self.parent, &g, &shunt);
-            // soma column in log form: ln Z_00 = −ln D_0, ln Z_c0 = ln Z_p0 + ln(g/(g + D_c))
-            lz[0] = -fac.root_admittance().ln();
-            for k in 1..n {
-                lz[k] = lz[self.parent[k] as usize] + fac.down()[k].ln();
-            }
+            log_soma_column(&fac, &mut lz);
             for k in 0..n {
                 let r = lz[k] - self.target[fi][k];
                 let wt = self.weight[fi][k];

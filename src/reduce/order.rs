@@ -158,17 +158,22 @@ pub(super) fn collapse_order(fine: &Fine, sk: &mut Skeleton) {
             sk.own[k].sse_at(a[k])
         };
     }
-    // the increase of squared error of one feature when cherry c collapses
-    let delta = |c: usize, own: &[Moments], region: &[Moments], at: &[f64]| -> f64 {
+    // the sites of cherry c's section and of its two leaves' regions, as one region
+    let merged = |c: usize, region: &[Moments]| -> Moments {
         let [x, y] = sk.kids[c].expect("a cherry has two children");
-        let mut m = own[c];
+        let mut m = sk.own[c];
         m.merge(&region[x as usize]);
         m.merge(&region[y as usize]);
-        // the soma cannot move: its sites are served at its own level
-        let merged = if c == 0 { m.sse_at(at[0]) } else { m.m2 };
-        merged - region[x as usize].m2 - region[y as usize].m2 - own[c].sse_at(at[c])
+        m
     };
-    let cost = |c: usize, region: &[Moments]| -> f64 { delta(c, &sk.own, region, a) };
+    // the increase of squared error when cherry c collapses
+    let cost = |c: usize, region: &[Moments]| -> f64 {
+        let [x, y] = sk.kids[c].expect("a cherry has two children");
+        let m = merged(c, region);
+        // the soma cannot move: its sites are served at its own level
+        let after = if c == 0 { m.sse_at(a[0]) } else { m.m2 };
+        after - region[x as usize].m2 - region[y as usize].m2 - sk.own[c].sse_at(a[c])
+    };
     let mut heap = BinaryHeap::new();
     for c in 0..n {
         if let Some([x, y]) = sk.kids[c]
@@ -194,11 +199,7 @@ pub(super) fn collapse_order(fine: &Fine, sk: &mut Skeleton) {
         let c = c as usize;
         order.push(c as u32);
         total += k;
-        let [x, y] = sk.kids[c].expect("a cherry has two children");
-        let mut m = sk.own[c];
-        m.merge(&region[x as usize]);
-        m.merge(&region[y as usize]);
-        region[c] = m;
+        region[c] = merged(c, &region);
         leaf[c] = true;
         alive -= 2;
         curve.push(CurvePoint {
