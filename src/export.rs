@@ -10,6 +10,41 @@ use std::path::{Path, PathBuf};
 mod cable_json;
 pub use cable_json::{CableDoc, CableJsonError, PointsOut, TipOut};
 
+/// `"pollard X.Y.Z"`: the `generator` member of every document pollard writes.
+pub fn generator() -> String {
+    format!("pollard {}", env!("CARGO_PKG_VERSION"))
+}
+
+/// The first members of the documents written beside a reduced tree (traces, fidelity tables):
+/// what the document is, what wrote it, from which cell, for how many compartments and which
+/// membrane. A document puts it first with `#[serde(flatten)]`.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct DocHeader<'a> {
+    pub format: &'static str,
+    pub generator: String,
+    pub source: &'a str,
+    pub compartments: usize,
+    pub parameters: crate::cable::Params,
+}
+
+impl<'a> DocHeader<'a> {
+    /// The header of a `format` document about the cell `source` and a tree of `compartments`.
+    pub fn new(
+        format: &'static str,
+        source: &'a str,
+        compartments: usize,
+        parameters: crate::cable::Params,
+    ) -> Self {
+        DocHeader {
+            format,
+            generator: generator(),
+            source,
+            compartments,
+            parameters,
+        }
+    }
+}
+
 /// Why an output could not be written.
 #[derive(Debug, thiserror::Error)]
 pub enum WriteError {
@@ -253,7 +288,7 @@ fn tree_json<B: serde::Serialize>(
     let file = TreeFile {
         format: REDUCED_TREE_FORMAT,
         schema_version: REDUCED_TREE_SCHEMA_VERSION,
-        generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),
+        generator: generator(),
         source: src.source,
         parameters: Parameters {
             rm_ohm_cm2: p.rm_ohm_cm2,

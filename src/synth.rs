@@ -507,6 +507,22 @@ struct Habit {
     pull_w: f64,
 }
 
+/// The growth habits of the invented cells, one row each (a table of data: the numbers are
+/// invented, chosen so that the cells look plausible).
+#[rustfmt::skip]
+mod habits {
+    use super::Habit;
+    const NONE: [f64; 3] = [0.0; 3];
+    const UP: [f64; 3] = [0.0, 1.0, 0.0];
+    const DOWN: [f64; 3] = [0.0, -1.0, 0.0];
+    pub const BASAL: Habit = Habit { kind: 3, step: (2.0, 5.0), section: (15.0, 60.0), max_order: 4, p_fork: 0.7, sure_fork_below: 1, p_three: 0.04, taper: 0.004, min_r: 0.25, wander: 0.25, fork_cos: (0.6, 0.9), pull: NONE, pull_w: 0.0 };
+    pub const OBLIQUE: Habit = Habit { kind: 4, step: (2.0, 5.0), section: (20.0, 70.0), max_order: 2, p_fork: 0.6, sure_fork_below: 0, p_three: 0.0, taper: 0.004, min_r: 0.25, wander: 0.2, fork_cos: (0.6, 0.85), pull: UP, pull_w: 0.03 };
+    pub const TUFT: Habit = Habit { kind: 4, step: (2.0, 5.0), section: (25.0, 70.0), max_order: 3, p_fork: 0.8, sure_fork_below: 0, p_three: 0.05, taper: 0.004, min_r: 0.25, wander: 0.25, fork_cos: (0.55, 0.85), pull: UP, pull_w: 0.05 };
+    pub const PYRAMIDAL_AXON: Habit = Habit { kind: 2, step: (3.0, 6.0), section: (40.0, 120.0), max_order: 1, p_fork: 1.0, sure_fork_below: 0, p_three: 0.0, taper: 0.001, min_r: 0.2, wander: 0.1, fork_cos: (0.2, 0.5), pull: DOWN, pull_w: 0.05 };
+    pub const STELLATE_DENDRITE: Habit = Habit { kind: 3, step: (2.0, 5.0), section: (20.0, 70.0), max_order: 4, p_fork: 0.6, sure_fork_below: 2, p_three: 0.04, taper: 0.004, min_r: 0.25, wander: 0.3, fork_cos: (0.6, 0.9), pull: NONE, pull_w: 0.0 };
+    pub const STELLATE_AXON: Habit = Habit { kind: 2, step: (3.0, 6.0), section: (60.0, 150.0), max_order: 1, p_fork: 0.5, sure_fork_below: 0, p_three: 0.0, taper: 0.001, min_r: 0.2, wander: 0.15, fork_cos: (0.3, 0.6), pull: NONE, pull_w: 0.0 };
+}
+
 /// Daughter radii at a fork of parent radius `r`: the parent's r^{3/2} is shared in random
 /// proportions (3/2 power rule, Rall 1959), then each is jittered by up to ±`noise`.
 fn fork_radii(rng: &mut Rng, r: f64, k: usize, noise: f64, min_r: f64) -> Vec<f64> {
@@ -575,22 +591,14 @@ fn grow(c: &mut Cell, rng: &mut Rng, from: Sprout, h: &Habit, budget: usize) -> 
     c.pts.len() - before
 }
 
-fn basal_habit() -> Habit {
-    Habit {
-        kind: 3,
-        step: (2.0, 5.0),
-        section: (15.0, 60.0),
-        max_order: 4,
-        p_fork: 0.7,
-        sure_fork_below: 1,
-        p_three: 0.04,
-        taper: 0.004,
-        min_r: 0.25,
-        wander: 0.25,
-        fork_cos: (0.6, 0.9),
-        pull: [0.0; 3],
-        pull_w: 0.0,
-    }
+/// A stem out of the soma: its first point at `from`'s position (on the soma's surface, child
+/// of the soma point `from.0`), then [`grow`] with `h` on a `1/share` part of the points left
+/// under `cap`.
+fn stem(c: &mut Cell, rng: &mut Rng, from: Sprout, h: &Habit, cap: usize, share: usize) {
+    let Sprout(soma, start, dir, r) = from;
+    let first = c.push(h.kind, start, r, soma);
+    let budget = cap.saturating_sub(c.pts.len()) / share.max(1);
+    grow(c, rng, Sprout(first, start, dir, r), h, budget);
 }
 
 /// An invented pyramidal-like cell (a few hundred to ~3000 points, 3-D, rounded to 1 nm): a
@@ -613,21 +621,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
     let mut at = c.push(4, pos, r, soma);
     let mut climbed = 0.0;
     let mut next_oblique = rng.range(20.0, 45.0);
-    let oblique = Habit {
-        kind: 4,
-        step: (2.0, 5.0),
-        section: (20.0, 70.0),
-        max_order: 2,
-        p_fork: 0.6,
-        sure_fork_below: 0,
-        p_three: 0.0,
-        taper: 0.004,
-        min_r: 0.25,
-        wander: 0.2,
-        fork_cos: (0.6, 0.85),
-        pull: [0.0, 1.0, 0.0],
-        pull_w: 0.03,
-    };
+    let oblique = habits::OBLIQUE;
     while climbed < trunk_len {
         let step = rng.range(3.0, 5.0);
         d = wiggle(&mut rng, d, 0.08);
@@ -647,21 +641,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
         }
     }
     // tuft
-    let tuft = Habit {
-        kind: 4,
-        step: (2.0, 5.0),
-        section: (25.0, 70.0),
-        max_order: 3,
-        p_fork: 0.8,
-        sure_fork_below: 0,
-        p_three: 0.05,
-        taper: 0.004,
-        min_r: 0.25,
-        wander: 0.25,
-        fork_cos: (0.55, 0.85),
-        pull: [0.0, 1.0, 0.0],
-        pull_w: 0.05,
-    };
+    let tuft = habits::TUFT;
     let n_tuft = 2 + rng.below(2) as usize;
     let radii = fork_radii(&mut rng, r, n_tuft, 0.1, 0.3);
     let axis = random_perp(&mut rng, d);
@@ -674,7 +654,7 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
     }
     // basal dendrites
     let n_basal = 4 + rng.below(3) as usize;
-    let basal = basal_habit();
+    let basal = habits::BASAL;
     for i in 0..n_basal {
         // around the soma's equator, tilted downwards
         let u = rng.unit_vector();
@@ -683,33 +663,11 @@ pub fn pyramidal(seed: u64) -> Vec<SwcPoint> {
             bd = normalize([-bd[0], bd[1], -bd[2]]);
         }
         let br = rng.range(0.8, 1.3);
-        let start = scale(bd, soma_r);
-        let first = c.push(3, start, br, soma);
-        let budget = cap.saturating_sub(c.pts.len()) / (n_basal - i).max(1);
-        grow(
-            &mut c,
-            &mut rng,
-            Sprout(first, start, bd, br),
-            &basal,
-            budget,
-        );
+        let from = Sprout(soma, scale(bd, soma_r), bd, br);
+        stem(&mut c, &mut rng, from, &basal, cap, n_basal - i);
     }
     // axon
-    let axon = Habit {
-        kind: 2,
-        step: (3.0, 6.0),
-        section: (40.0, 120.0),
-        max_order: 1,
-        p_fork: 1.0,
-        sure_fork_below: 0,
-        p_three: 0.0,
-        taper: 0.001,
-        min_r: 0.2,
-        wander: 0.1,
-        fork_cos: (0.2, 0.5),
-        pull: [0.0, -1.0, 0.0],
-        pull_w: 0.05,
-    };
+    let axon = habits::PYRAMIDAL_AXON;
     let start = [0.0, -soma_r, 0.0];
     let first = c.push(2, start, 0.6, soma);
     let from = Sprout(first, start, [0.0, -1.0, 0.0], 0.5);
@@ -730,14 +688,7 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
     c.push(1, [0.0, soma_r, 0.0], soma_r, soma);
     let cap: usize = 2400;
     let n_dend = 5 + rng.below(4) as usize;
-    let habit = Habit {
-        section: (20.0, 70.0),
-        max_order: 4,
-        p_fork: 0.6,
-        sure_fork_below: 2,
-        wander: 0.3,
-        ..basal_habit()
-    };
+    let habit = habits::STELLATE_DENDRITE;
     // directions spread over the sphere (a golden-angle spiral, jittered)
     for i in 0..n_dend {
         let y = 1.0 - 2.0 * (i as f64 + 0.5) / n_dend as f64;
@@ -750,32 +701,10 @@ pub fn stellate(seed: u64) -> Vec<SwcPoint> {
         }
         let dd = wiggle(&mut rng, normalize([ring * p[0], y, ring * p[1]]), 0.3);
         let dr = rng.range(0.9, 1.5);
-        let start = scale(dd, soma_r);
-        let first = c.push(3, start, dr, soma);
-        let budget = cap.saturating_sub(c.pts.len()) / (n_dend - i).max(1);
-        grow(
-            &mut c,
-            &mut rng,
-            Sprout(first, start, dd, dr),
-            &habit,
-            budget,
-        );
+        let from = Sprout(soma, scale(dd, soma_r), dd, dr);
+        stem(&mut c, &mut rng, from, &habit, cap, n_dend - i);
     }
-    let axon = Habit {
-        kind: 2,
-        step: (3.0, 6.0),
-        section: (60.0, 150.0),
-        max_order: 1,
-        p_fork: 0.5,
-        sure_fork_below: 0,
-        p_three: 0.0,
-        taper: 0.001,
-        min_r: 0.2,
-        wander: 0.15,
-        fork_cos: (0.3, 0.6),
-        pull: [0.0; 3],
-        pull_w: 0.0,
-    };
+    let axon = habits::STELLATE_AXON;
     let ad = rng.unit_vector();
     let start = scale(ad, soma_r);
     let first = c.push(2, start, 0.5, soma);

@@ -1,7 +1,7 @@
 //! `pollard fidelity`: how well a reduced tree behaves like the cell at every synapse site —
 //! the per-site table (CSV and JSON) and its summary on stdout.
 
-use pollard::export::write_atomic;
+use pollard::export::{DocHeader, write_atomic};
 use pollard::fidelity::{Fidelity, FidelityOptions, FidelityReport, SiteFidelity, sites_csv};
 use std::io::Write;
 use std::path::PathBuf;
@@ -35,11 +35,8 @@ pub struct Args {
 
 #[derive(serde::Serialize)]
 struct Doc<'a> {
-    format: &'static str,
-    generator: String,
-    source: &'a str,
-    compartments: usize,
-    parameters: pollard::cable::Params,
+    #[serde(flatten)]
+    head: DocHeader<'a>,
     options: FidelityOptions,
     summary: &'a FidelityReport,
     sites: &'a [SiteFidelity],
@@ -66,11 +63,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     }
     if let Some(p) = &a.out {
         let doc = Doc {
-            format: "pollard.fidelity-sites",
-            generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),
-            source: &name,
-            compartments: tree.len(),
-            parameters: *reducer.params(),
+            head: DocHeader::new(
+                "pollard.fidelity-sites",
+                &name,
+                tree.len(),
+                *reducer.params(),
+            ),
             options: opts,
             summary: &summary,
             sites: &rows,

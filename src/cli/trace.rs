@@ -1,7 +1,7 @@
 //! `pollard trace`: soma and site voltage over time for one site, full cell and reduced tree,
 //! for a current or a conductance synapse at the site (CSV and JSON).
 
-use pollard::export::write_atomic;
+use pollard::export::{DocHeader, write_atomic};
 use pollard::fidelity::{
     Input, SiteRef, TraceOptions, Traces, percent, resolve_site, response_traces,
 };
@@ -36,6 +36,31 @@ pub struct Args {
         allow_negative_numbers = true
     )]
     pub at: Option<Vec<f64>>,
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Simulated time (ms).
+    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().duration_ms,
+          allow_negative_numbers = true)]
+    pub duration: f64,
+    /// Time step (ms).
+    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().dt_ms,
+          allow_negative_numbers = true)]
+    pub dt: f64,
+    /// Largest piece of the full cell's network, as a fraction of its segment's length constant.
+    #[arg(long = "piece-fraction", value_name = "F", allow_negative_numbers = true,
+          default_value_t = PieceRule::default().lambda_fraction)]
+    pub piece_fraction: f64,
+    /// Write the traces as CSV to this file.
+    #[arg(long, value_name = "TRACES.csv")]
+    pub csv: Option<PathBuf>,
+    /// Write the traces as JSON to this file.
+    #[arg(long, short = 'o', value_name = "TRACES.json")]
+    pub out: Option<PathBuf>,
+}
+
+/// What is injected at the site: an alpha current, or with `--synapse` a conductance.
+#[derive(clap::Args, Debug)]
+pub struct InputArgs {
     /// Peak of the alpha current (pA).
     #[arg(
         long,
@@ -57,7 +82,7 @@ pub struct Args {
     pub synapse: bool,
     /// Synapse reversal potential relative to rest (mV).
     #[arg(
-        long = "e-rev",
+        long,
         value_name = "MV",
         default_value_t = 70.0,
         allow_negative_numbers = true
@@ -65,7 +90,7 @@ pub struct Args {
     pub e_rev: f64,
     /// Synapse peak conductance (nS).
     #[arg(
-        long = "g-peak",
+        long,
         value_name = "NS",
         default_value_t = 1.0,
         allow_negative_numbers = true
@@ -73,7 +98,7 @@ pub struct Args {
     pub g_peak: f64,
     /// Synapse rise time constant (ms).
     #[arg(
-        long = "tau-rise",
+        long,
         value_name = "MS",
         default_value_t = 0.2,
         allow_negative_numbers = true
@@ -81,39 +106,40 @@ pub struct Args {
     pub tau_rise: f64,
     /// Synapse decay time constant (ms).
     #[arg(
-        long = "tau-decay",
+        long,
         value_name = "MS",
         default_value_t = 2.0,
         allow_negative_numbers = true
     )]
     pub tau_decay: f64,
-    /// Simulated time (ms).
-    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().duration_ms,
-          allow_negative_numbers = true)]
-    pub duration: f64,
-    /// Time step (ms).
-    #[arg(long, value_name = "MS", default_value_t = TraceOptions::default().dt_ms,
-          allow_negative_numbers = true)]
-    pub dt: f64,
-    /// Largest piece of the full cell's network, as a fraction of its segment's length constant.
-    #[arg(long = "piece-fraction", value_name = "F", allow_negative_numbers = true,
-          default_value_t = PieceRule::default().lambda_fraction)]
-    pub piece_fraction: f64,
-    /// Write the traces as CSV to this file.
-    #[arg(long, value_name = "TRACES.csv")]
-    pub csv: Option<PathBuf>,
-    /// Write the traces as JSON to this file.
-    #[arg(long, short = 'o', value_name = "TRACES.json")]
-    pub out: Option<PathBuf>,
+}
+
+impl InputArgs {
+    fn input(&self) -> Input {
+        if self.synapse {
+            Input::Synapse {
+                synapse: Synapse {
+                    e_rev_mv: self.e_rev,
+                    g_peak_ns: self.g_peak,
+                    tau_rise_ms: self.tau_rise,
+                    tau_decay_ms: self.tau_decay,
+                },
+            }
+        } else {
+            Input::Current {
+                waveform: Waveform::Alpha {
+                    tau_ms: self.tau,
+                    peak_pa: self.current,
+                },
+            }
+        }
+    }
 }
 
 #[derive(serde::Serialize)]
 struct Doc<'a> {
-    format: &'static str,
-    generator: String,
-    source: &'a str,
-    compartments: usize,
-    parameters: pollard::cable::Params,
+    #[serde(flatten)]
+    head: DocHeader<'a>,
     input: Input,
     options: TraceOptions,
     #[serde(flatten)]
@@ -146,23 +172,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let point = resolve_site(&m, &reducer, site)?;
     let tree = reducer.tree(a.reduce.compartments);
-    let input = if a.synapse {
-        Input::Synapse {
-            synapse: Synapse {
-                e_rev_mv: a.e_rev,
-                g_peak_ns: a.g_peak,
-                tau_rise_ms: a.tau_rise,
-                tau_decay_ms: a.tau_decay,
-            },
-        }
-    } else {
-        Input::Current {
-            waveform: Waveform::Alpha {
-                tau_ms: a.tau,
-                peak_pa: a.current,
-            },
-        }
-    };
+    let input = a.input.input();
     let opts = TraceOptions {
         duration_ms: a.duration,
         dt_ms: a.dt,
@@ -179,11 +189,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     }
     if let Some(p) = &a.out {
         let doc = Doc {
-            format: "pollard.traces",
-            generator: format!("pollard {}", env!("CARGO_PKG_VERSION")),
-            source: &name,
-            compartments: tree.len(),
-            parameters: *reducer.params(),
+            head: DocHeader::new("pollard.traces", &name, tree.len(), *reducer.params()),
             input,
             options: opts,
             traces: &tr,
