@@ -1,5 +1,5 @@
-//! `pollard cable` end to end: JSON keys and values on a cylinder with a closed form, the site
-//! map, and clear refusals.
+//! `pollard cable` end to end: JSON keys and values on a cylinder with a closed form, the
+//! injection point's map, and clear refusals.
 
 use std::process::Command;
 
@@ -20,7 +20,13 @@ fn json_holds_every_point_and_the_closed_form() {
     let dir = tempfile::tempdir().unwrap();
     let cell = cylinder_file(dir.path());
     let out = pollard()
-        .args(["cable", cell.to_str().unwrap(), "--json", "--site", "51"])
+        .args([
+            "cable",
+            cell.to_str().unwrap(),
+            "--json",
+            "--injection-point",
+            "51",
+        ])
         .output()
         .unwrap();
     assert!(
@@ -42,10 +48,11 @@ fn json_holds_every_point_and_the_closed_form() {
     assert_eq!(points.len(), 51);
     let tip = points.iter().find(|p| p["id"] == 51).unwrap();
     assert!((tip["attenuation_from_soma"].as_f64().unwrap() - l.cosh()).abs() < 1e-6);
-    assert_eq!(tip["site_ratio"].as_f64().unwrap(), 1.0);
+    assert_eq!(v["injection_point"], 51);
+    assert_eq!(tip["v_over_v_injection_point"].as_f64().unwrap(), 1.0);
     // current at the tip: V_soma/V_tip = 1/cosh(L) on a sealed cylinder
     let soma = points.iter().find(|p| p["id"] == 1).unwrap();
-    assert!((soma["site_ratio"].as_f64().unwrap() - 1.0 / l.cosh()).abs() < 1e-6);
+    assert!((soma["v_over_v_injection_point"].as_f64().unwrap() - 1.0 / l.cosh()).abs() < 1e-6);
     assert_eq!(soma["attenuation_to_soma"].as_f64().unwrap(), 1.0);
     for p in points {
         for key in [
@@ -80,11 +87,18 @@ fn impedance_magnitudes_at_100_hz_and_refusals() {
     assert!(!bad.status.success());
     assert!(String::from_utf8_lossy(&bad.stderr).contains("Rm"));
     let bad = pollard()
-        .args(["cable", c, "--site", "999"])
+        .args(["cable", c, "--injection-point", "999"])
         .output()
         .unwrap();
     assert!(!bad.status.success());
     assert!(String::from_utf8_lossy(&bad.stderr).contains("999"));
+    // the clicked point has one name: the old `--site` spelling is gone, not a second name
+    let old = pollard()
+        .args(["cable", c, "--site", "51"])
+        .output()
+        .unwrap();
+    assert!(!old.status.success());
+    assert!(String::from_utf8_lossy(&old.stderr).contains("--site"));
     // no radii: the message names the fix; with it, the run succeeds
     let path = dir.path().join("noradius.swc");
     std::fs::write(&path, "1 1 0 0 0 5 -1\n2 3 10 0 0 0 1\n3 3 20 0 0 0 2\n").unwrap();

@@ -97,7 +97,14 @@ fn trace_writes_soma_and_site_voltages_on_every_real_cell() {
         for synapse in [false, true] {
             let csv = dir.path().join("tr.csv");
             let json = dir.path().join("tr.json");
-            let mut args = vec!["trace", cell.to_str().unwrap(), "-n", "31", "--site", id];
+            let mut args = vec![
+                "trace",
+                cell.to_str().unwrap(),
+                "-n",
+                "31",
+                "--injection-point",
+                id,
+            ];
             args.extend(&flags);
             args.extend(["--duration", "20", "--csv", csv.to_str().unwrap()]);
             args.extend(["--out", json.to_str().unwrap()]);
@@ -115,14 +122,17 @@ fn trace_writes_soma_and_site_voltages_on_every_real_cell() {
             let lines: Vec<&str> = t.lines().collect();
             assert_eq!(
                 lines[0],
-                "time_ms,soma_full_mv,site_full_mv,soma_reduced_mv,site_reduced_mv"
+                "time_ms,soma_full_mv,injection_point_full_mv,soma_reduced_mv,injection_point_reduced_mv"
             );
             assert_eq!(lines.len(), 1 + 801); // 0 to 20 ms by 0.025
             let v: serde_json::Value =
                 serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
             assert_eq!(v["swc_id"].as_i64().unwrap().to_string(), id);
-            // a depolarising input: the site rises above the soma in both networks (passive
-            // attenuation from the site; the site is not the soma)
+            assert_eq!(v["format"], "pollard.traces");
+            assert_eq!(v["schema_version"], 2);
+            assert!(v.get("site_full_mv").is_none() && v["injection_point_full_mv"].is_array());
+            // a depolarising input: the injection point rises above the soma in both networks
+            // (passive attenuation from the injection point; it is not the soma)
             let peak = |k: &str| {
                 v[k].as_array()
                     .unwrap()
@@ -130,7 +140,7 @@ fn trace_writes_soma_and_site_voltages_on_every_real_cell() {
                     .fold(0.0f64, |m, x| m.max(x.as_f64().unwrap()))
             };
             assert!(
-                peak("site_full_mv") > peak("soma_full_mv"),
+                peak("injection_point_full_mv") > peak("soma_full_mv"),
                 "{}",
                 cell.display()
             );
@@ -148,17 +158,38 @@ fn trace_and_fidelity_errors_are_one_line() {
     let o = out.to_str().unwrap();
     for (args, needle) in [
         (
-            vec!["trace", c, "-n", "7", "--site", "99999999", "--csv", o],
+            vec![
+                "trace",
+                c,
+                "-n",
+                "7",
+                "--injection-point",
+                "99999999",
+                "--csv",
+                o,
+            ],
             "no point with SWC id",
         ),
         (
             vec!["trace", c, "-n", "7", "--at", "1,2", "--csv", o],
             "three finite numbers",
         ),
-        (vec!["trace", c, "-n", "7", "--site", "500"], "--csv FILE"),
+        (
+            vec!["trace", c, "-n", "7", "--injection-point", "500"],
+            "--csv FILE",
+        ),
         (
             vec![
-                "trace", c, "-n", "7", "--site", "500", "--dt", "0", "--csv", o,
+                "trace",
+                c,
+                "-n",
+                "7",
+                "--injection-point",
+                "500",
+                "--dt",
+                "0",
+                "--csv",
+                o,
             ],
             "time step",
         ),

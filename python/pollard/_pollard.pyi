@@ -132,12 +132,13 @@ def cable_maps(
     ra: float = 150.0,
     cm: float = 1.0,
     freq: float = 0.0,
-    site: Optional[int] = None,
+    injection_point: Optional[int] = None,
     scale: Optional[float] = None,
     default_diameter: Optional[float] = None,
 ) -> Dict[str, Any]:
     """Per point (order of Morphology.ids; NaN off the main tree): 'input_impedance_mohm',
-    'attenuation_to_soma', 'attenuation_from_soma', with `site` (an SWC id) 'v_over_v_site';
+    'attenuation_to_soma', 'attenuation_from_soma', with `injection_point` (an SWC id: a current
+    injected there) 'v_over_v_injection_point';
     plus 'ids', 'freq_hz' and the whole-cell 'summary'."""
 
 def reduce(

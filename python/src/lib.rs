@@ -225,7 +225,7 @@ pub(crate) fn flat_of(
 
 /// Passive cable maps at every point of a cell (the numbers of `pollard cable`).
 #[pyfunction]
-#[pyo3(signature = (cell, rm=20000.0, ra=150.0, cm=1.0, freq=0.0, site=None, scale=None, default_diameter=None))]
+#[pyo3(signature = (cell, rm=20000.0, ra=150.0, cm=1.0, freq=0.0, injection_point=None, scale=None, default_diameter=None))]
 #[allow(clippy::too_many_arguments)]
 fn cable_maps<'py>(
     py: Python<'py>,
@@ -234,7 +234,7 @@ fn cable_maps<'py>(
     ra: f64,
     cm: f64,
     freq: f64,
-    site: Option<i64>,
+    injection_point: Option<i64>,
     scale: Option<f64>,
     default_diameter: Option<f64>,
 ) -> PyResult<Bound<'py, PyDict>> {
@@ -249,14 +249,16 @@ fn cable_maps<'py>(
         params.validate(freq).map_err(|e| e.to_string())?;
         let flat = flat_of(&m, &prep)?;
         let maps = CellMaps::compute(&flat, &params, freq).map_err(|e| format!("{name}: {e}"))?;
-        let site_v = match site {
+        let site_v = match injection_point {
             None => None,
             Some(id) => {
                 let i = m.points.iter().position(|p| p.id == id).ok_or_else(|| {
-                    format!("{name}: site {id}: no point with that id in the file")
+                    format!("{name}: injection point {id}: no point with that id in the file")
                 })?;
                 let k = maps.node_of_point(i).ok_or_else(|| {
-                    format!("{name}: site {id}: that point is not connected to the main tree")
+                    format!(
+                        "{name}: injection point {id}: that point is not connected to the main tree"
+                    )
                 })?;
                 maps.site_ratio_abs(k)
             }
@@ -286,7 +288,7 @@ fn cable_maps<'py>(
         arr(py, per_point(&|k| maps.attenuation_from_soma(k))),
     )?;
     if let Some(v) = site_v {
-        d.set_item("v_over_v_site", arr(py, per_point(&|k| v[k])))?;
+        d.set_item("v_over_v_injection_point", arr(py, per_point(&|k| v[k])))?;
     }
     d.set_item("summary", json_to_py(py, &summary)?)?;
     Ok(d)

@@ -182,7 +182,7 @@ def test_morphology_and_cable_maps():
     assert maps["attenuation_to_soma"][soma] == pytest.approx(1.0, rel=1e-12)
     assert np.nanmax(maps["attenuation_to_soma"]) > 1.0
     tip = int(m.ids[-1])
-    v = pollard.cable_maps(m, site=tip)["v_over_v_site"]
+    v = pollard.cable_maps(m, injection_point=tip)["v_over_v_injection_point"]
     assert v[-1] == pytest.approx(1.0, rel=1e-12) and np.nanmax(v) <= 1.0 + 1e-12
 
 

@@ -1,5 +1,6 @@
 //! `pollard cable`: passive maps at every point of a cell (input resistance, attenuation to and
-//! from the soma, optionally the voltage map from one site) and whole-cell numbers.
+//! from the soma, optionally the voltage map for a current at one injection point) and whole-cell
+//! numbers.
 
 use anyhow::Context;
 use pollard::cable::prep::{CableInput, cable_input};
@@ -25,9 +26,14 @@ pub struct Args {
         value_name = "HZ"
     )]
     pub freq: f64,
-    /// Also map V_k/V_site for a current injected at the point with this SWC id.
-    #[arg(long, value_name = "ID")]
-    pub site: Option<i64>,
+    /// Also map V_k/V_inj for a current injected at the point with this SWC id (the injection
+    /// point; `--sites` elsewhere is the scored list of a reduction).
+    #[arg(
+        long = "injection-point",
+        value_name = "ID",
+        allow_negative_numbers = true
+    )]
+    pub injection_point: Option<i64>,
     /// Print JSON (summary and every point) instead of a readable summary.
     #[arg(long)]
     pub json: bool,
@@ -50,15 +56,16 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     } = &input;
     let maps =
         CellMaps::compute(flat, &params, a.freq).with_context(|| a.cell.display().to_string())?;
-    let site_node = match a.site {
+    let site_node = match a.injection_point {
         None => None,
         Some(id) => {
-            let i = ids
-                .iter()
-                .position(|&p| p == id)
-                .with_context(|| format!("--site {id}: no point with that id in the file"))?;
+            let i = ids.iter().position(|&p| p == id).with_context(|| {
+                format!("--injection-point {id}: no point with that id in the file")
+            })?;
             let k = maps.node_of_point(i).with_context(|| {
-                format!("--site {id}: that point is not connected to the cell's main tree")
+                format!(
+                    "--injection-point {id}: that point is not connected to the cell's main tree"
+                )
             })?;
             Some(k)
         }
@@ -72,7 +79,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         ids,
         &maps,
         &summary,
-        a.site.zip(site.as_deref()),
+        a.injection_point.zip(site.as_deref()),
         warnings,
     )?;
     match &a.out {
@@ -115,7 +122,7 @@ fn write_text(
     s: &Summary,
     site_node: Option<usize>,
 ) -> std::io::Result<()> {
-    let (warnings, site) = (doc.warnings, doc.points.site());
+    let (warnings, site) = (doc.warnings, doc.points.injection_point());
     let what = if a.freq > 0.0 {
         format!("|Z| at {} Hz", a.freq)
     } else {
@@ -176,10 +183,10 @@ fn write_text(
             )?;
         }
     }
-    if let (Some(j), Some(v), Some(id)) = (site_node, site, a.site) {
+    if let (Some(j), Some(v), Some(id)) = (site_node, site, a.injection_point) {
         writeln!(
             w,
-            "  site {id}: input resistance {:.2} MΩ; V_soma/V_site {:.4}; smallest |V_k/V_site| {:.4}",
+            "  injection point {id}: input resistance {:.2} MΩ; V_soma/V_inj {:.4}; smallest |V_k/V_inj| {:.4}",
             maps.input_resistance_mohm(j),
             v[0],
             v.iter().cloned().fold(f64::INFINITY, f64::min)

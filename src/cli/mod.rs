@@ -35,8 +35,8 @@ pub enum Command {
     /// How well a reduced tree behaves like the cell at every synapse site (EPSP peak and time
     /// to peak, DC attenuation to and from the soma): a per-site table, CSV and JSON.
     Fidelity(fidelity::Args),
-    /// Voltage over time at the soma and at one site, full cell and reduced tree, for a current
-    /// or a conductance synapse at the site: CSV and JSON.
+    /// Voltage over time at the soma and at one injection point, full cell and reduced tree, for
+    /// a current or a conductance synapse there: CSV and JSON.
     Trace(trace::Args),
     /// Reduce every SWC file below a folder, in parallel, with one summary table.
     Batch(batch::Args),

@@ -1,5 +1,5 @@
-//! `pollard trace`: soma and site voltage over time for one site, full cell and reduced tree,
-//! for a current or a conductance synapse at the site (CSV and JSON).
+//! `pollard trace`: soma and injection-point voltage over time for one injection point, full cell
+//! and reduced tree, for a current or a conductance synapse there (CSV and JSON).
 
 use pollard::export::{DocHeader, write_atomic};
 use pollard::fidelity::{
@@ -11,10 +11,10 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 #[derive(clap::Args, Debug)]
-#[command(group(clap::ArgGroup::new("where").required(true).args(["site", "at"])))]
+#[command(group(clap::ArgGroup::new("where").required(true).args(["injection_point", "at"])))]
 #[command(after_help = "\
-Columns: time_ms, soma_full_mv, site_full_mv, soma_reduced_mv, site_reduced_mv (voltages relative
-to rest). Input: an alpha current (t/tau)e^(1-t/tau) by default, or with --synapse a conductance
+Columns: time_ms, soma_full_mv, injection_point_full_mv, soma_reduced_mv,
+injection_point_reduced_mv (voltages relative to rest). Input: an alpha current (t/tau)e^(1-t/tau) by default, or with --synapse a conductance
 g(t)(E - V) whose g is a difference of exponentials peaking at --g-peak.")]
 pub struct Args {
     /// The SWC file to read.
@@ -25,10 +25,14 @@ pub struct Args {
     pub geometry: super::common::GeometryArgs,
     #[command(flatten)]
     pub reduce: super::common::ReduceArgs,
-    /// The site: an SWC id.
-    #[arg(long, value_name = "ID", allow_negative_numbers = true)]
-    pub site: Option<i64>,
-    /// The site: a position x,y,z (µm), snapped to the nearest point.
+    /// The injection point: an SWC id.
+    #[arg(
+        long = "injection-point",
+        value_name = "ID",
+        allow_negative_numbers = true
+    )]
+    pub injection_point: Option<i64>,
+    /// The injection point: a position x,y,z (µm), snapped to the nearest point.
     #[arg(
         long,
         value_name = "X,Y,Z",
@@ -140,6 +144,8 @@ impl InputArgs {
 struct Doc<'a> {
     #[serde(flatten)]
     head: DocHeader<'a>,
+    /// 2: the unversioned first form's `site_*_mv` traces became `injection_point_*_mv`.
+    schema_version: u32,
     input: Input,
     options: TraceOptions,
     #[serde(flatten)]
@@ -162,13 +168,13 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     }
     let name = a.cell.display().to_string();
     let (m, reducer) = super::common::reducer_for(&a.cell, &a.membrane, &a.geometry, &a.reduce)?;
-    let site = match (&a.site, &a.at) {
+    let site = match (&a.injection_point, &a.at) {
         (Some(id), _) => SiteRef::SwcId(*id),
         (None, Some(p)) if p.len() == 3 && p.iter().all(|x| x.is_finite()) => {
             SiteRef::Position([p[0], p[1], p[2]])
         }
         (None, Some(_)) => anyhow::bail!("--at takes three finite numbers x,y,z (µm)"),
-        (None, None) => anyhow::bail!("give --site ID or --at X,Y,Z"),
+        (None, None) => anyhow::bail!("give --injection-point ID or --at X,Y,Z"),
     };
     let point = resolve_site(&m, &reducer, site)?;
     let tree = reducer.tree(a.reduce.compartments);
@@ -190,6 +196,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if let Some(p) = &a.out {
         let doc = Doc {
             head: DocHeader::new("pollard.traces", &name, tree.len(), *reducer.params()),
+            schema_version: 2,
             input,
             options: opts,
             traces: &tr,
@@ -202,7 +209,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let mut out = std::io::stdout().lock();
     let written = writeln!(
         out,
-        "{name}: site SWC id {} (compartment {} of {}); soma peak: full {pf:.4} mV at {tf:.2} ms, reduced {pr:.4} mV at {trd:.2} ms; peak error {}",
+        "{name}: injection point SWC id {} (compartment {} of {}); soma peak: full {pf:.4} mV at {tf:.2} ms, reduced {pr:.4} mV at {trd:.2} ms; peak error {}",
         tr.swc_id.unwrap_or(-1),
         tr.compartment,
         tree.len(),

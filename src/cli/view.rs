@@ -6,8 +6,8 @@ use std::process::ExitCode;
 /// What the arbors are coloured by when the window opens.
 #[derive(clap::ValueEnum, Clone, Copy, Debug, PartialEq, Eq)]
 pub enum ColourBy {
-    /// Voltage spreading from the synapse site.
-    FromSite,
+    /// Voltage spreading from the injection point (the clicked point).
+    FromInjectionPoint,
     /// Voltage reaching the soma from each point.
     ToSoma,
     /// Local input resistance.
@@ -25,9 +25,13 @@ pub struct Args {
     /// Start with this many compartments in the reduced tree, soma included.
     #[arg(long, short = 'n', value_name = "N")]
     pub compartments: Option<usize>,
-    /// Start with the synapse site at the point with this SWC id.
-    #[arg(long, value_name = "ID")]
-    pub site: Option<i64>,
+    /// Start with the injection point (where the current goes in) at the point with this SWC id.
+    #[arg(
+        long = "injection-point",
+        value_name = "ID",
+        allow_negative_numbers = true
+    )]
+    pub injection_point: Option<i64>,
     /// Frequency (Hz) of the maps at the start (0 = DC; above, resistances are impedance
     /// magnitudes). The reduced tree does not depend on it.
     #[arg(long, value_name = "HZ")]
@@ -56,10 +60,10 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     use pollard::app::state::ColourBy as C;
     let opts = pollard::app::StartOptions {
         budget: a.compartments,
-        site_id: a.site,
+        site_id: a.injection_point,
         freq_hz: a.freq,
         colour_by: a.colour_by.map(|c| match c {
-            ColourBy::FromSite => C::FromSite,
+            ColourBy::FromInjectionPoint => C::FromSite,
             ColourBy::ToSoma => C::ToSoma,
             ColourBy::InputResistance => C::InputResistance,
             ColourBy::Strahler => C::Strahler,

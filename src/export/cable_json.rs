@@ -46,8 +46,9 @@ pub struct CableDoc<'a> {
     pub mean_tip_electrotonic_length: f64,
     pub max_attenuation_to_soma: f64,
     pub max_attenuation_from_soma: f64,
+    /// SWC id of the injection point (`--injection-point`), when the maps include one.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub site: Option<i64>,
+    pub injection_point: Option<i64>,
     pub warnings: &'a [Warning],
     pub tips: Vec<TipOut>,
     pub points: PointsOut<'a>,
@@ -55,11 +56,11 @@ pub struct CableDoc<'a> {
 
 /// The `points` array: one object per SWC point, in the morphology's order, with the point's
 /// id and, for points of the main tree, its input resistance (MΩ), attenuations to and from the
-/// soma and (with a site) |V_k/V_site|. Points outside the main tree carry their id only.
+/// soma and (with an injection point) |V_k/V_inj| as `v_over_v_injection_point`. Points outside the main tree carry their id only.
 pub struct PointsOut<'a> {
     ids: &'a [i64],
     values: Vec<Option<PointValues>>,
-    site: Option<&'a [f64]>,
+    injection: Option<&'a [f64]>,
 }
 
 /// One point's object: `id`, then the maps when the point is in the main tree.
@@ -72,22 +73,22 @@ struct PointValues {
     input_resistance_mohm: f64,
     attenuation_to_soma: f64,
     attenuation_from_soma: f64,
-    site_ratio: Option<f64>,
+    v_over_v_inj: Option<f64>,
 }
 
 impl serde::Serialize for PointOut<'_> {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         use serde::ser::SerializeStruct;
         let v = self.values.as_ref();
-        let n = 1 + v.map_or(0, |v| 3 + v.site_ratio.is_some() as usize);
+        let n = 1 + v.map_or(0, |v| 3 + v.v_over_v_inj.is_some() as usize);
         let mut st = s.serialize_struct("Point", n)?;
         st.serialize_field("id", &self.id)?;
         if let Some(v) = v {
             st.serialize_field("input_resistance_mohm", &v.input_resistance_mohm)?;
             st.serialize_field("attenuation_to_soma", &v.attenuation_to_soma)?;
             st.serialize_field("attenuation_from_soma", &v.attenuation_from_soma)?;
-            if let Some(r) = v.site_ratio {
-                st.serialize_field("site_ratio", &r)?;
+            if let Some(r) = v.v_over_v_inj {
+                st.serialize_field("v_over_v_injection_point", &r)?;
             }
         }
         st.end()
@@ -96,7 +97,7 @@ impl serde::Serialize for PointOut<'_> {
 
 impl<'a> PointsOut<'a> {
     /// The maps at every point, computed in parallel (rayon).
-    fn new(ids: &'a [i64], maps: &CellMaps, site: Option<&'a [f64]>) -> PointsOut<'a> {
+    fn new(ids: &'a [i64], maps: &CellMaps, injection: Option<&'a [f64]>) -> PointsOut<'a> {
         use rayon::prelude::*;
         let values = (0..ids.len())
             .into_par_iter()
@@ -107,16 +108,20 @@ impl<'a> PointsOut<'a> {
                     input_resistance_mohm: maps.input_resistance_mohm(k),
                     attenuation_to_soma: maps.attenuation_to_soma(k),
                     attenuation_from_soma: maps.attenuation_from_soma(k),
-                    site_ratio: site.map(|v| v[k]),
+                    v_over_v_inj: injection.map(|v| v[k]),
                 })
             })
             .collect();
-        PointsOut { ids, values, site }
+        PointsOut {
+            ids,
+            values,
+            injection,
+        }
     }
 
-    /// |V_k/V_site| at every node, when the document has a site.
-    pub fn site(&self) -> Option<&[f64]> {
-        self.site
+    /// |V_k/V_inj| at every node, when the document has an injection point.
+    pub fn injection_point(&self) -> Option<&[f64]> {
+        self.injection
     }
 
     /// SWC id of morphology point `i`.
@@ -133,7 +138,7 @@ impl<'a> PointsOut<'a> {
                 ("input resistance", v.input_resistance_mohm),
                 ("attenuation to the soma", v.attenuation_to_soma),
                 ("attenuation from the soma", v.attenuation_from_soma),
-                ("V/V_site", v.site_ratio.unwrap_or(0.0)),
+                ("V/V at the injection point", v.v_over_v_inj.unwrap_or(0.0)),
             ]
             .into_iter()
             .find(|x| !x.1.is_finite())
@@ -154,7 +159,7 @@ impl serde::Serialize for PointsOut<'_> {
 
 impl<'a> CableDoc<'a> {
     /// The document for maps computed from a file: `ids[i]` is the SWC id of morphology point
-    /// i; `site` is the site's SWC id and |V_k/V_site| at every node. Refuses a document with a
+    /// i; `site` is the injection point's SWC id and |V_k/V_inj| at every node. Refuses a document with a
     /// number that is not finite (it names the first one).
     pub fn new(
         file: &'a str,
@@ -178,7 +183,7 @@ impl<'a> CableDoc<'a> {
             mean_tip_electrotonic_length: summary.mean_tip_electrotonic_length,
             max_attenuation_to_soma: summary.max_attenuation_to_soma,
             max_attenuation_from_soma: summary.max_attenuation_from_soma,
-            site: site.map(|s| s.0),
+            injection_point: site.map(|s| s.0),
             warnings,
             tips: summary
                 .tips

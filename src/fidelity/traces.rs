@@ -1,6 +1,6 @@
-//! Response traces for one site: soma and site voltage over time, full cell and reduced tree,
-//! for a current waveform or a conductance synapse at the site (what `pollard trace` writes and
-//! the app can plot), and the per-site table as CSV.
+//! Response traces for one injection point: soma and injection-point voltage over time, full cell
+//! and reduced tree, for a current waveform or a conductance synapse there (what `pollard trace`
+//! writes and the app can plot), and the per-site table (the scored sites) as CSV.
 
 use super::{FidelityError, SiteFidelity};
 use crate::morphology::{Morphology, NONE};
@@ -10,7 +10,7 @@ use crate::transient::{
     simulate,
 };
 
-/// What is injected at the site.
+/// What is injected at the injection point.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 #[serde(tag = "kind", rename_all = "snake_case")]
 pub enum Input {
@@ -18,7 +18,7 @@ pub enum Input {
     Synapse { synapse: Synapse },
 }
 
-/// A site named by the user.
+/// An injection point named by the user.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum SiteRef {
     /// An SWC id of a point of the kept cell.
@@ -47,19 +47,19 @@ impl Default for TraceOptions {
     }
 }
 
-/// Soma and site voltage (mV, relative to rest) over time, full cell and reduced tree.
+/// Soma and injection-point voltage (mV, relative to rest) over time, full cell and reduced tree.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct Traces {
-    /// Morphology point of the site.
+    /// Morphology point of the injection point.
     pub point: u32,
     pub swc_id: Option<i64>,
-    /// The site's compartment in the reduced tree.
+    /// The injection point's compartment in the reduced tree.
     pub compartment: u32,
     pub times_ms: Vec<f64>,
     pub soma_full_mv: Vec<f64>,
-    pub site_full_mv: Vec<f64>,
+    pub injection_point_full_mv: Vec<f64>,
     pub soma_reduced_mv: Vec<f64>,
-    pub site_reduced_mv: Vec<f64>,
+    pub injection_point_reduced_mv: Vec<f64>,
 }
 
 impl Traces {
@@ -73,23 +73,24 @@ impl Traces {
 
     /// The traces as CSV: one row per time.
     pub fn to_csv(&self) -> String {
-        let mut s =
-            String::from("time_ms,soma_full_mv,site_full_mv,soma_reduced_mv,site_reduced_mv\n");
+        let mut s = String::from(
+            "time_ms,soma_full_mv,injection_point_full_mv,soma_reduced_mv,injection_point_reduced_mv\n",
+        );
         for i in 0..self.times_ms.len() {
             s.push_str(&format!(
                 "{:?},{:?},{:?},{:?},{:?}\n",
                 self.times_ms[i],
                 self.soma_full_mv[i],
-                self.site_full_mv[i],
+                self.injection_point_full_mv[i],
                 self.soma_reduced_mv[i],
-                self.site_reduced_mv[i]
+                self.injection_point_reduced_mv[i]
             ));
         }
         s
     }
 }
 
-/// The morphology point a user's site names, within the reducer's kept cell.
+/// The morphology point a user's injection point names, within the reducer's kept cell.
 pub fn resolve_site(
     m: &Morphology,
     reducer: &Reducer,
@@ -122,12 +123,12 @@ pub fn resolve_site(
     }
 }
 
-/// One network's soma and site voltage (mV, relative to rest) over time.
+/// One network's soma and injection-point voltage (mV, relative to rest) over time.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SideTraces {
     pub times_ms: Vec<f64>,
     pub soma_mv: Vec<f64>,
-    pub site_mv: Vec<f64>,
+    pub injection_point_mv: Vec<f64>,
 }
 
 impl SideTraces {
@@ -167,7 +168,7 @@ fn run(
     Ok(SideTraces {
         times_ms: r.times_ms,
         soma_mv: t.next().unwrap_or_default(),
-        site_mv: t.next().unwrap_or_default(),
+        injection_point_mv: t.next().unwrap_or_default(),
     })
 }
 
@@ -183,7 +184,7 @@ pub fn full_cell_traces(
     let k = kept.point_node.get(point as usize).copied().unwrap_or(NONE);
     if k == NONE {
         return Err(FidelityError::Mismatch {
-            what: "the site is not a point of the reduced cell",
+            what: "the injection point is not a point of the reduced cell",
         });
     }
     let fine = fine_network(kept, reducer.params(), opts.pieces)?;
@@ -205,14 +206,14 @@ pub fn reduced_tree_traces(
         .unwrap_or(NONE);
     if c == NONE || c as usize >= tree.len() {
         return Err(FidelityError::Mismatch {
-            what: "the site is not a point of the reduced cell",
+            what: "the injection point is not a point of the reduced cell",
         });
     }
     let net = RcNetwork::from_reduced(tree);
     Ok((c, run(&net, c as usize, input, opts)?))
 }
 
-/// Soma and site traces for `input` at morphology point `point` (see [`resolve_site`]): the
+/// Soma and injection-point traces for `input` at morphology point `point` (see [`resolve_site`]): the
 /// full cell's fine network and `tree`, integrated over the same times.
 pub fn response_traces(
     reducer: &Reducer,
@@ -229,9 +230,9 @@ pub fn response_traces(
         compartment: c,
         times_ms: full.times_ms,
         soma_full_mv: full.soma_mv,
-        site_full_mv: full.site_mv,
+        injection_point_full_mv: full.injection_point_mv,
         soma_reduced_mv: red.soma_mv,
-        site_reduced_mv: red.site_mv,
+        injection_point_reduced_mv: red.injection_point_mv,
     })
 }
 
