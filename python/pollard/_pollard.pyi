@@ -116,6 +116,11 @@ class ReducedTree:
         max_duration_ms: float = 500.0,
     ) -> Dict[str, npt.NDArray[Any]]:
         """The per-site table behind `fidelity`: one numpy array per column."""
+    def synapse_matrix(self) -> Dict[str, Any]:
+        """The input × compartment matrix of the synapse table the tree was reduced for:
+        'row', 'column', 'count' (int64 arrays), 'weight' (float64), 'shape' (inputs,
+        compartments) and 'inputs' (names by row); for
+        scipy.sparse.coo_matrix((count, (row, column)), shape=shape)."""
     @staticmethod
     def from_json(path: PathLike) -> "ReducedTree":
         """Reads a tree written by `pollard reduce --out` or `to_json`."""
@@ -154,11 +159,17 @@ def reduce(
     capacitance: str = "fitted",
     scale: Optional[float] = None,
     default_diameter: Optional[float] = None,
+    synapses: Optional[PathLike] = None,
+    snap_limit: float = 3.0,
+    skip_far: bool = False,
 ) -> ReducedTree:
     """Reduces a cell to a strict binary tree of `compartments` compartments (odd; an even
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
     (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
-    `capacitance`: "fitted" (to the cell's transfer impedances) or "uniform" (C = Rm·Cm·G)."""
+    `capacitance`: "fitted" (to the cell's transfer impedances) or "uniform" (C = Rm·Cm·G);
+    `synapses`: a synapse table (CSV: input, swc_id or x,y,z in the cell's units, weight),
+    snapped as `pollard reduce --synapses` does (`snap_limit` µm, `skip_far`); its synapses
+    are the sites and `ReducedTree.synapse_matrix()` gives the input × compartment matrix."""
 
 def synth_cell(path: PathLike, points: int, seed: int = 1) -> None:
     """Writes an invented cell of about `points` points (deterministic for a seed)."""

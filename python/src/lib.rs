@@ -5,6 +5,7 @@
 //! and panics alike come out as `pollard.PollardError` (a `ValueError`) whose message names the
 //! file, the line where there is one, and the fault, as the command line's one-line errors do.
 
+mod synapses;
 mod tree;
 
 use numpy::ndarray::Array2;

@@ -1,5 +1,6 @@
 //! `pollard.reduce` and the `ReducedTree` it returns (also loaded back with `from_json`).
 
+use crate::synapses::{Matrix, TableOptions, load as table_load};
 use crate::{arr, arr3, cell_of, fail, flat_of, json_to_py, work};
 use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyArray2};
@@ -10,6 +11,7 @@ use pollard::morphology::NONE;
 use pollard::reduce::{
     CapacitanceRule, Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv,
 };
+use pollard::synapses::{Snapped, SynapseJson, SynapseMap};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use serde_json::Value;
@@ -26,6 +28,8 @@ enum Origin {
         inputs: Vec<PathBuf>,
         /// The full cell's side of the fidelity report, for the options it was made with.
         fidelity: Mutex<Option<(FidelityOptions, Arc<Fidelity>)>>,
+        /// The synapse table the tree was reduced for, mapped onto it (budget curve included).
+        synapses: Option<Box<(Snapped, SynapseMap)>>,
     },
     Loaded {
         text: String,
@@ -42,6 +46,8 @@ pub struct ReducedTree {
     tree: pollard::reduce::ReducedTree,
     report_json: String,
     point_ids: Vec<i64>,
+    /// The input × compartment matrix, when the tree was reduced for a synapse table.
+    matrix: Option<Matrix>,
     origin: Origin,
 }
 
@@ -277,6 +283,19 @@ impl ReducedTree {
         )?;
         Ok(d)
     }
+    /// The input × compartment matrix of the synapse table the tree was reduced for (a dict):
+    /// `row` (input), `column` (compartment), `count` (synapses) and `weight` (their summed
+    /// weight) as numpy arrays, one entry per non-zero pair, sorted by row then column; `shape`
+    /// (inputs, compartments); `inputs`, the inputs' names by row. Ready for
+    /// `scipy.sparse.coo_matrix((count, (row, column)), shape=shape)`.
+    fn synapse_matrix<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        match &self.matrix {
+            Some(m) => m.to_py(py),
+            None => Err(fail(
+                "synapse_matrix: the tree was reduced without a synapse table (reduce(cell, n, synapses=TABLE))",
+            )),
+        }
+    }
     /// Reads a tree written by `pollard reduce --out` or `to_json`.
     #[staticmethod]
     fn from_json(py: Python<'_>, path: PathBuf) -> PyResult<ReducedTree> {
@@ -299,6 +318,7 @@ impl ReducedTree {
                 morph,
                 source,
                 inputs,
+                synapses,
                 ..
             } => {
                 let ids: Vec<i64> = morph.points.iter().map(|p| p.id).collect();
@@ -314,6 +334,9 @@ impl ReducedTree {
                 let fid = f.report(&self.tree, Some(&m)).map_err(|e| e.to_string())?;
                 let extras = TreeExtras::<()> {
                     fidelity: Some(&fid),
+                    synapses: synapses
+                        .as_deref()
+                        .map(|(s, m)| SynapseJson::new(s, m, self.tree.len())),
                     ..TreeExtras::default()
                 };
                 let text = reduced_tree_json_with(&src, reducer, &self.tree, report, extras, true)
@@ -411,7 +434,7 @@ fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
 /// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
 /// command `pollard reduce`).
 #[pyfunction]
-#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None))]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None, synapses=None, snap_limit=pollard::synapses::DEFAULT_SNAP_LIMIT_UM, skip_far=false))]
 #[allow(clippy::too_many_arguments)]
 pub fn reduce(
     py: Python<'_>,
@@ -427,7 +450,19 @@ pub fn reduce(
     capacitance: &str,
     scale: Option<f64>,
     default_diameter: Option<f64>,
+    synapses: Option<PathBuf>,
+    snap_limit: f64,
+    skip_far: bool,
 ) -> PyResult<ReducedTree> {
+    if sites.is_some() && synapses.is_some() {
+        return Err(fail(
+            "reduce: give sites or synapses, not both (a synapse table's synapses are the sites)",
+        ));
+    }
+    let table_opts = TableOptions {
+        snap_limit_um: snap_limit,
+        skip_far,
+    };
     let capacitance = match capacitance {
         "fitted" => CapacitanceRule::Fitted,
         "uniform" => CapacitanceRule::Uniform,
@@ -448,9 +483,15 @@ pub fn reduce(
         let name = m.source.clone();
         let flat = flat_of(&m, &prep)?;
         let mut inputs = vec![PathBuf::from(&name)];
-        let sites = match &site_text {
-            None => Sites::Default,
-            Some((text, file)) => {
+        let snapped = synapses
+            .as_ref()
+            .map(|p| table_load(p, &m, &flat, prep.scale, types.clone(), &table_opts))
+            .transpose()?;
+        inputs.extend(synapses.iter().cloned());
+        let sites = match (&site_text, &snapped) {
+            (_, Some(s)) => s.sites(),
+            (None, None) => Sites::Default,
+            (Some((text, file)), None) => {
                 let label = file
                     .as_ref()
                     .map_or("sites".to_string(), |p| p.display().to_string());
@@ -469,10 +510,23 @@ pub fn reduce(
         let tree = reducer.tree(compartments);
         let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
         let report_json = serde_json::to_string(&report).map_err(|e| e.to_string())?;
+        let synapses = match snapped {
+            Some(s) => {
+                let map = SynapseMap::new(&s, &tree)
+                    .and_then(|mp| mp.with_curve(&s, &reducer))
+                    .map_err(|e| e.to_string())?;
+                Some(Box::new((s, map)))
+            }
+            None => None,
+        };
+        let matrix = synapses
+            .as_deref()
+            .map(|(s, mp)| Matrix::of_map(s, mp, tree.len()));
         Ok(ReducedTree {
             tree,
             report_json,
             point_ids: m.points.iter().map(|p| p.id).collect(),
+            matrix,
             origin: Origin::Made {
                 reducer: Arc::new(reducer),
                 report: Box::new(report),
@@ -480,6 +534,7 @@ pub fn reduce(
                 source: name,
                 inputs,
                 fidelity: Mutex::new(None),
+                synapses,
             },
         })
     })
@@ -610,6 +665,7 @@ fn load(path: &Path) -> Result<ReducedTree, String> {
         .map(|s| int(&s["compartment"], "site_map[].compartment").map(|c| c as u32))
         .collect::<Result<Vec<_>, _>>()?;
     let report = field("report")?.to_string();
+    let matrix = Matrix::of_json(&doc)?;
     let tree = pollard::reduce::ReducedTree {
         requested: int(
             &p["compartments_requested"],
@@ -626,6 +682,7 @@ fn load(path: &Path) -> Result<ReducedTree, String> {
         tree,
         report_json: report,
         point_ids,
+        matrix,
         origin: Origin::Loaded {
             text,
             path: path.to_path_buf(),

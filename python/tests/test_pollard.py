@@ -283,3 +283,98 @@ def test_fidelity_report_and_sites(tmp_path):
     loaded = pollard.ReducedTree.from_json(tmp_path / "cli-practice_stellate-21.json")
     with pytest.raises(pollard.PollardError, match="no cell to compare with"):
         loaded.fidelity()
+
+
+# ---------------------------------------------------------------- synapse tables
+
+DEMO_CELL = REPO / "sample_cells" / "practice_pyramidal.swc"
+DEMO_TABLE = REPO / "sample_cells" / "practice_pyramidal.synapses.csv"
+
+
+def table_rows(path):
+    """(input, weight) of every row of a synapse table, by the csv module (not pollard)."""
+    import csv
+    lines = [ln for ln in path.read_text().splitlines() if ln.strip() and not ln.startswith("#")]
+    rows = list(csv.DictReader(lines))
+    return [(r["input"], float(r["weight"]) if r.get("weight") else 1.0) for r in rows]
+
+
+def test_synapse_matrix_adds_up_to_the_table_and_matches_the_cli(tmp_path):
+    rows = table_rows(DEMO_TABLE)
+    tree = pollard.reduce(str(DEMO_CELL), compartments=31, synapses=str(DEMO_TABLE))
+    m = tree.synapse_matrix()
+    row, col, count, weight = m["row"], m["column"], m["count"], m["weight"]
+    assert row.dtype == np.int64 and weight.dtype == np.float64
+    assert m["shape"] == (len(m["inputs"]), len(tree))
+    # a COO matrix built with numpy alone: counts add up to the table's rows, weights to its
+    # weights, and each input's row to its rows in the table
+    dense_n = np.zeros(m["shape"])
+    dense_w = np.zeros(m["shape"])
+    np.add.at(dense_n, (row, col), count)
+    np.add.at(dense_w, (row, col), weight)
+    assert dense_n.sum() == len(rows)
+    assert dense_w.sum() == pytest.approx(sum(w for _, w in rows), rel=1e-12)
+    per_input = {}
+    for name, _ in rows:
+        per_input[name] = per_input.get(name, 0) + 1
+    assert sorted(m["inputs"]) == sorted(per_input)
+    np.testing.assert_array_equal(dense_n.sum(axis=1), [per_input[i] for i in m["inputs"]])
+    # one entry per non-zero pair, sorted by row then column
+    assert np.all(count > 0)
+    key = row * m["shape"][1] + col
+    assert np.all(np.diff(key) > 0)
+    # the sites are the synapses: one site per row, on the compartments of the matrix
+    assert len(tree.site_compartment) == len(rows)
+    np.testing.assert_array_equal(np.bincount(tree.site_compartment, minlength=len(tree)),
+                                  dense_n.sum(axis=0))
+    # the command's JSON holds the same matrix, and the tree read back gives it too
+    _, doc = cli_tree(tmp_path, DEMO_CELL, 31, "--synapses", DEMO_TABLE)
+    cm = doc["synapses"]["matrix"]
+    for k in ("row", "column", "count", "weight"):
+        np.testing.assert_array_equal(m[k], cm[k])
+    assert [i["name"] for i in doc["synapses"]["inputs"]] == m["inputs"]
+    mine = tmp_path / "py.json"
+    tree.to_json(mine)
+    assert json.loads(mine.read_text())["synapses"] == doc["synapses"]
+    back = pollard.ReducedTree.from_json(mine).synapse_matrix()
+    for k in ("row", "column", "count", "weight"):
+        np.testing.assert_array_equal(back[k], m[k])
+    assert back["shape"] == m["shape"] and back["inputs"] == m["inputs"]
+
+
+def test_synapse_table_errors_and_scale(tmp_path):
+    bad = tmp_path / "bad.csv"
+    bad.write_text("input,x,y,z\na,0,0,0\nb,1,2\n")
+    with pytest.raises(pollard.PollardError, match=r"bad.csv:3"):
+        pollard.reduce(str(DEMO_CELL), compartments=7, synapses=str(bad))
+    with pytest.raises(pollard.PollardError, match="not both"):
+        pollard.reduce(str(DEMO_CELL), compartments=7, sites=[1], synapses=str(DEMO_TABLE))
+    with pytest.raises(pollard.PollardError, match="without a synapse table"):
+        pollard.reduce(str(DEMO_CELL), compartments=7).synapse_matrix()
+    # the cell and its table in nm, read with scale=0.001: the same matrix
+    nm_cell, nm_table = tmp_path / "nm.swc", tmp_path / "nm.synapses.csv"
+    cell_lines = []
+    for ln in DEMO_CELL.read_text().splitlines():
+        f = ln.split()
+        if ln.startswith("#") or len(f) != 7:
+            cell_lines.append(ln)
+            continue
+        f[2:6] = [repr(float(x) * 1000) for x in f[2:6]]
+        cell_lines.append(" ".join(f))
+    nm_cell.write_text("\n".join(cell_lines) + "\n")
+    lines = [ln for ln in DEMO_TABLE.read_text().splitlines() if not ln.startswith("#")]
+    head = lines[0].split(",")
+    xyz = [head.index(c) for c in ("x", "y", "z")]
+    out = [lines[0]]
+    for ln in lines[1:]:
+        f = ln.split(",")
+        for i in xyz:
+            f[i] = repr(float(f[i]) * 1000)
+        out.append(",".join(f))
+    nm_table.write_text("\n".join(out) + "\n")
+    um = pollard.reduce(str(DEMO_CELL), compartments=15, synapses=str(DEMO_TABLE))
+    nm = pollard.reduce(str(nm_cell), compartments=15, synapses=str(nm_table), scale=0.001)
+    a, b = um.synapse_matrix(), nm.synapse_matrix()
+    for k in ("row", "column", "count"):
+        np.testing.assert_array_equal(a[k], b[k])
+    np.testing.assert_allclose(a["weight"], b["weight"], rtol=1e-12)
