@@ -387,10 +387,13 @@ fn switching_off_the_axon_rebuilds_model_and_reduction_without_it() {
         "no axon node in the model"
     );
     let r = s.reduced.as_ref().expect("the reduction is rebuilt");
-    assert!(r.tree.kind.iter().all(|&k| k != 2), "no axon compartment");
+    assert!(
+        r.tree.compartments.iter().all(|c| c.swc_type != 2),
+        "no axon compartment"
+    );
     // every model node maps to a compartment of the rebuilt tree
     assert!(
-        r.tree
+        r.extras
             .node_comp
             .iter()
             .all(|&c| (c as usize) < r.tree.len())

@@ -82,7 +82,7 @@ fn opening_a_table_colours_by_count_and_an_input_marks_its_compartments() {
     {
         let m = s.model.of_full[syn.node as usize];
         assert_ne!(m, NONE);
-        expect[r.tree.node_comp[m as usize] as usize] += 1.0;
+        expect[r.extras.node_comp[m as usize] as usize] += 1.0;
     }
     assert_eq!(counts, expect);
     assert!(synapses::value_label(s).contains(&name));

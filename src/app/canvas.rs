@@ -3,8 +3,10 @@
 //! a new colouring only rewrites the vertex colours.
 
 use super::colour::{self, Colours, FAINT, SITE};
+use super::reduction::tree_disc_radii;
 use super::state::{CellState, nice_step};
 use crate::morphology::NONE;
+use crate::reduce::ReducedTree;
 use eframe::egui::{self, Color32, CornerRadius, Mesh, Pos2, Rect, Sense, Shape, Stroke, Vec2};
 use std::sync::Arc;
 
@@ -410,15 +412,14 @@ impl ArborCanvas {
         let proj = Projector::new(cam, rect, cell.centre, cell.extent_radius_um);
         let t = &r.tree;
         let widths = edge_widths(t);
-        let radii = t.disc_radii(rect.width().min(rect.height()));
-        for (c, &rad) in radii.iter().enumerate() {
-            self.comp_screen.push((proj.project(t.pos[c]), rad));
+        let radii = tree_disc_radii(t, rect.width().min(rect.height()));
+        for (x, &rad) in t.compartments.iter().zip(&radii) {
+            self.comp_screen.push((proj.project(x.position_um), rad));
         }
         for (c, &w) in widths.iter().enumerate().skip(1) {
-            let p = t.parent[c];
-            if p == NONE {
+            let Some(p) = t.compartments[c].parent else {
                 continue;
-            }
+            };
             painter.line_segment(
                 [self.comp_screen[p as usize].0, self.comp_screen[c].0],
                 Stroke::new(w, colours.comps[c]),
@@ -452,7 +453,7 @@ impl ArborCanvas {
         };
         let t = &r.tree;
         let widths = edge_widths(t);
-        let xy = dendrogram_layout(&t.parent);
+        let xy = dendrogram_layout(&t.parents());
         let inner = rect.shrink2(Vec2::new(24.0, 34.0));
         for &(x, y) in &xy {
             let p = Pos2::new(
@@ -462,10 +463,9 @@ impl ArborCanvas {
             self.comp_screen.push((p, 4.0));
         }
         for (c, &w) in widths.iter().enumerate() {
-            let p = t.parent[c];
-            if p == NONE {
+            let Some(p) = t.compartments[c].parent else {
                 continue;
-            }
+            };
             let a = self.comp_screen[p as usize].0;
             let b = self.comp_screen[c].0;
             let col = colours.comps[c];
@@ -494,19 +494,20 @@ impl ArborCanvas {
 
 /// Line width of the edge to each compartment: 1–7 points on the log of its axial conductance
 /// relative to the tree's range (3 where there is no range).
-pub fn edge_widths(t: &super::state::RTree) -> Vec<f32> {
+pub fn edge_widths(t: &ReducedTree) -> Vec<f32> {
     let mut lo = f64::INFINITY;
     let mut hi = f64::NEG_INFINITY;
-    for k in 1..t.len() {
-        let g = t.g_axial_ns[k];
+    for x in t.compartments.iter().skip(1) {
+        let g = x.g_axial_ns;
         if g > 0.0 {
             lo = lo.min(g.ln());
             hi = hi.max(g.ln());
         }
     }
-    t.g_axial_ns
+    t.compartments
         .iter()
-        .map(|&g| {
+        .map(|x| {
+            let g = x.g_axial_ns;
             if g.is_nan() || g <= 0.0 || !lo.is_finite() || hi - lo < 1e-9 {
                 3.0
             } else {

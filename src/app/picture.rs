@@ -4,7 +4,6 @@
 use super::canvas::{Camera, Projector, ReducedLayout, dendrogram_layout, edge_widths};
 use super::colour::{self, Colours, FAINT, Scale, hex};
 use super::state::{CellState, nice_step};
-use crate::morphology::NONE;
 use eframe::egui::{self, Color32, Pos2, Rect, Vec2};
 use std::fmt::Write;
 
@@ -188,11 +187,14 @@ fn svg_reduced(
     let pts: Vec<Pos2> = match layout {
         ReducedLayout::InPlace => {
             arbor(out, s, rproj, &|_| FAINT);
-            t.pos.iter().map(|&p| rproj.project(p)).collect()
+            t.compartments
+                .iter()
+                .map(|x| rproj.project(x.position_um))
+                .collect()
         }
         ReducedLayout::Dendrogram => {
             let inner = right.shrink2(Vec2::new(24.0, 34.0));
-            dendrogram_layout(&t.parent)
+            dendrogram_layout(&t.parents())
                 .into_iter()
                 .map(|(x, y)| {
                     Pos2::new(
@@ -204,10 +206,9 @@ fn svg_reduced(
         }
     };
     for c in 0..t.len() {
-        let p = t.parent[c];
-        if p == NONE {
+        let Some(p) = t.compartments[c].parent else {
             continue;
-        }
+        };
         let a = pts[p as usize];
         let b = pts[c];
         let col = hex(colours.comps[c]);
@@ -226,7 +227,7 @@ fn svg_reduced(
             );
         }
     }
-    let radii = t.disc_radii(right.width().min(right.height()));
+    let radii = super::reduction::tree_disc_radii(t, right.width().min(right.height()));
     for (c, p) in pts.iter().enumerate() {
         let rad = if layout == ReducedLayout::InPlace {
             radii[c]

@@ -1,60 +1,35 @@
 //! The app's hold on the library's reduction: [`Reduction`] wraps the [`Reducer`] of the model
-//! (shared through `Arc`), [`RTree`] is one budget's [`ReducedTree`] in the columns drawing
-//! needs. Nothing here reduces, re-orders or re-solves: ids, order, conductances and types are
-//! the reducer's; only drawing's extras (model node → compartment, mean path distance, Strahler
-//! order) are added.
+//! (shared through `Arc`); one budget's tree is the library's [`ReducedTree`] itself (shared
+//! through `Arc`), with [`DrawingExtras`] beside it. Nothing here reduces, re-orders or
+//! re-solves: ids, order, conductances and types are the reducer's; only drawing's extras (model
+//! node → compartment, mean path distance, Strahler order) are added.
 
-use crate::cable::{C64, Network, Params};
+use crate::cable::Params;
 use crate::morphology::{Flat, NONE};
 use crate::reduce::{ReducedTree, Reducer};
 use std::sync::Arc;
 
-/// A compartment tree ready for drawing and solving, in the reducer's parents-first order
-/// (`parent[c] < c`, entry c is compartment c).
+/// What drawing needs of one budget's [`ReducedTree`] besides the tree: which compartment each
+/// model node belongs to, how many model nodes each compartment stands for and their mean path
+/// distance, and each compartment's Strahler order in the compartment tree. Entry c is the
+/// tree's compartment c (the reducer numbers them parents-first).
 #[derive(Debug, Clone, Default)]
-pub struct RTree {
-    /// The reducer's compartment id of each entry.
-    pub id: Vec<u32>,
-    pub parent: Vec<u32>,
-    /// Axial conductance to the parent (nS), leak conductance (nS), capacitance (pF).
-    pub g_axial_ns: Vec<f64>,
-    pub g_leak_ns: Vec<f64>,
-    pub capacitance_pf: Vec<f64>,
-    pub pos: Vec<[f64; 3]>,
-    pub area_um2: Vec<f64>,
-    pub site_count: Vec<u32>,
-    pub depth: Vec<u32>,
-    /// Model node (see [`super::state::CellState::model`]) → entry.
+pub struct DrawingExtras {
+    /// Model node (see [`super::state::CellState::model`]) → compartment (`NONE`: none).
     pub node_comp: Vec<u32>,
-    /// Number of model nodes each entry stands for.
+    /// Number of model nodes each compartment stands for.
     pub n_points: Vec<usize>,
-    /// Mean path distance (µm) of the points each entry stands for.
+    /// Mean path distance (µm) of the points each compartment stands for.
     pub path_distance: Vec<f64>,
-    /// Neurite type of the point each compartment is named after.
-    pub kind: Vec<i32>,
-    /// Strahler order of each entry in the compartment tree.
+    /// Strahler order of each compartment in the compartment tree.
     pub strahler: Vec<u32>,
 }
 
-impl RTree {
-    pub fn len(&self) -> usize {
-        self.parent.len()
-    }
-
-    /// Drawn radius (px) of each compartment's disc in a view `view_px` across
-    /// ([`disc_radii`] of the membrane areas).
-    pub fn disc_radii(&self, view_px: f32) -> Vec<f32> {
-        disc_radii(&self.area_um2, view_px)
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.parent.is_empty()
-    }
-
-    /// One budget's tree as columns, plus the model nodes each compartment stands for
-    /// (`model` and `path_distance` are the app's model, whose nodes the reducer saw). None if
-    /// the compartments are not numbered parents-first (the reducer's promise).
-    pub fn new(t: &ReducedTree, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
+impl DrawingExtras {
+    /// The extras of `t` for the app's model (`model` and `path_distance` are the model the
+    /// reducer saw). None if the compartments are not numbered parents-first (the reducer's
+    /// promise).
+    pub fn new(t: &ReducedTree, model: &Flat, path_distance: &[f64]) -> Option<DrawingExtras> {
         let cs = &t.compartments;
         let n = cs.len();
         let ordered = cs.iter().enumerate().all(|(c, x)| {
@@ -65,8 +40,6 @@ impl RTree {
         if !ordered {
             return None;
         }
-        let col = |f: &dyn Fn(&crate::reduce::Compartment) -> f64| cs.iter().map(f).collect();
-        let parent: Vec<u32> = cs.iter().map(|c| c.parent.unwrap_or(NONE)).collect();
         let node_comp: Vec<u32> = model
             .node_point
             .iter()
@@ -91,47 +64,20 @@ impl RTree {
                 }
             })
             .collect();
-        Some(RTree {
-            id: cs.iter().map(|c| c.id).collect(),
-            strahler: crate::morphology::strahler(&parent, |_| false),
-            parent,
-            g_axial_ns: col(&|c| c.g_axial_ns),
-            g_leak_ns: col(&|c| c.g_leak_ns),
-            capacitance_pf: col(&|c| c.capacitance_pf),
-            pos: cs.iter().map(|c| c.position_um).collect(),
-            area_um2: col(&|c| c.membrane_area_um2),
-            site_count: cs.iter().map(|c| c.site_count).collect(),
-            depth: cs.iter().map(|c| c.depth).collect(),
+        Some(DrawingExtras {
             node_comp,
             n_points,
             path_distance,
-            kind: cs.iter().map(|c| c.swc_type).collect(),
+            strahler: crate::morphology::strahler(&t.parents(), |_| false),
         })
     }
+}
 
-    /// The compartments as a network at `freq_hz`: series admittance g_axial, shunt
-    /// g_leak + jωC (a lumped RC compartment; Koch 1999 ch. 3).
-    pub fn network(&self, params: &Params, freq_hz: f64) -> Network {
-        let w = 2.0 * std::f64::consts::PI * freq_hz;
-        let n = self.len();
-        Network {
-            parent: self.parent.clone(),
-            g: (0..n)
-                .map(|c| {
-                    if self.parent[c] == NONE {
-                        C64::new(0.0, 0.0)
-                    } else {
-                        C64::new(self.g_axial_ns[c] * 1e-9, 0.0)
-                    }
-                })
-                .collect(),
-            shunt: (0..n)
-                .map(|c| C64::new(self.g_leak_ns[c] * 1e-9, w * self.capacitance_pf[c] * 1e-12))
-                .collect(),
-            freq_hz,
-            params: *params,
-        }
-    }
+/// Drawn radius (px) of each compartment's disc of `t` in a view `view_px` across
+/// ([`disc_radii`] of the membrane areas).
+pub fn tree_disc_radii(t: &ReducedTree, view_px: f32) -> Vec<f32> {
+    let areas: Vec<f64> = t.compartments.iter().map(|c| c.membrane_area_um2).collect();
+    disc_radii(&areas, view_px)
 }
 
 /// The reduction of one model: the library's [`Reducer`] plus what its exports name (source,
@@ -179,9 +125,9 @@ impl Reduction {
         1
     }
 
-    /// The tree at `budget` for drawing (see [`RTree::new`]).
-    pub fn tree(&self, budget: usize, model: &Flat, path_distance: &[f64]) -> Option<RTree> {
-        RTree::new(&self.reducer.tree(budget), model, path_distance)
+    /// The library's tree at `budget` (a replay of the reducer's collapse order).
+    pub fn tree(&self, budget: usize) -> Arc<ReducedTree> {
+        Arc::new(self.reducer.tree(budget))
     }
 
     pub fn error_curve(&self) -> Vec<(usize, f64)> {

@@ -2,9 +2,10 @@
 //! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
 //! values that colour both drawings. Tests and benchmarks drive this directly.
 
-pub use super::reduction::{RTree, Reduction, build_reduction};
+pub use super::reduction::{DrawingExtras, Reduction, build_reduction};
 use crate::cable::{C64, Network, Params, TreeMaps};
 use crate::morphology::{Flat, Morphology, NONE, kind};
+use crate::reduce::ReducedTree;
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
@@ -293,7 +294,10 @@ impl Electrical {
 /// The reduced tree at the current budget with its own maps.
 #[derive(Clone)]
 pub struct Reduced {
-    pub tree: RTree,
+    /// The library's tree (shared with the jobs that need it, e.g. the traces).
+    pub tree: Arc<ReducedTree>,
+    /// What drawing needs besides the tree.
+    pub extras: DrawingExtras,
     pub elec: Electrical,
     /// ln|V_c / V_site| for the current site (injected at the site's compartment; ≤ 0).
     pub ln_from_site: Vec<f64>,
@@ -302,10 +306,11 @@ pub struct Reduced {
 }
 
 impl Reduced {
-    fn new(tree: RTree, params: &Params, freq_hz: f64) -> Reduced {
-        let elec = Electrical::from_maps(tree.network(params, freq_hz).maps());
+    fn new(tree: Arc<ReducedTree>, extras: DrawingExtras, freq_hz: f64) -> Reduced {
+        let elec = Electrical::from_maps(tree.network(freq_hz).maps());
         Reduced {
             tree,
+            extras,
             elec,
             ln_from_site: Vec::new(),
             site_comp: None,
@@ -314,7 +319,7 @@ impl Reduced {
 
     fn set_site(&mut self, site_model_node: Option<usize>) {
         self.site_comp = site_model_node
-            .and_then(|k| self.tree.node_comp.get(k).copied())
+            .and_then(|k| self.extras.node_comp.get(k).copied())
             .filter(|&c| c != NONE)
             .map(|c| c as usize);
         self.ln_from_site = match self.site_comp {
@@ -514,15 +519,16 @@ impl CellState {
     }
 
     fn rebuild_reduced(&mut self) {
-        let tree = self.reduction.as_ref().and_then(|r| {
+        let n_model = self.model.flat.len();
+        self.reduced = self.reduction.as_ref().and_then(|r| {
             let b = self
                 .budget
                 .clamp(r.min_compartments(), r.max_compartments().max(1));
-            r.tree(b, &self.model.flat, &self.model.path_distance)
-        });
-        self.reduced = tree.map(|mut t| {
-            t.node_comp.resize(self.model.flat.len(), NONE);
-            Reduced::new(t, &self.params, self.freq_hz)
+            let tree = r.tree(b);
+            let mut extras =
+                DrawingExtras::new(&tree, &self.model.flat, &self.model.path_distance)?;
+            extras.node_comp.resize(n_model, NONE);
+            Some(Reduced::new(tree, extras, self.freq_hz))
         });
         let mm = self.site_model();
         if let Some(r) = &mut self.reduced {
@@ -545,14 +551,6 @@ impl CellState {
             v.push(kind::SOMA);
             Some(v)
         }
-    }
-
-    /// Installs a tree directly (used by the reduction and by tests).
-    pub fn set_reduced_tree(&mut self, tree: RTree) {
-        let mut r = Reduced::new(tree, &self.params, self.freq_hz);
-        r.set_site(self.site_model());
-        self.reduced = Some(r);
-        self.colour_version += 1;
     }
 
     /// The value that colours whole-tree node k (NaN when it is not in the model).
@@ -584,8 +582,8 @@ impl CellState {
             ColourBy::FromSite => self.unit.from_ln(r.ln_from_site[c]),
             ColourBy::ToSoma => self.unit.from_ln(r.elec.ln_to_soma[c]),
             ColourBy::InputResistance => r.elec.input_mohm[c],
-            ColourBy::Strahler => r.tree.strahler[c] as f64,
-            ColourBy::NeuriteType => r.tree.kind[c] as f64,
+            ColourBy::Strahler => r.extras.strahler[c] as f64,
+            ColourBy::NeuriteType => r.tree.compartments[c].swc_type as f64,
             ColourBy::Synapses => super::synapses::value_comp(self, c),
         }
     }
@@ -680,25 +678,20 @@ impl CellState {
         let Some(r) = &self.reduced else {
             return String::new();
         };
-        let t = &r.tree;
-        let mut s = format!(
-            "compartment {}\naxial conductance {:.3} nS\nleak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s), {} site(s)\ninput resistance {:.1} MΩ",
-            t.id[c],
-            t.g_axial_ns[c],
-            t.g_leak_ns[c],
-            t.capacitance_pf[c],
-            t.area_um2[c],
-            t.n_points.get(c).copied().unwrap_or(0),
-            t.site_count[c],
-            r.elec.input_mohm[c]
-        );
-        if t.parent[c] == NONE {
-            s = s.replacen(
-                &format!("axial conductance {:.3} nS\n", t.g_axial_ns[c]),
-                "",
-                1,
-            );
+        let t = &r.tree.compartments[c];
+        let mut s = format!("compartment {}\n", t.id);
+        if t.parent.is_some() {
+            s.push_str(&format!("axial conductance {:.3} nS\n", t.g_axial_ns));
         }
+        s.push_str(&format!(
+            "leak conductance {:.4} nS\ncapacitance {:.3} pF\narea {:.0} µm²\nstands for {} point(s), {} site(s)\ninput resistance {:.1} MΩ",
+            t.g_leak_ns,
+            t.capacitance_pf,
+            t.membrane_area_um2,
+            r.extras.n_points.get(c).copied().unwrap_or(0),
+            t.site_count,
+            r.elec.input_mohm[c]
+        ));
         if r.site_comp.is_some() {
             s.push_str(&format!(
                 "\nfrom the injection point {:.2} {}",
@@ -733,7 +726,7 @@ impl CellState {
                         r.ln_from_site[c]
                     };
                     v.is_finite()
-                        .then(|| [r.tree.path_distance[c], self.unit.from_ln(v)])
+                        .then(|| [r.extras.path_distance[c], self.unit.from_ln(v)])
                 })
                 .collect(),
             None => Vec::new(),
@@ -779,23 +772,7 @@ mod tests {
     }
 
     #[test]
-    fn rtree_network_is_the_compartment_circuit() {
-        let t = RTree {
-            parent: vec![NONE, 0],
-            g_axial_ns: vec![0.0, 2.0],
-            g_leak_ns: vec![1.0, 0.5],
-            capacitance_pf: vec![1.0, 1.0],
-            ..Default::default()
-        };
-        // DC: voltage divider g_a/(g_a + g_leak) from the child to the root for a current at the
-        // child (Ohm's law, closed form)
-        let net = t.network(&Params::default(), 0.0);
-        let r = net.maps().site_ratio(1).expect("node 1");
-        assert!((r[0].re - 2.0 / 3.0).abs() < 1e-12);
-    }
-
-    #[test]
-    fn rtree_takes_the_reducers_parents_first_order_and_strahler() {
+    fn drawing_extras_follow_the_reducers_tree_and_strahler() {
         let s = CellState::new(y_cell(), Params::default(), 0.0).unwrap();
         let r = crate::reduce::Reducer::new(
             &s.model.flat,
@@ -804,21 +781,23 @@ mod tests {
         )
         .unwrap();
         let rt = r.tree(3);
-        let t = RTree::new(&rt, &s.model.flat, &s.model.path_distance).expect("a tree");
-        assert_eq!(t.len(), rt.compartments.len());
-        for (c, x) in rt.compartments.iter().enumerate() {
-            assert_eq!(t.id[c], x.id);
-            assert_eq!(t.parent[c], x.parent.unwrap_or(NONE));
+        let t = DrawingExtras::new(&rt, &s.model.flat, &s.model.path_distance).expect("a tree");
+        assert_eq!(t.n_points.len(), rt.compartments.len());
+        // every model node stands in the compartment the reducer put its point in
+        for (k, &c) in t.node_comp.iter().enumerate() {
+            let p = s.model.flat.node_point[k] as usize;
+            assert_eq!(c, rt.point_compartment[p]);
         }
+        assert_eq!(t.n_points.iter().sum::<usize>(), s.model.flat.len());
         // a root with two leaves: orders 2, 1, 1 (Strahler 1957, counted by hand)
         assert_eq!(t.strahler, vec![2, 1, 1]);
     }
 
     #[test]
     fn reduced_maps_match_the_reducers_own_dc_site_ratio() {
-        // the app re-solves the reduced tree through the cable sweeps; the reducer has its own
-        // DC solve (site_ratio_dc). Both must agree compartment by compartment, which also checks
-        // the id and ordering bookkeeping of the adapter.
+        // the app's maps of the reduced tree come from its network at the app's frequency
+        // (complex sweeps); the tree also has its own real DC solve (site_ratio_dc). Both must
+        // agree compartment by compartment, which also checks the site → compartment bookkeeping.
         let cell = Arc::new(Cell::demo());
         let mut s = CellState::new(cell, Params::default(), 0.0).unwrap();
         s.set_reduction(build_reduction(&s.cell, None, &s.params));
@@ -827,7 +806,10 @@ mod tests {
             let red = s.reduced.as_ref().expect("reduced tree");
             let sc = red.site_comp.expect("the site maps to a compartment");
             // every model point belongs to exactly one compartment
-            assert_eq!(red.tree.n_points.iter().sum::<usize>(), s.model.flat.len());
+            assert_eq!(
+                red.extras.n_points.iter().sum::<usize>(),
+                s.model.flat.len()
+            );
             let r = crate::reduce::Reducer::new(
                 &s.model.flat,
                 &s.params,
@@ -835,11 +817,11 @@ mod tests {
             )
             .unwrap();
             let t = r.tree(budget);
-            let id = red.tree.id[sc] as usize;
+            let id = red.tree.compartments[sc].id as usize;
             let theirs = t.site_ratio_dc(id);
             for c in 0..red.tree.len() {
                 let mine = red.ln_from_site[c];
-                let other = theirs[red.tree.id[c] as usize].ln();
+                let other = theirs[red.tree.compartments[c].id as usize].ln();
                 assert!(
                     (mine - other).abs() < 1e-9,
                     "budget {budget} c {c}: {mine} vs {other}"

@@ -5,7 +5,7 @@
 //!
 //! The table is read and snapped by the library ([`crate::synapses`]) onto the whole cell; the
 //! app's reduction keeps its own sites, so the map to compartments goes through the points each
-//! compartment stands for (`RTree::node_comp`), as [`crate::synapses::SynapseMap`] does.
+//! compartment stands for (`DrawingExtras::node_comp`), as [`crate::synapses::SynapseMap`] does.
 
 use super::files::{Dialogs, Purpose};
 use super::state::{CellState, ColourBy};
@@ -107,7 +107,7 @@ impl Layer {
                 continue;
             }
             let m = state.model.of_full.get(k).copied().unwrap_or(NONE);
-            let c = r.tree.node_comp.get(m as usize).copied().unwrap_or(NONE);
+            let c = r.extras.node_comp.get(m as usize).copied().unwrap_or(NONE);
             if let Some(x) = out.get_mut(c as usize) {
                 *x += n as f64;
             }

@@ -11,6 +11,7 @@ use super::jobs::Job;
 use super::state::{CellState, Reduction};
 use crate::fidelity::{Input, SideTraces, TraceOptions, full_cell_traces, reduced_tree_traces};
 use crate::morphology::NONE;
+use crate::reduce::ReducedTree;
 use crate::transient::Waveform;
 use eframe::egui::{self, Color32};
 use egui_plot::{Legend, Line, Plot};
@@ -28,12 +29,14 @@ pub const INPUT: Input = Input::Current {
 /// How many sites' full-cell traces are kept.
 const KEEP: usize = 32;
 
-/// What the traces are of: a reduction (by identity), a morphology point, a budget.
+/// What the traces are of: a reduction (by identity), a morphology point, a budget (and the
+/// state's tree at that budget, which the job runs).
 #[derive(Clone)]
 struct Key {
     reduction: Arc<Reduction>,
     point: u32,
     budget: usize,
+    tree: Arc<ReducedTree>,
 }
 
 impl PartialEq for Key {
@@ -108,6 +111,7 @@ fn wanted(s: &CellState) -> Option<Key> {
         reduction: r.clone(),
         point,
         budget,
+        tree: s.reduced.as_ref()?.tree.clone(),
     })
 }
 
@@ -166,7 +170,7 @@ impl TracesView {
                 }
             };
             p.set("the reduced tree");
-            let tree = reducer.tree(k.budget);
+            let tree = k.tree.clone();
             let (compartment, reduced) = reduced_tree_traces(&tree, k.point, &INPUT, &opts)?;
             Ok(Shown {
                 point: k.point,
