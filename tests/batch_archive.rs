@@ -169,12 +169,12 @@ fn every_cell_has_an_output_or_an_error_row_and_reruns_do_no_work() {
             assert_eq!(Some(nc), r.compartments);
             assert!(nc % 2 == 1 && nc <= 11, "{nc}");
             assert_eq!(tree["source"], r.file.as_str());
-            // the full soma input resistance agrees with nalgebra's dense LU of the cell's DC
+            // the full soma input resistance agrees with nalgebra-sparse's Cholesky of the cell's DC
             // network (independent of the engine's tree sweeps)
             let m = pollard::Morphology::read(&input.join(&r.file)).unwrap();
             let net =
                 pollard::cable::Network::build(&m.flatten(), &Default::default(), 0.0).unwrap();
-            let z = common::dense_z_columns(&net, &[0])[0][0] * 1e-6;
+            let z = common::z_columns(&net, &[0])[0][0] * 1e-6;
             assert!((rin - z).abs() <= 1e-9 * z, "{rin} {z}");
             let red = r.soma_rin_reduced_mohm.unwrap();
             assert!(red.is_finite() && red > 0.0);

@@ -1,6 +1,6 @@
 //! The direct file → flat route of `pollard cable` gives exactly the cell the full morphology
 //! route gives (same maps at every SWC id), and is only taken on plain files; on real cells the
-//! maps match a dense nalgebra solve of the same network.
+//! maps match a sparse direct solve (nalgebra-sparse Cholesky) of the same network.
 
 use pollard::cable::prep::{cable_input, flat_from_plain_points};
 use pollard::cable::{CellMaps, Params, PrepOptions, prepare};
@@ -80,10 +80,10 @@ fn other_files_take_the_full_route() {
 }
 
 #[test]
-fn real_cells_match_a_dense_solve() {
+fn real_cells_match_a_sparse_direct_solve() {
     // The real cells (tests/data/real, and POLLARD_CELLS when set), prepared as a user would
     // (--scale 0.001 for the nm file, --default-diameter 0.5 where radii are missing). The maps
-    // of the O(N) sweeps against nalgebra's dense LU of the same DC network: Z_00, Z_k0 at every
+    // of the O(N) sweeps against nalgebra-sparse's Cholesky factorisation of the same DC network: Z_00, Z_k0 at every
     // node, and Z_kk at a few nodes. None of these files takes the direct route; those that
     // would are compared with the full route too.
     let paths = common::real_cell_paths();
@@ -97,7 +97,7 @@ fn real_cells_match_a_dense_solve() {
         let net = pollard::cable::Network::build(&fl, &p, 0.0).unwrap();
         let n = fl.len();
         let js = [n / 5, n / 2, n - 1];
-        let z = common::dense_z_columns(&net, &[0, js[0], js[1], js[2]]);
+        let z = common::z_columns(&net, &[0, js[0], js[1], js[2]]);
         let rel = |a: f64, b: f64| (a - b).abs() / b.abs();
         let mut worst: f64 = 0.0;
         for (k, &zk) in z[0].iter().enumerate() {

@@ -1,14 +1,14 @@
 //! The two facts every reduced tree keeps exact at DC, checked on the sample cells and the real
 //! cells at several budgets (junction cascades of multifurcations included): the soma's input
 //! resistance, and the soma's transfer resistance to every compartment named after a point of
-//! the cell, Z_k0. Reference: the full kept cell's DC network solved densely by nalgebra (the
+//! the cell, Z_k0. Reference: the full kept cell's DC network solved by nalgebra-sparse's Cholesky (the
 //! Schur complement of the full network onto the kept nodes keeps exactly these entries of
-//! Z = Y⁻¹; Kron reduction), against the reduced tree's own network, also solved densely.
+//! Z = Y⁻¹; Kron reduction), against the reduced tree's own network, solved the same way.
 //! Only the public API is used: `Reducer::new`, `tree(b)`, `ReducedTree::network(0.0)`.
 
 mod common;
 
-use common::{dense_z_columns, flat_as_a_user_would, real_cell_paths};
+use common::{flat_as_a_user_would, real_cell_paths, z_columns};
 use pollard::Morphology;
 use pollard::cable::{Network, Params};
 use pollard::reduce::{ReduceOptions, Reducer, Role};
@@ -19,17 +19,17 @@ fn check(name: &str, m: &Morphology, budgets: &[usize]) -> usize {
     let flat = flat_as_a_user_would(m);
     let p = Params::default();
     // default junction links (1e-4 of the radius): they change the cell by about 1e-8, and
-    // stiffer links make the dense reference ill-conditioned (its error is ~1e-7 here)
+    // stiffer links make the reference solve ill-conditioned (its error is ~1e-7 here)
     let reducer = Reducer::new(&flat, &p, &ReduceOptions::default()).unwrap();
     let kept = reducer.kept_flat();
     let full = Network::build(kept, &p, 0.0).unwrap();
-    let z_full = &dense_z_columns(&full, &[0])[0];
+    let z_full = &z_columns(&full, &[0])[0];
     let node_of_line: HashMap<usize, usize> =
         kept.line.iter().enumerate().map(|(k, &l)| (l, k)).collect();
     let mut junctions = 0;
     for &b in budgets {
         let tree = reducer.tree(b);
-        let z_red = &dense_z_columns(&tree.network(0.0), &[0])[0];
+        let z_red = &z_columns(&tree.network(0.0), &[0])[0];
         let rin = (z_red[0] - z_full[0]).abs() / z_full[0];
         assert!(rin < 1e-6, "{name} at {b}: soma R_in off by {rin:e}");
         let mut worst: f64 = 0.0;
