@@ -587,3 +587,90 @@ fn flags_out_of_range_stop_before_any_work() {
     ]);
     assert_eq!(code, 1);
 }
+
+/// A synapse table of `n` rows on the points with SWC ids 1..=n (ids of `synth::random_tree`).
+fn table_text(n: usize) -> String {
+    let mut t = String::from("input,swc_id\n");
+    for i in 1..=n {
+        t.push_str(&format!("in-{},{i}\n", i % 3));
+    }
+    t
+}
+
+#[test]
+fn a_changed_added_or_removed_synapse_table_redoes_its_cell() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let out = tmp.path().join("out");
+    for i in 0..4u64 {
+        let text = synth::to_swc(&synth::random_tree(60, 40 + i), &[]);
+        write(&input, &format!("c{i}.swc"), text.as_bytes());
+    }
+    for i in 0..3 {
+        write(
+            &input,
+            &format!("c{i}.synapses.csv"),
+            table_text(10).as_bytes(),
+        );
+    }
+    let cells = batch::plan(&input, &out, Shard::ALL).unwrap();
+    let st = Settings {
+        synapses: Some(pollard::synapses::TableRule {
+            snap_limit_um: 3.0,
+            skip_far: false,
+        }),
+        ..settings()
+    };
+    let synapses_of =
+        |rows: &[Row], rel: &str| rows.iter().find(|r| r.file == rel).unwrap().synapses;
+    let (rows, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 0);
+    assert_eq!(synapses_of(&rows, "c0.swc"), Some(10));
+    assert_eq!(synapses_of(&rows, "c3.swc"), None);
+    let (_, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 4);
+
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    // c0: more rows (size and time change); c1: the same bytes written again (only the time
+    // changes); c2: removed; c3: added; c1's tree must be redone byte-identically
+    let before_c1 = std::fs::read(&cells[1].output).unwrap();
+    write(&input, "c0.synapses.csv", table_text(25).as_bytes());
+    write(&input, "c1.synapses.csv", table_text(10).as_bytes());
+    std::fs::remove_file(input.join("c2.synapses.csv")).unwrap();
+    write(&input, "c3.synapses.csv", table_text(7).as_bytes());
+    let (rows, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 0);
+    assert_eq!(synapses_of(&rows, "c0.swc"), Some(25));
+    assert_eq!(synapses_of(&rows, "c1.swc"), Some(10));
+    assert_eq!(synapses_of(&rows, "c2.swc"), None);
+    assert_eq!(synapses_of(&rows, "c3.swc"), Some(7));
+    assert_eq!(std::fs::read(&cells[1].output).unwrap(), before_c1);
+    let (_, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 4);
+
+    // a broken table fails its cell; fixed, the cell is redone without --force
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    write(&input, "c3.synapses.csv", b"input,swc_id\nx,99999\n");
+    let (rows, _) = run_lib(&cells, &st, false);
+    let c3 = rows.iter().find(|r| r.file == "c3.swc").unwrap();
+    assert_eq!(c3.status, Status::Failed, "{c3:?}");
+    assert!(
+        c3.error.as_deref().unwrap().contains("c3.synapses.csv:2"),
+        "{c3:?}"
+    );
+    let (_, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 4);
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    write(&input, "c3.synapses.csv", table_text(5).as_bytes());
+    let (rows, reused) = run_lib(&cells, &st, false);
+    assert_eq!(reused, 3);
+    assert_eq!(synapses_of(&rows, "c3.swc"), Some(5));
+
+    // without --synapse-tables the tables are not inputs: a changed table redoes nothing
+    let plain = settings();
+    run_lib(&cells, &plain, false);
+    std::thread::sleep(std::time::Duration::from_millis(20));
+    write(&input, "c0.synapses.csv", table_text(3).as_bytes());
+    let (_, reused) = run_lib(&cells, &plain, false);
+    assert_eq!(reused, 4);
+}

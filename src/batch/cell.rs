@@ -1,6 +1,6 @@
 //! The per-cell job: compute (read, build, reduce) and write (tree with record, or failure record).
 
-use super::record::Record;
+use super::record::{Record, table_state};
 use super::{BatchError, Cell, Row, Settings, Status};
 use crate::cable::prepare;
 use crate::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
@@ -20,7 +20,12 @@ struct Computed {
 /// Read, build, reduce one cell; the tree file is [`reduced_tree_json_with`] (fidelity and record) with the relative path
 /// as its source, so it does not depend on where the archive lies. Errors are plain messages
 /// naming the file (they go into the summary).
-fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Computed, String> {
+fn compute(
+    cell: &Cell,
+    settings: &Settings,
+    settings_key: &str,
+    table_bytes: Option<u64>,
+) -> Result<Computed, String> {
     let name = cell.rel.as_str();
     let bytes = std::fs::read(&cell.input).map_err(|e| format!("{name}: cannot read: {e}"))?;
     let swc = crate::swc::parse_bytes(&bytes, name).map_err(|e| e.to_string())?;
@@ -91,7 +96,7 @@ fn compute(cell: &Cell, settings: &Settings, settings_key: &str) -> Result<Compu
         error: None,
     };
     // the tree with the record as its last member: one file (one safe write) per cell
-    let record = Record::new(settings_key, bytes.len() as u64, &row);
+    let record = Record::new(settings_key, bytes.len() as u64, table_bytes, &row);
     let member = snapped
         .as_ref()
         .zip(map.as_ref())
@@ -148,6 +153,8 @@ fn remove_if_present(path: &Path) -> Result<(), String> {
 /// A cell computed and waiting to be written.
 pub struct Pending {
     t0: Instant,
+    /// Size of the cell's synapse table before it was read (None: no table, or not used).
+    table_bytes: Option<u64>,
     result: Result<Computed, String>,
 }
 
@@ -158,11 +165,13 @@ pub fn compute_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Pen
     if let Some(msg) = &cell.fault {
         return Pending {
             t0,
+            table_bytes: None,
             result: Err(msg.clone()),
         };
     }
+    let table_bytes = table_state(cell, settings.synapses.is_some()).map(|t| t.0);
     let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
-        compute(cell, settings, settings_key)
+        compute(cell, settings, settings_key, table_bytes)
     }))
     .unwrap_or_else(|p| {
         let what = p
@@ -175,12 +184,20 @@ pub fn compute_cell(cell: &Cell, settings: &Settings, settings_key: &str) -> Pen
             cell.rel
         ))
     });
-    Pending { t0, result }
+    Pending {
+        t0,
+        table_bytes,
+        result,
+    }
 }
 
 /// The writing half of [`process_cell`]: the tree (with its record inside) or the failure record.
 pub fn write_cell(cell: &Cell, pending: Pending, settings_key: &str) -> Row {
-    let Pending { t0, result } = pending;
+    let Pending {
+        t0,
+        table_bytes,
+        result,
+    } = pending;
     let inputs = [cell.input.as_path()];
     let written = (|| -> Result<Row, String> {
         if cell.fault.is_some() {
@@ -201,7 +218,7 @@ pub fn write_cell(cell: &Cell, pending: Pending, settings_key: &str) -> Row {
                 remove_if_present(&cell.output)?;
                 let row = Row::failed(&cell.rel, None, msg);
                 let input_bytes = std::fs::metadata(&cell.input).map(|m| m.len()).unwrap_or(0);
-                let rec = Record::new(settings_key, input_bytes, &row);
+                let rec = Record::new(settings_key, input_bytes, table_bytes, &row);
                 let text = serde_json::to_vec(&rec).map_err(|e| e.to_string())?;
                 make_parent(&cell.record).map_err(|e| e.to_string())?;
                 write_atomic(&cell.record, &text, &inputs).map_err(|e| e.to_string())?;

@@ -19,7 +19,8 @@
 //! - **Resumability** ([`reusable_row`]): a cell is complete, and skipped on the next run, when
 //!   its tree file parses, its record names the same settings (all flags that change the output,
 //!   and the pollard version) and an input of the same size, and the input is not newer than the
-//!   tree; a failed cell likewise through its record file. Every file is written by temporary
+//!   tree (with `--synapse-tables`, the same for the cell's table: same size, not newer, neither
+//!   added nor removed); a failed cell likewise through its record file. Every file is written by temporary
 //!   file + rename, so a half-written output never counts as complete. A changed flag, a newer
 //!   input file or a new pollard version redoes the cell; `force` redoes everything;
 //!   `retry_failed` redoes the cells that failed. The record is deterministic (it holds no time),
@@ -345,6 +346,7 @@ pub fn run(
     let compute_pool = pool(jobs, "batch")?;
     let write_pool = pool(n_writers, "write")?;
     let key = settings.key();
+    let tables = settings.synapses.is_some();
     let slots = Slots {
         free: std::sync::Mutex::new(n_writers),
         freed: std::sync::Condvar::new(),
@@ -364,7 +366,7 @@ pub fn run(
                 .with_max_len(1)
                 .for_each(|(i, cell)| {
                     if !opts.force
-                        && let Some(row) = reusable_row(cell, &key, opts.retry_failed)
+                        && let Some(row) = reusable_row(cell, &key, tables, opts.retry_failed)
                     {
                         put(i, row, true);
                         return;

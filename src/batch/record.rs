@@ -3,6 +3,7 @@
 use super::{Cell, Row, Status};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
+use std::time::{SystemTime, UNIX_EPOCH};
 
 /// The `format` field of a record file.
 const RECORD_FORMAT: &str = "pollard-batch-record/1";
@@ -16,16 +17,26 @@ pub(super) struct Record {
     settings_key: String,
     /// Size of the input file in bytes when it was read.
     input_bytes: u64,
+    /// Size of the cell's synapse table in bytes, when the run used one (absent otherwise, so
+    /// runs without tables write the same bytes as before).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    table_bytes: Option<u64>,
     /// The row (without its time), decimals written as text ([`row_to_exact`]).
     row: serde_json::Value,
 }
 
 impl Record {
-    pub(super) fn new(settings_key: &str, input_bytes: u64, row: &Row) -> Record {
+    pub(super) fn new(
+        settings_key: &str,
+        input_bytes: u64,
+        table_bytes: Option<u64>,
+        row: &Row,
+    ) -> Record {
         Record {
             format: RECORD_FORMAT.to_string(),
             settings_key: settings_key.to_string(),
             input_bytes,
+            table_bytes,
             row: row_to_exact(&Row {
                 seconds: None,
                 ..row.clone()
@@ -33,11 +44,19 @@ impl Record {
         }
     }
 
-    /// The row, when this record was made under `settings_key` from an input of `input_bytes`.
-    fn row_if(self, settings_key: &str, input_bytes: u64, rel: &str) -> Option<Row> {
+    /// The row, when this record was made under `settings_key` from an input of `input_bytes`
+    /// and a synapse table of `table_bytes` (None: no table).
+    fn row_if(
+        self,
+        settings_key: &str,
+        input_bytes: u64,
+        table_bytes: Option<u64>,
+        rel: &str,
+    ) -> Option<Row> {
         if self.format != RECORD_FORMAT
             || self.settings_key != settings_key
             || self.input_bytes != input_bytes
+            || self.table_bytes != table_bytes
         {
             return None;
         }
@@ -90,15 +109,37 @@ struct TreeFileBatch {
     batch: Record,
 }
 
+/// Size and modification time of the cell's synapse table, when the run uses tables
+/// (`tables`) and the cell has one ([`crate::synapses::table_beside`]).
+pub(super) fn table_state(cell: &Cell, tables: bool) -> Option<(u64, SystemTime)> {
+    if !tables {
+        return None;
+    }
+    let meta = std::fs::metadata(crate::synapses::table_beside(&cell.input)).ok()?;
+    Some((meta.len(), meta.modified().ok()?))
+}
+
 /// The row of a cell that is complete under `settings` (see the module doc), or `None` when the
-/// cell must be (re)done. With `retry_failed`, a recorded failure is not reused. The row of a
-/// reused cell has no time.
-pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Option<Row> {
+/// cell must be (re)done. `tables`: the run uses each cell's synapse table, which then counts as
+/// an input too (its size is in the record; a table newer than the output, added or removed
+/// redoes the cell). With `retry_failed`, a recorded failure is not reused. The row of a reused
+/// cell has no time.
+pub fn reusable_row(
+    cell: &Cell,
+    settings_key: &str,
+    tables: bool,
+    retry_failed: bool,
+) -> Option<Row> {
     if cell.fault.is_some() {
         return None;
     }
     let in_meta = std::fs::metadata(&cell.input).ok()?;
-    let in_time = in_meta.modified().ok()?;
+    let table = table_state(cell, tables);
+    let in_time = in_meta
+        .modified()
+        .ok()?
+        .max(table.map_or(UNIX_EPOCH, |t| t.1));
+    let table_bytes = table.map(|t| t.0);
     let newer = |p: &Path| -> Option<bool> {
         let t = std::fs::metadata(p).ok()?.modified().ok()?;
         Some(t >= in_time)
@@ -109,7 +150,7 @@ pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Opti
             let t: TreeFileBatch =
                 serde_json::from_slice(&std::fs::read(&cell.output).ok()?).ok()?;
             t.batch
-                .row_if(settings_key, in_meta.len(), &cell.rel)
+                .row_if(settings_key, in_meta.len(), table_bytes, &cell.rel)
                 .filter(|r| r.status == Status::Ok)
         }
         Some(false) => None,
@@ -119,7 +160,7 @@ pub fn reusable_row(cell: &Cell, settings_key: &str, retry_failed: bool) -> Opti
                 return None;
             }
             let rec: Record = serde_json::from_slice(&std::fs::read(&cell.record).ok()?).ok()?;
-            rec.row_if(settings_key, in_meta.len(), &cell.rel)
+            rec.row_if(settings_key, in_meta.len(), table_bytes, &cell.rel)
                 .filter(|r| r.status == Status::Failed)
         }
     }
