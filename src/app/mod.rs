@@ -53,6 +53,8 @@ pub struct StartOptions {
     /// A synapse table to open for the cell, and the input to choose in it.
     pub synapses: Option<PathBuf>,
     pub synapse_input: Option<String>,
+    /// Factor for the start file's coordinates and radii and its synapse tables' positions.
+    pub scale: Option<f64>,
 }
 
 /// Opens the window.
@@ -74,7 +76,8 @@ pub fn run_with(start: Start, opts: StartOptions) -> anyhow::Result<()> {
         "pollard",
         options,
         Box::new(move |cc| {
-            let mut app = PollardApp::new(start, Dialogs::Native, RecentFiles::from_config());
+            let recent = RecentFiles::from_config();
+            let mut app = PollardApp::new_scaled(start, Dialogs::Native, recent, opts.scale);
             app.ctx = Some(cc.egui_ctx.clone());
             app.start_options = Some(opts);
             Ok(Box::new(app))
@@ -114,6 +117,8 @@ pub struct PollardApp {
     load_job: Option<Job<CellState>>,
     reduce_job: Option<(u64, Job<Arc<state::Reduction>>)>,
     reduce_generation: u64,
+    /// The synapse table ([`synapses::Layer::id`]) the last reduction was started for.
+    reduced_for_table: Option<u64>,
     /// The last error (file, line, what) or other failure; shown until dismissed.
     pub error: Option<String>,
     /// The last thing done (a file saved, a cell opened).
@@ -134,6 +139,17 @@ pub struct PollardApp {
 impl PollardApp {
     /// A new app; the first cell loads in the background.
     pub fn new(start: Start, dialogs: Dialogs, recent: RecentFiles) -> PollardApp {
+        PollardApp::new_scaled(start, dialogs, recent, None)
+    }
+
+    /// [`PollardApp::new`] with a start file whose coordinates and radii are multiplied by
+    /// `scale` (a file in nm: 0.001); its synapse tables get the same factor.
+    pub fn new_scaled(
+        start: Start,
+        dialogs: Dialogs,
+        recent: RecentFiles,
+        scale: Option<f64>,
+    ) -> PollardApp {
         let mut app = PollardApp {
             screen: Screen::Cell,
             lab: lab::LabView::new(),
@@ -155,6 +171,7 @@ impl PollardApp {
             load_job: None,
             reduce_job: None,
             reduce_generation: 0,
+            reduced_for_table: None,
             error: None,
             notice: None,
             pending_png: None,
@@ -167,7 +184,7 @@ impl PollardApp {
         app.lab.dialogs = dialogs;
         match start {
             Start::Demo => app.open_demo(),
-            Start::File(p) => app.open_path(&p),
+            Start::File(p) => app.open_path_scaled(&p, scale),
             Start::Lab => {
                 app.open_demo();
                 app.screen = Screen::Lab;
@@ -186,8 +203,16 @@ impl PollardApp {
 
     /// Loads a file (in the background); on failure the current cell stays and the error shows.
     pub fn open_path(&mut self, path: &Path) {
+        self.open_path_scaled(path, None);
+    }
+
+    /// [`PollardApp::open_path`] with coordinates and radii × `scale` (None: the file is in µm).
+    pub fn open_path_scaled(&mut self, path: &Path, scale: Option<f64>) {
         let p = path.to_path_buf();
-        self.start_load(path.display().to_string(), Box::new(move || Cell::read(&p)));
+        self.start_load(
+            path.display().to_string(),
+            Box::new(move || Cell::read(&p, scale)),
+        );
     }
 
     /// Loads one of the sample cells.
@@ -230,12 +255,15 @@ impl PollardApp {
         let cell = s.cell.clone();
         let kept = s.kept_types();
         let params = s.params;
+        let sites = synapses::sites(s);
+        self.reduced_for_table = s.synapses.as_ref().map(|l| l.id);
         let job = Job::spawn(
             "building the reduction".into(),
             self.ctx.clone(),
             move |p| {
                 p.set("building the collapse order");
-                state::build_reduction(&cell, kept, &params).map_err(|e| anyhow::anyhow!(e))
+                state::build_reduction_for(&cell, kept, &params, sites)
+                    .map_err(|e| anyhow::anyhow!(e))
             },
         );
         self.reduce_job = Some((self.reduce_generation, job));
@@ -316,6 +344,12 @@ impl PollardApp {
             if let Some(path) = answer {
                 self.dialog_answered(purpose, path);
             }
+        }
+        // a synapse table opened (or replaced): the reduction serves its synapses
+        if let Some(s) = &self.state
+            && s.synapses.as_ref().map(|l| l.id) != self.reduced_for_table
+        {
+            self.start_reduction();
         }
         self.traces.poll();
         if let Some(lab_tree) = self.lab.take_send_to_main() {

@@ -96,8 +96,20 @@ pub fn build_reduction(
     kept: Option<Vec<i32>>,
     params: &Params,
 ) -> Result<Arc<Reduction>, String> {
+    build_reduction_for(cell, kept, params, crate::reduce::Sites::Default)
+}
+
+/// [`build_reduction`] serving `sites` (the open synapse table's synapses, see
+/// [`super::synapses::sites`], as `pollard reduce --synapses` does).
+pub fn build_reduction_for(
+    cell: &super::state::Cell,
+    kept: Option<Vec<i32>>,
+    params: &Params,
+    sites: crate::reduce::Sites,
+) -> Result<Arc<Reduction>, String> {
     let opts = crate::reduce::ReduceOptions {
         types: kept,
+        sites,
         ..Default::default()
     };
     match Reducer::new(&cell.flat, params, &opts) {

@@ -2,7 +2,7 @@
 //! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
 //! values that colour both drawings. Tests and benchmarks drive this directly.
 
-pub use super::reduction::{DrawingExtras, Reduction, build_reduction};
+pub use super::reduction::{DrawingExtras, Reduction, build_reduction, build_reduction_for};
 use crate::cable::{C64, Network, Params, TreeMaps};
 use crate::morphology::{Flat, Morphology, NONE, kind};
 use crate::reduce::ReducedTree;
@@ -34,6 +34,10 @@ pub struct Cell {
     pub extent_radius_um: f64,
     /// Neurite type codes present in the main tree (soma excluded), sorted.
     pub kinds: Vec<i32>,
+    /// The factor the file's coordinates and radii were multiplied by (`pollard view --scale`;
+    /// None: the file is in µm). Everything here is in µm; a synapse table of the cell is in the
+    /// file's units and gets the same factor.
+    pub scale: Option<f64>,
 }
 
 impl Cell {
@@ -87,17 +91,53 @@ impl Cell {
             centre,
             extent_radius_um: rad,
             kinds,
+            scale: None,
         }
     }
 
-    /// Reads and prepares a file.
-    pub fn read(path: &std::path::Path) -> anyhow::Result<Cell> {
+    /// [`Cell::new`] for a file whose units are not µm: coordinates, radii and path distances
+    /// are multiplied by `scale` first (as `--scale` does for the commands).
+    pub fn new_scaled(
+        name: String,
+        path: Option<std::path::PathBuf>,
+        mut morph: Morphology,
+        scale: Option<f64>,
+    ) -> Cell {
+        if let Some(s) = scale {
+            for p in &mut morph.points {
+                p.pos = p.pos.map(|x| x * s);
+                p.radius = p.radius.map(|r| r * s);
+            }
+            for d in &mut morph.path_distance {
+                *d *= s;
+            }
+        }
+        Cell {
+            scale,
+            ..Cell::new(name, path, morph)
+        }
+    }
+
+    /// Reads and prepares a file (its coordinates and radii × `scale`, when given).
+    pub fn read(path: &std::path::Path, scale: Option<f64>) -> anyhow::Result<Cell> {
+        if let Some(s) = scale {
+            crate::cable::PrepOptions {
+                scale: Some(s),
+                default_diameter_um: None,
+            }
+            .validate()?;
+        }
         let morph = Morphology::read(path)?;
         let name = path
             .file_name()
             .map(|s| s.to_string_lossy().into_owned())
             .unwrap_or_else(|| path.display().to_string());
-        Ok(Cell::new(name, Some(path.to_path_buf()), morph))
+        Ok(Cell::new_scaled(
+            name,
+            Some(path.to_path_buf()),
+            morph,
+            scale,
+        ))
     }
 
     /// The built-in demo cell.

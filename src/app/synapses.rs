@@ -3,14 +3,16 @@
 //! its synapses on the original arbor and their compartments on the reduced tree (markers drawn
 //! by [`mark_original`] and [`mark_reduced`]).
 //!
-//! The table is read and snapped by the library ([`crate::synapses`]) onto the whole cell; the
-//! app's reduction keeps its own sites, so the map to compartments goes through the points each
-//! compartment stands for (`DrawingExtras::node_comp`), as [`crate::synapses::SynapseMap`] does.
+//! The table is read and snapped by the library ([`crate::synapses`]) onto the whole cell, with
+//! the cell's scale; while it is open the app's reduction serves its synapses ([`sites`]), and
+//! the map to compartments goes through the points each compartment stands for
+//! (`DrawingExtras::node_comp`), as [`crate::synapses::SynapseMap`] does.
 
 use super::files::{Dialogs, Purpose};
 use super::state::{CellState, ColourBy};
 use crate::morphology::NONE;
-use crate::synapses::{SnapOptions, Snapped, parse_table, snap};
+use crate::reduce::Sites;
+use crate::synapses::{SnapOptions, Snapped, Synapse, parse_table, snap};
 use eframe::egui::{self, Color32, Pos2, Stroke};
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
@@ -21,6 +23,8 @@ const MARK: Color32 = Color32::from_rgb(255, 236, 120);
 /// A table placed on the open cell, with the chosen input.
 #[derive(Debug)]
 pub struct Layer {
+    /// Unique among the layers of this run (the app rebuilds the reduction when it changes).
+    pub id: u64,
     pub snapped: Snapped,
     /// Per whole-tree node: synapses of every input.
     all: Vec<u32>,
@@ -51,7 +55,9 @@ impl Layer {
             .map(|i| (i, per_input[i as usize]))
             .collect();
         order.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
+        static NEXT: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(1);
         Layer {
+            id: NEXT.fetch_add(1, std::sync::atomic::Ordering::Relaxed),
             chosen: all.clone(),
             all,
             snapped,
@@ -162,12 +168,37 @@ pub fn load(state: &mut CellState, path: &Path) -> Result<(), String> {
     let bytes = std::fs::read(path).map_err(|e| format!("{name}: cannot read: {e}"))?;
     let table = parse_table(&bytes, &name).map_err(|e| e.to_string())?;
     let cell = &state.cell;
-    let snapped = snap(&table, &cell.morph, &cell.flat, &SnapOptions::default())
-        .map_err(|e| e.to_string())?;
+    // the table is in the cell file's units: the cell's scale applies to it too
+    let opts = SnapOptions {
+        scale: cell.scale,
+        ..SnapOptions::default()
+    };
+    let snapped = snap(&table, &cell.morph, &cell.flat, &opts).map_err(|e| e.to_string())?;
     state.synapses = Some(Layer::new(snapped, cell.flat.len()));
     state.colour_by = ColourBy::Synapses;
     state.colour_version += 1;
     Ok(())
+}
+
+/// The sites the reduction serves: with a table open, its synapses on the kept neurite types,
+/// each one site of its weight — [`Snapped::sites`], as `pollard reduce --synapses` makes them;
+/// the default sites without a table (or when no synapse is on a kept type).
+pub fn sites(state: &CellState) -> Sites {
+    let Some(l) = &state.synapses else {
+        return Sites::Default;
+    };
+    let of_full = &state.model.of_full;
+    let kept = |s: &Synapse| of_full.get(s.node as usize).is_some_and(|&m| m != NONE);
+    if l.snapped.synapses.iter().all(kept) {
+        return l.snapped.sites();
+    }
+    let mut on_model = l.snapped.clone();
+    on_model.synapses.retain(kept);
+    if on_model.synapses.is_empty() {
+        Sites::Default
+    } else {
+        on_model.sites()
+    }
 }
 
 /// Chooses an input by name (`None`: every input).

@@ -50,6 +50,10 @@ pub struct Args {
     /// synapse count.
     #[arg(long, value_name = "TABLE.csv")]
     pub synapses: Option<PathBuf>,
+    /// Multiply the cell's coordinates and radii by this factor (e.g. 0.001 for a file in nm),
+    /// and the synapse table's positions too, as --scale does for `pollard reduce`.
+    #[arg(long, value_name = "S")]
+    pub scale: Option<f64>,
     /// With --synapses: choose this input (its synapses are ringed on both trees).
     #[arg(long, value_name = "NAME", requires = "synapses")]
     pub input: Option<String>,
@@ -73,6 +77,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         save_png: a.save_png,
         synapses: a.synapses,
         synapse_input: a.input,
+        scale: a.scale,
     };
     pollard::app::run_with(pollard::app::Start::File(a.cell), opts)?;
     Ok(ExitCode::SUCCESS)
