@@ -113,6 +113,13 @@ pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 3;
 /// The `format` value of a reduced-tree JSON file.
 pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";
 
+/// Position of every morphology point in µm (`--scale` applied, as the cable arrays have it),
+/// for [`TreeSource::point_pos`].
+pub fn point_positions_um(m: &crate::Morphology, scale: Option<f64>) -> Vec<[f64; 3]> {
+    let s = scale.unwrap_or(1.0);
+    m.points.iter().map(|p| p.pos.map(|x| x * s)).collect()
+}
+
 /// Where a reduced tree came from, for the file's header and site map.
 #[derive(Debug, Clone, Copy)]
 pub struct TreeSource<'a> {
@@ -120,7 +127,7 @@ pub struct TreeSource<'a> {
     pub source: &'a str,
     /// SWC id of every morphology point (`Morphology::points[i].id`).
     pub point_ids: &'a [i64],
-    /// Position of every morphology point (µm).
+    /// Position of every morphology point (µm, see [`point_positions_um`]).
     pub point_pos: &'a [[f64; 3]],
 }
 

@@ -274,6 +274,22 @@ fn the_same_table_in_nanometres_with_scale_gives_the_same_matrix() {
     assert_eq!(a["synapses"]["compartment"], b["synapses"]["compartment"]);
     assert_eq!(a["summary"]["synapses"], 765);
     assert_eq!(um["parameters"]["sites"], "synapses");
+    // the site map's positions are in µm either way
+    let (sa, sb) = (
+        um["site_map"].as_array().unwrap(),
+        nm["site_map"].as_array().unwrap(),
+    );
+    assert_eq!(sa.len(), 765);
+    assert_eq!(sa.len(), sb.len());
+    for (x, y) in sa.iter().zip(sb) {
+        for c in 0..3 {
+            let (p, q) = (&x["position_um"][c], &y["position_um"][c]);
+            assert!(
+                (p.as_f64().unwrap() - q.as_f64().unwrap()).abs() < 1e-9,
+                "{x} {y}"
+            );
+        }
+    }
     let da = a["synapses"]["snap_distance_um"].as_array().unwrap();
     let db = b["synapses"]["snap_distance_um"].as_array().unwrap();
     for (x, y) in da.iter().zip(db) {

@@ -30,6 +30,8 @@ enum Origin {
         fidelity: Mutex<Option<(FidelityOptions, Arc<Fidelity>)>>,
         /// The synapse table the tree was reduced for, mapped onto it (budget curve included).
         synapses: Option<Box<(Snapped, SynapseMap)>>,
+        /// The cell's `scale` (positions in the file are in µm after it).
+        scale: Option<f64>,
     },
     Loaded {
         text: String,
@@ -319,10 +321,11 @@ impl ReducedTree {
                 source,
                 inputs,
                 synapses,
+                scale,
                 ..
             } => {
                 let ids: Vec<i64> = morph.points.iter().map(|p| p.id).collect();
-                let pos: Vec<[f64; 3]> = morph.points.iter().map(|p| p.pos).collect();
+                let pos = pollard::export::point_positions_um(morph, *scale);
                 let src = TreeSource {
                     source,
                     point_ids: &ids,
@@ -535,6 +538,7 @@ pub fn reduce(
                 inputs,
                 fidelity: Mutex::new(None),
                 synapses,
+                scale: prep.scale,
             },
         })
     })

@@ -66,7 +66,7 @@ fn compute(
             .map(f)
             .filter(|x| x.is_finite())
     };
-    let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
+    let pos = crate::export::point_positions_um(&m, settings.scale);
     let src = TreeSource {
         source: name,
         point_ids: &ids,

@@ -133,7 +133,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         Some(f.report(&tree, Some(&m))?)
     };
     let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
-    let pos: Vec<[f64; 3]> = m.points.iter().map(|p| p.pos).collect();
+    let pos = pollard::export::point_positions_um(&m, a.geometry.scale);
     let src = TreeSource {
         source: &name,
         point_ids: &ids,
