@@ -575,3 +575,126 @@ fn response_traces_follow_the_click_and_the_budget() {
         "soma peaks {a} (far tip) vs {b} mV (near the soma)"
     );
 }
+
+/// Every text the frame painted, with its screen rectangle (egui_plot paints tick labels and axis
+/// titles as text shapes, not widgets, so they are read from the frame's shapes).
+fn painted_texts(h: &Harness<'static, PollardApp>) -> Vec<(String, egui::Rect)> {
+    let mut out = Vec::new();
+    let mut stack: Vec<&egui::Shape> = h.output().shapes.iter().map(|c| &c.shape).collect();
+    while let Some(shape) = stack.pop() {
+        match shape {
+            egui::Shape::Vec(v) => stack.extend(v.iter()),
+            egui::Shape::Text(t) => {
+                let r = t.galley.rect.translate(t.pos.to_vec2());
+                out.push((t.galley.text().to_string(), r))
+            }
+            _ => {}
+        }
+    }
+    out
+}
+
+/// The attenuation plot's x-axis title and its tick labels (value, rectangle), left to right:
+/// the numbers on the lowest line above the title within the plot's column (the columns are
+/// equal, so the column ends halfway to the next plot's axis title; the y axis's labels sit
+/// higher, centred on their grid lines inside the frame's height).
+fn distance_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<(f64, egui::Rect)>) {
+    let texts = painted_texts(h);
+    let find = |prefix: &str| {
+        texts
+            .iter()
+            .find(|(t, _)| t.starts_with(prefix))
+            .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
+            .clone()
+    };
+    let (title, tr) = find("path distance from the soma");
+    let (_, er) = find("compartments");
+    let half = (er.center().x - tr.center().x) / 2.0;
+    let numbers: Vec<(f64, egui::Rect)> = texts
+        .iter()
+        .filter(|(_, r)| {
+            (r.center().x - tr.center().x).abs() < half && r.bottom() <= tr.top() + 1.0
+        })
+        .filter_map(|(t, r)| Some((t.replace('\u{2212}', "-").parse::<f64>().ok()?, *r)))
+        .collect();
+    let line = numbers
+        .iter()
+        .map(|n| n.1.top())
+        .fold(f32::NEG_INFINITY, f32::max);
+    let mut ticks: Vec<(f64, egui::Rect)> = numbers
+        .into_iter()
+        .filter(|n| (n.1.top() - line).abs() < 0.5)
+        .collect();
+    ticks.sort_by(|a, b| a.1.left().total_cmp(&b.1.left()));
+    (title, ticks)
+}
+
+/// A synthetic cell of `n` points written to `dir`, opened as by `pollard view FILE`, drawn in a
+/// window of `size`.
+fn open_synthetic(dir: &std::path::Path, n: usize, size: Vec2) -> Harness<'static, PollardApp> {
+    let f = dir.join(format!("synth{n}.swc"));
+    let text = pollard::synth::to_swc(&pollard::synth::big_cell(n, 1), &[]);
+    std::fs::write(&f, text).unwrap();
+    let mut app = PollardApp::new(
+        Start::File(f),
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    app.wait_idle();
+    let mut h = Harness::builder()
+        .with_size(size)
+        .with_max_steps(200)
+        .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app);
+    settle(&mut h);
+    h
+}
+
+/// The distance axis's ticks read: the title names the unit, at least `least` labels from 0 at
+/// one even step, none overlapping, reaching at least halfway to the farthest point.
+fn assert_readable_distance_axis(h: &Harness<'static, PollardApp>, least: usize) {
+    let (title, ticks) = distance_axis(h);
+    let um = match title.as_str() {
+        "path distance from the soma (µm)" => 1.0,
+        "path distance from the soma (mm)" => 1000.0,
+        t => panic!("the axis title names no unit: {t:?}"),
+    };
+    let values: Vec<f64> = ticks.iter().map(|t| t.0).collect();
+    assert!(ticks.len() >= least, "{title}: tick labels {values:?}");
+    assert_eq!(values[0], 0.0, "{values:?}");
+    let step = values[1] - values[0];
+    for (w, r) in values.windows(2).zip(ticks.windows(2)) {
+        assert!((w[1] - w[0] - step).abs() < 1e-9 * step, "{values:?}");
+        assert!(r[0].1.right() < r[1].1.left(), "labels overlap: {ticks:?}");
+    }
+    let s = h.state().state.as_ref().unwrap();
+    let far = s.model.path_distance.iter().copied().fold(0.0, f64::max);
+    assert!(
+        values[values.len() - 1] * um >= 0.5 * far,
+        "{values:?} {title}; farthest {far} µm"
+    );
+}
+
+#[test]
+fn path_distance_axis_has_readable_ticks_on_a_large_cell_in_a_narrow_plot() {
+    // The attenuation plot is about 60 px wide in a 1280 × 800 window and 150 px in 1600 × 1000.
+    // On this cell (farthest point 1,956 µm from the soma) egui_plot's own powers-of-ten ticks
+    // showed only "0" in the narrow plot (labels closer than 60 px are hidden).
+    let dir = tempfile::tempdir().unwrap();
+    let narrow = Vec2::new(1280.0, 800.0);
+    let usual = Vec2::new(1600.0, 1000.0);
+    for (size, least) in [(narrow, 2), (usual, 3)] {
+        let h = open_synthetic(dir.path(), 100_000, size);
+        assert_readable_distance_axis(&h, least);
+        assert_eq!(distance_axis(&h).0, "path distance from the soma (mm)");
+    }
+    // the demo cell (farthest point a few hundred µm away) keeps µm
+    for (size, least) in [(narrow, 2), (usual, 3)] {
+        let mut h = Harness::builder()
+            .with_size(size)
+            .with_max_steps(200)
+            .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app_with(vec![]));
+        settle(&mut h);
+        assert_readable_distance_axis(&h, least);
+        assert_eq!(distance_axis(&h).0, "path distance from the soma (µm)");
+    }
+}

@@ -6,6 +6,7 @@
 //! [`state::CellState`] with no egui in it. Loading and building the reduction run on background
 //! threads; a panic there is caught and shown as an error, and the previous cell stays.
 
+pub mod axis;
 pub mod canvas;
 pub mod colour;
 pub mod files;

@@ -1,12 +1,13 @@
 //! The side panel of controls and the plots under the drawings.
 
+use super::axis;
 use super::canvas::{AxisView, Camera, ReducedLayout};
 use super::files::{Purpose, RecentFiles};
 use super::state::{CellState, ColourBy, LogUnit};
 use crate::cable::Params;
 use crate::morphology::kind_name;
 use eframe::egui::{self, Color32};
-use egui_plot::{Legend, Line, Plot, Points, VLine};
+use egui_plot::{AxisHints, Legend, Line, Plot, Points, VLine};
 use std::path::PathBuf;
 
 /// Something the user asked for; the app applies it after drawing.
@@ -435,9 +436,22 @@ impl PlotsPanel {
             "Orange: the reduced tree with the current injected at the injection point's \
              compartment (not at the point itself), so its offset is not a reduction error.",
         );
+        // µm or mm by the farthest point of the model, so the unit stays while the site moves
+        let far = s.model.path_distance.iter().copied().fold(0.0, f64::max);
+        let unit = axis::DistanceUnit::for_extent(far);
+        let to_axis = |v: Vec<[f64; 2]>| -> Vec<[f64; 2]> {
+            v.into_iter().map(|[d, y]| [d / unit.um(), y]).collect()
+        };
+        let (thinned, red) = (to_axis(thinned), to_axis(red));
+        let x_axis = AxisHints::new_x()
+            .label(unit.title())
+            .formatter(|mark, _| axis::label(mark))
+            .label_spacing(axis::LABEL_FADE_PX.0..=axis::LABEL_FADE_PX.1);
         Plot::new("attenuation")
             .legend(Legend::default().position(egui_plot::Corner::RightBottom))
-            .x_axis_label("path distance from the soma (µm)")
+            .custom_x_axes(vec![x_axis])
+            .x_grid_spacer(axis::marks)
+            .grid_spacing(axis::GRID_MIN_PX..=300.0)
             .y_axis_label(s.unit.suffix())
             .show(ui, |pu| {
                 pu.points(
