@@ -6,7 +6,7 @@
 use eframe::egui::Vec2;
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
-use pollard::app::files::{Dialogs, RecentFiles};
+use pollard::app::files::{Dialogs, Purpose, RecentFiles};
 use pollard::app::state::ColourBy;
 use pollard::app::{PollardApp, Start, synapses};
 use pollard::morphology::NONE;
@@ -153,6 +153,29 @@ fn opening_a_table_re_reduces_for_its_synapses_as_the_command_does() {
     };
     let r = pollard::reduce::Reducer::new(&flat, &s.params, &opts).unwrap();
     assert_eq!(&r.tree(budget).compartments, after);
+    // the saved tree carries the command's `synapses` member
+    let dir = tempfile::tempdir().unwrap();
+    let (mine, cli) = (dir.path().join("app.json"), dir.path().join("cli.json"));
+    h.state_mut().export(Purpose::SaveJson, &mine).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_pollard"))
+        .args(["reduce", cell.to_str().unwrap(), "-n", "31", "--synapses"])
+        .arg(table_path())
+        .arg("-o")
+        .arg(&cli)
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let json = |p: &Path| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
+    };
+    let (a, b) = (json(&mine), json(&cli));
+    assert_eq!(a["synapses"]["summary"]["synapses"], 765);
+    assert_eq!(a["synapses"], b["synapses"]);
+    assert_eq!(a["compartments"], b["compartments"]);
 }
 
 /// `text` with the numbers in columns `cols` (split by `sep`) multiplied by 1000 (µm → nm).

@@ -256,14 +256,14 @@ impl PollardApp {
         let cell = s.cell.clone();
         let kept = s.kept_types();
         let params = s.params;
-        let sites = synapses::sites(s);
+        let table = synapses::on_model(s);
         self.reduced_for_table = s.synapses.as_ref().map(|l| l.id);
         let job = Job::spawn(
             "building the reduction".into(),
             self.ctx.clone(),
             move |p| {
                 p.set("building the collapse order");
-                state::build_reduction_for(&cell, kept, &params, sites)
+                state::build_reduction_for(&cell, kept, &params, table)
                     .map_err(|e| anyhow::anyhow!(e))
             },
         );

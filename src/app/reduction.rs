@@ -6,7 +6,8 @@
 
 use crate::cable::Params;
 use crate::morphology::{Flat, NONE};
-use crate::reduce::{ReducedTree, Reducer};
+use crate::reduce::{ReducedTree, Reducer, Sites};
+use crate::synapses::{Snapped, SynapseJson, SynapseMap};
 use std::sync::Arc;
 
 /// What drawing needs of one budget's [`ReducedTree`] besides the tree: which compartment each
@@ -87,6 +88,8 @@ pub struct Reduction {
     source: String,
     ids: Vec<i64>,
     pos: Vec<[f64; 3]>,
+    /// The synapse table whose synapses are the sites (the saved JSON gets its map).
+    table: Option<Snapped>,
 }
 
 /// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), or says why
@@ -96,20 +99,20 @@ pub fn build_reduction(
     kept: Option<Vec<i32>>,
     params: &Params,
 ) -> Result<Arc<Reduction>, String> {
-    build_reduction_for(cell, kept, params, crate::reduce::Sites::Default)
+    build_reduction_for(cell, kept, params, None)
 }
 
-/// [`build_reduction`] serving `sites` (the open synapse table's synapses, see
-/// [`super::synapses::sites`], as `pollard reduce --synapses` does).
+/// [`build_reduction`] serving the synapses of `table` (the open table's synapses on the model,
+/// [`super::synapses::on_model`]) as its sites, as `pollard reduce --synapses` does.
 pub fn build_reduction_for(
     cell: &super::state::Cell,
     kept: Option<Vec<i32>>,
     params: &Params,
-    sites: crate::reduce::Sites,
+    table: Option<Snapped>,
 ) -> Result<Arc<Reduction>, String> {
     let opts = crate::reduce::ReduceOptions {
         types: kept,
-        sites,
+        sites: table.as_ref().map_or(Sites::Default, Snapped::sites),
         ..Default::default()
     };
     match Reducer::new(&cell.flat, params, &opts) {
@@ -118,6 +121,7 @@ pub fn build_reduction_for(
             source: cell.name.clone(),
             ids: cell.morph.points.iter().map(|p| p.id).collect(),
             pos: cell.morph.points.iter().map(|p| p.pos).collect(),
+            table,
         })),
         Err(e) => Err(format!("no reduction: {e}")),
     }
@@ -161,8 +165,15 @@ impl Reduction {
             &crate::fidelity::FidelityOptions::default(),
         )?;
         let fidelity = fid.report(&t, None)?;
+        // and, with a synapse table, the same `synapses` member
+        let map = match &self.table {
+            Some(s) => Some(SynapseMap::new(s, &t)?.with_curve(s, &self.reducer)?),
+            None => None,
+        };
         let extras = crate::export::TreeExtras::<()> {
             fidelity: Some(&fidelity),
+            synapses: (self.table.as_ref().zip(map.as_ref()))
+                .map(|(s, m)| SynapseJson::new(s, m, t.len())),
             ..Default::default()
         };
         Ok(crate::export::reduced_tree_json_with(

@@ -4,14 +4,13 @@
 //! by [`mark_original`] and [`mark_reduced`]).
 //!
 //! The table is read and snapped by the library ([`crate::synapses`]) onto the whole cell, with
-//! the cell's scale; while it is open the app's reduction serves its synapses ([`sites`]), and
+//! the cell's scale; while it is open the app's reduction serves its synapses ([`on_model`]), and
 //! the map to compartments goes through the points each compartment stands for
 //! (`DrawingExtras::node_comp`), as [`crate::synapses::SynapseMap`] does.
 
 use super::files::{Dialogs, Purpose};
 use super::state::{CellState, ColourBy};
 use crate::morphology::NONE;
-use crate::reduce::Sites;
 use crate::synapses::{SnapOptions, Snapped, Synapse, parse_table, snap};
 use eframe::egui::{self, Color32, Pos2, Stroke};
 use std::path::{Path, PathBuf};
@@ -180,25 +179,17 @@ pub fn load(state: &mut CellState, path: &Path) -> Result<(), String> {
     Ok(())
 }
 
-/// The sites the reduction serves: with a table open, its synapses on the kept neurite types,
-/// each one site of its weight — [`Snapped::sites`], as `pollard reduce --synapses` makes them;
-/// the default sites without a table (or when no synapse is on a kept type).
-pub fn sites(state: &CellState) -> Sites {
-    let Some(l) = &state.synapses else {
-        return Sites::Default;
-    };
+/// What the reduction serves while a table is open: its synapses on the kept neurite types, each
+/// one site of its weight ([`Snapped::sites`], as `pollard reduce --synapses` makes them). None
+/// without a table, or when no synapse is on a kept type (the default sites then).
+pub fn on_model(state: &CellState) -> Option<Snapped> {
+    let l = state.synapses.as_ref()?;
     let of_full = &state.model.of_full;
-    let kept = |s: &Synapse| of_full.get(s.node as usize).is_some_and(|&m| m != NONE);
-    if l.snapped.synapses.iter().all(kept) {
-        return l.snapped.sites();
-    }
     let mut on_model = l.snapped.clone();
-    on_model.synapses.retain(kept);
-    if on_model.synapses.is_empty() {
-        Sites::Default
-    } else {
-        on_model.sites()
-    }
+    on_model
+        .synapses
+        .retain(|s: &Synapse| of_full.get(s.node as usize).is_some_and(|&m| m != NONE));
+    (!on_model.synapses.is_empty()).then_some(on_model)
 }
 
 /// Chooses an input by name (`None`: every input).
@@ -242,18 +233,27 @@ pub fn mark_reduced(painter: &egui::Painter, state: &CellState, comp_screen: &[(
     if l.selected.is_none() {
         return;
     }
+    let font = egui::FontId::proportional(13.0);
+    // counts of nearby compartments would overlap: each label moves down until it is clear
+    let mut placed: Vec<egui::Rect> = Vec::new();
     for (c, n) in l.comp_counts(state).into_iter().enumerate() {
         if n > 0.0
             && let Some(&(p, r)) = comp_screen.get(c)
         {
             painter.circle_stroke(p, r.max(4.0) + 4.0, Stroke::new(2.0, MARK));
-            painter.text(
-                p + egui::vec2(r.max(4.0) + 6.0, -8.0),
-                egui::Align2::LEFT_CENTER,
-                format!("{n:.0}"),
-                egui::FontId::proportional(13.0),
-                MARK,
+            let galley = painter.layout_no_wrap(format!("{n:.0}"), font.clone(), MARK);
+            let mut rect = egui::Rect::from_min_size(
+                p + egui::vec2(r.max(4.0) + 6.0, -8.0 - 0.5 * galley.size().y),
+                galley.size(),
             );
+            for _ in 0..8 {
+                if !placed.iter().any(|q| q.intersects(rect)) {
+                    break;
+                }
+                rect = rect.translate(egui::vec2(0.0, galley.size().y));
+            }
+            placed.push(rect);
+            painter.galley(rect.min, galley, MARK);
         }
     }
 }
