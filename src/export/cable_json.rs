@@ -1,7 +1,8 @@
 //! The JSON document of `pollard cable --json`: the whole-cell summary and the maps at every
 //! point, as typed serde members. Every number is checked when the document is made, before a
 //! byte is written: a value that is not finite is an error naming the point and the quantity,
-//! never a `null`. The per-point values are computed in parallel; serde writes them in order.
+//! never a `null`. The per-point values are read from the maps twice rather than copied: once
+//! by the check (in parallel), once as serde writes them in order.
 
 use crate::cable::{CellMaps, Summary};
 use crate::swc::Warning;
@@ -56,17 +57,19 @@ pub struct CableDoc<'a> {
 
 /// The `points` array: one object per SWC point, in the morphology's order, with the point's
 /// id and, for points of the main tree, its input resistance (MΩ), attenuations to and from the
-/// soma and (with an injection point) |V_k/V_inj| as `v_over_v_injection_point`. Points outside the main tree carry their id only.
+/// soma and (with an injection point) |V_k/V_inj| as `v_over_v_injection_point`. Points outside
+/// the main tree carry their id only. The values are read from the maps as they are written (no
+/// per-point copy of the maps is kept).
 pub struct PointsOut<'a> {
     ids: &'a [i64],
-    values: Vec<Option<PointValues>>,
+    maps: &'a CellMaps,
     injection: Option<&'a [f64]>,
 }
 
 /// One point's object: `id`, then the maps when the point is in the main tree.
-struct PointOut<'v> {
+struct PointOut {
     id: i64,
-    values: &'v Option<PointValues>,
+    values: Option<PointValues>,
 }
 
 struct PointValues {
@@ -76,7 +79,7 @@ struct PointValues {
     v_over_v_inj: Option<f64>,
 }
 
-impl serde::Serialize for PointOut<'_> {
+impl serde::Serialize for PointOut {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         use serde::ser::SerializeStruct;
         let v = self.values.as_ref();
@@ -96,26 +99,25 @@ impl serde::Serialize for PointOut<'_> {
 }
 
 impl<'a> PointsOut<'a> {
-    /// The maps at every point, computed in parallel (rayon).
-    fn new(ids: &'a [i64], maps: &CellMaps, injection: Option<&'a [f64]>) -> PointsOut<'a> {
-        use rayon::prelude::*;
-        let values = (0..ids.len())
-            .into_par_iter()
-            .with_min_len(4096)
-            .map(|i| {
-                let k = maps.node_of_point(i)?;
-                Some(PointValues {
-                    input_resistance_mohm: maps.input_resistance_mohm(k),
-                    attenuation_to_soma: maps.attenuation_to_soma(k),
-                    attenuation_from_soma: maps.attenuation_from_soma(k),
-                    v_over_v_inj: injection.map(|v| v[k]),
-                })
-            })
-            .collect();
+    fn new(ids: &'a [i64], maps: &'a CellMaps, injection: Option<&'a [f64]>) -> PointsOut<'a> {
         PointsOut {
             ids,
-            values,
+            maps,
             injection,
+        }
+    }
+
+    /// Point `i`'s object.
+    fn point(&self, i: usize) -> PointOut {
+        let m = self.maps;
+        PointOut {
+            id: self.ids[i],
+            values: m.node_of_point(i).map(|k| PointValues {
+                input_resistance_mohm: m.input_resistance_mohm(k),
+                attenuation_to_soma: m.attenuation_to_soma(k),
+                attenuation_from_soma: m.attenuation_from_soma(k),
+                v_over_v_inj: self.injection.map(|v| v[k]),
+            }),
         }
     }
 
@@ -129,29 +131,34 @@ impl<'a> PointsOut<'a> {
         self.ids[i]
     }
 
-    /// The first point value that is not finite: (what, at which id, value).
+    /// The first point value that is not finite: (what, at which id, value). The points are
+    /// checked in parallel (rayon).
     fn first_non_finite(&self) -> Option<(String, f64)> {
         use rayon::prelude::*;
-        self.values.par_iter().enumerate().find_map_first(|(i, v)| {
-            let v = v.as_ref()?;
-            [
-                ("input resistance", v.input_resistance_mohm),
-                ("attenuation to the soma", v.attenuation_to_soma),
-                ("attenuation from the soma", v.attenuation_from_soma),
-                ("V/V at the injection point", v.v_over_v_inj.unwrap_or(0.0)),
-            ]
-            .into_iter()
-            .find(|x| !x.1.is_finite())
-            .map(|(what, x)| (format!("the {what} at point {}", self.ids[i]), x))
-        })
+        (0..self.ids.len())
+            .into_par_iter()
+            .with_min_len(4096)
+            .find_map_first(|i| {
+                let p = self.point(i);
+                let v = p.values?;
+                [
+                    ("input resistance", v.input_resistance_mohm),
+                    ("attenuation to the soma", v.attenuation_to_soma),
+                    ("attenuation from the soma", v.attenuation_from_soma),
+                    ("V/V at the injection point", v.v_over_v_inj.unwrap_or(0.0)),
+                ]
+                .into_iter()
+                .find(|x| !x.1.is_finite())
+                .map(|(what, x)| (format!("the {what} at point {}", p.id), x))
+            })
     }
 }
 
 impl serde::Serialize for PointsOut<'_> {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         let mut seq = s.serialize_seq(Some(self.ids.len()))?;
-        for (&id, values) in self.ids.iter().zip(&self.values) {
-            seq.serialize_element(&PointOut { id, values })?;
+        for i in 0..self.ids.len() {
+            seq.serialize_element(&self.point(i))?;
         }
         seq.end()
     }
@@ -164,7 +171,7 @@ impl<'a> CableDoc<'a> {
     pub fn new(
         file: &'a str,
         ids: &'a [i64],
-        maps: &CellMaps,
+        maps: &'a CellMaps,
         summary: &Summary,
         site: Option<(i64, &'a [f64])>,
         warnings: &'a [Warning],
