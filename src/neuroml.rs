@@ -20,7 +20,7 @@
 //! `<property>_uniform`). With fitted capacitances that is one capacitance line per segment.
 
 use crate::cable::Params;
-use crate::reduce::ReducedTree;
+use crate::reduce::{Compartment, ReducedTree};
 use std::f64::consts::PI;
 use std::fmt::Write as _;
 
@@ -93,8 +93,6 @@ fn rel(a: f64, b: f64) -> f64 {
 /// Lays out the segments of `tree` (parents first, index = compartment id).
 pub fn segments(tree: &ReducedTree) -> Result<Vec<Segment>, NeuromlError> {
     let p = &tree.params;
-    let um = crate::cable::UM; // cm per µm
-    let (rm, ra, cm) = (p.rm_ohm_cm2, p.ra_ohm_cm, p.cm_uf_cm2);
     // shortest segment drawn: far above the rounding of the coordinates it is added to
     let scale = tree
         .compartments
@@ -107,111 +105,136 @@ pub fn segments(tree: &ReducedTree) -> Result<Vec<Segment>, NeuromlError> {
     let l_min_um = 1e-6 * scale;
     let mut out: Vec<Segment> = Vec::with_capacity(tree.len());
     for c in &tree.compartments {
-        let bad = |what, value| NeuromlError::BadValue {
-            id: c.id,
-            what,
-            value,
-        };
-        let g = c.g_axial_ns * 1e-9;
         let gl = c.g_leak_ns * 1e-9;
         let cap = c.capacitance_pf * 1e-12;
         if !(gl.is_finite() && gl >= 0.0) {
-            return Err(bad("g_leak_ns", c.g_leak_ns));
+            return Err(bad(c, "g_leak_ns", c.g_leak_ns));
         }
         if !(cap.is_finite() && cap >= 0.0) {
-            return Err(bad("capacitance_pf", c.capacitance_pf));
+            return Err(bad(c, "capacitance_pf", c.capacitance_pf));
         }
         if c.position_um.iter().any(|v| !v.is_finite()) {
-            return Err(bad("position_um", f64::NAN));
+            return Err(bad(c, "position_um", f64::NAN));
         }
-        // first guess of the geometry (µm): equivalent cylinder, or a sphere-sized soma
-        let (from, dir, len_um, d_um) = match c.parent {
-            None => {
-                // a cylinder as long as it is wide has the area of a sphere of that diameter
-                let d = if gl > 0.0 {
-                    (gl * rm / PI).sqrt() / um
-                } else {
-                    1.0
-                };
-                let from = [
-                    c.position_um[0] - d / 2.0,
-                    c.position_um[1],
-                    c.position_um[2],
-                ];
-                (from, [1.0, 0.0, 0.0], d, d)
-            }
-            Some(q) => {
-                if !(g.is_finite() && g > 0.0) {
-                    return Err(bad("g_axial_ns", c.g_axial_ns));
-                }
-                let parent = &tree.compartments[q as usize];
-                let dv = [0, 1, 2].map(|k| c.position_um[k] - parent.position_um[k]);
-                let norm = (dv[0] * dv[0] + dv[1] * dv[1] + dv[2] * dv[2]).sqrt();
-                let dir = if norm > 0.0 && norm.is_finite() {
-                    dv.map(|v| v / norm)
-                } else {
-                    [1.0, 0.0, 0.0]
-                };
-                // Rall 1959's core conductor: g = πr²/(Ra·l) and G = 2πrl/Rm solved for r, l
-                let (l, d) = if gl > 0.0 {
-                    let r = ((g * ra / PI) * (gl * rm / (2.0 * PI))).cbrt();
-                    (gl * rm / (2.0 * PI * r) / um, 2.0 * r / um)
-                } else {
-                    (1.0, 0.0)
-                };
-                (out[q as usize].distal, dir, l.max(l_min_um), d)
-            }
-        };
-        let distal = [0, 1, 2].map(|k| from[k] + dir[k] * len_um);
+        let parent = c
+            .parent
+            .map(|q| (&tree.compartments[q as usize], out[q as usize].distal));
+        let (from, dir, len_um, d_um) = first_guess(c, parent, p, l_min_um)?;
         let mut s = Segment {
             proximal: from,
-            distal,
+            distal: [0, 1, 2].map(|k| from[k] + dir[k] * len_um),
             diameter_um: d_um,
-            resistivity_ohm_cm: ra,
-            leak_s_per_cm2: 1.0 / rm,
-            capacitance_uf_per_cm2: cm,
+            resistivity_ohm_cm: p.ra_ohm_cm,
+            leak_s_per_cm2: 1.0 / p.rm_ohm_cm2,
+            capacitance_uf_per_cm2: p.cm_uf_cm2,
             own: [false; 3],
         };
-        // measure as the reader will; the diameter then gives the leak with the cell's Rm at
-        // that length (or, without leak, the axial conductance with its Ra)
-        let l = segment_length_um(&s) * um;
-        if !(l > 0.0 && l.is_finite()) {
-            return Err(bad("segment length (µm)", l / um));
-        }
-        if gl > 0.0 {
-            s.diameter_um = gl * rm / (PI * l) / um;
-        } else if c.parent.is_some() {
-            s.diameter_um = (4.0 * ra * l * g / PI).sqrt() / um;
-        }
-        let d = s.diameter_um * um;
-        if !(d > 0.0 && d.is_finite()) {
-            return Err(bad("segment diameter (µm)", s.diameter_um));
-        }
-        let area = PI * d * l;
-        let need_leak = gl / area;
-        let need_cap = cap / area * 1e6;
-        let need_ra = if c.parent.is_some() {
-            PI * d * d / (4.0 * g * l)
-        } else {
-            ra
-        };
-        s.own = [
-            rel(need_ra, ra) > EXACT,
-            rel(need_leak, 1.0 / rm) > EXACT,
-            rel(need_cap, cm) > EXACT,
-        ];
-        if s.own[0] {
-            s.resistivity_ohm_cm = need_ra;
-        }
-        if s.own[1] {
-            s.leak_s_per_cm2 = need_leak;
-        }
-        if s.own[2] {
-            s.capacitance_uf_per_cm2 = need_cap;
-        }
+        fit_properties(&mut s, c, p)?;
         out.push(s);
     }
     Ok(out)
+}
+
+fn bad(c: &Compartment, what: &'static str, value: f64) -> NeuromlError {
+    NeuromlError::BadValue {
+        id: c.id,
+        what,
+        value,
+    }
+}
+
+/// The first guess of a compartment's segment (µm): start, unit direction, length, diameter.
+/// The root is a cylinder as long as it is wide (the area of a sphere of that diameter);
+/// another compartment is the cylinder of Rall 1959's core conductor, from the distal end of
+/// its parent's segment (`parent`: the parent compartment and that end) towards its position.
+fn first_guess(
+    c: &Compartment,
+    parent: Option<(&Compartment, [f64; 3])>,
+    p: &Params,
+    l_min_um: f64,
+) -> Result<([f64; 3], [f64; 3], f64, f64), NeuromlError> {
+    let um = crate::cable::UM; // cm per µm
+    let (rm, ra) = (p.rm_ohm_cm2, p.ra_ohm_cm);
+    let g = c.g_axial_ns * 1e-9;
+    let gl = c.g_leak_ns * 1e-9;
+    let Some((parent, parent_distal)) = parent else {
+        let d = if gl > 0.0 {
+            (gl * rm / PI).sqrt() / um
+        } else {
+            1.0
+        };
+        let from = [
+            c.position_um[0] - d / 2.0,
+            c.position_um[1],
+            c.position_um[2],
+        ];
+        return Ok((from, [1.0, 0.0, 0.0], d, d));
+    };
+    if !(g.is_finite() && g > 0.0) {
+        return Err(bad(c, "g_axial_ns", c.g_axial_ns));
+    }
+    let dv = [0, 1, 2].map(|k| c.position_um[k] - parent.position_um[k]);
+    let norm = (dv[0] * dv[0] + dv[1] * dv[1] + dv[2] * dv[2]).sqrt();
+    let dir = if norm > 0.0 && norm.is_finite() {
+        dv.map(|v| v / norm)
+    } else {
+        [1.0, 0.0, 0.0]
+    };
+    // Rall 1959's core conductor: g = πr²/(Ra·l) and G = 2πrl/Rm solved for r, l
+    let (l, d) = if gl > 0.0 {
+        let r = ((g * ra / PI) * (gl * rm / (2.0 * PI))).cbrt();
+        (gl * rm / (2.0 * PI * r) / um, 2.0 * r / um)
+    } else {
+        (1.0, 0.0)
+    };
+    Ok((parent_distal, dir, l.max(l_min_um), d))
+}
+
+/// Measures `s` as the reader will; its diameter then gives the leak with the cell's Rm at that
+/// length (or, without leak, the axial conductance with its Ra). A property that the cell's Ra,
+/// 1/Rm or Cm cannot make exact gets a value of its own (`own`).
+fn fit_properties(s: &mut Segment, c: &Compartment, p: &Params) -> Result<(), NeuromlError> {
+    let um = crate::cable::UM; // cm per µm
+    let (rm, ra, cm) = (p.rm_ohm_cm2, p.ra_ohm_cm, p.cm_uf_cm2);
+    let g = c.g_axial_ns * 1e-9;
+    let gl = c.g_leak_ns * 1e-9;
+    let cap = c.capacitance_pf * 1e-12;
+    let l = segment_length_um(s) * um;
+    if !(l > 0.0 && l.is_finite()) {
+        return Err(bad(c, "segment length (µm)", l / um));
+    }
+    if gl > 0.0 {
+        s.diameter_um = gl * rm / (PI * l) / um;
+    } else if c.parent.is_some() {
+        s.diameter_um = (4.0 * ra * l * g / PI).sqrt() / um;
+    }
+    let d = s.diameter_um * um;
+    if !(d > 0.0 && d.is_finite()) {
+        return Err(bad(c, "segment diameter (µm)", s.diameter_um));
+    }
+    let area = PI * d * l;
+    let need_leak = gl / area;
+    let need_cap = cap / area * 1e6;
+    let need_ra = if c.parent.is_some() {
+        PI * d * d / (4.0 * g * l)
+    } else {
+        ra
+    };
+    s.own = [
+        rel(need_ra, ra) > EXACT,
+        rel(need_leak, 1.0 / rm) > EXACT,
+        rel(need_cap, cm) > EXACT,
+    ];
+    if s.own[0] {
+        s.resistivity_ohm_cm = need_ra;
+    }
+    if s.own[1] {
+        s.leak_s_per_cm2 = need_leak;
+    }
+    if s.own[2] {
+        s.capacitance_uf_per_cm2 = need_cap;
+    }
+    Ok(())
 }
 
 fn is_nml_id(s: &str) -> bool {
