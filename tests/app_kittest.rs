@@ -594,11 +594,15 @@ fn painted_texts(h: &Harness<'static, PollardApp>) -> Vec<(String, egui::Rect)> 
     out
 }
 
-/// The attenuation plot's x-axis title and its tick labels (value, rectangle), left to right:
-/// the numbers on the lowest line above the title within the plot's column (the columns are
-/// equal, so the column ends halfway to the next plot's axis title; the y axis's labels sit
-/// higher, centred on their grid lines inside the frame's height).
-fn distance_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<(f64, egui::Rect)>) {
+/// A plot's x-axis title (the painted text starting with `title`) and its tick labels (value,
+/// rectangle), left to right: the numbers on the lowest line above the title within the plot's
+/// column (the columns are equal, so a column ends halfway to the `neighbour` plot's axis title;
+/// the y axis's labels sit higher, centred on their grid lines inside the frame's height).
+fn axis_ticks(
+    h: &Harness<'static, PollardApp>,
+    title: &str,
+    neighbour: &str,
+) -> (String, Vec<(f64, egui::Rect)>) {
     let texts = painted_texts(h);
     let find = |prefix: &str| {
         texts
@@ -607,9 +611,9 @@ fn distance_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<(f64, egui::R
             .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
             .clone()
     };
-    let (title, tr) = find("path distance from the soma");
-    let (_, er) = find("compartments");
-    let half = (er.center().x - tr.center().x) / 2.0;
+    let (title, tr) = find(title);
+    let (_, nr) = find(neighbour);
+    let half = (nr.center().x - tr.center().x).abs() / 2.0;
     let numbers: Vec<(f64, egui::Rect)> = texts
         .iter()
         .filter(|(_, r)| {
@@ -627,6 +631,31 @@ fn distance_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<(f64, egui::R
         .collect();
     ticks.sort_by(|a, b| a.1.left().total_cmp(&b.1.left()));
     (title, ticks)
+}
+
+const DISTANCE: &str = "path distance from the soma";
+const COMPARTMENTS: &str = "compartments";
+const SHOLL: &str = "distance from the soma centre";
+
+/// The attenuation plot's path-distance axis: title and ticks.
+fn distance_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<(f64, egui::Rect)>) {
+    axis_ticks(h, DISTANCE, COMPARTMENTS)
+}
+
+/// Ticks read: at least `least` labels from 0 at one even step, none overlapping. Returns them.
+fn assert_readable_ticks(title: &str, ticks: &[(f64, egui::Rect)], least: usize) -> Vec<f64> {
+    let values: Vec<f64> = ticks.iter().map(|t| t.0).collect();
+    assert!(ticks.len() >= least, "{title}: tick labels {values:?}");
+    assert_eq!(values[0], 0.0, "{title}: {values:?}");
+    let step = values[1] - values[0];
+    for (w, r) in values.windows(2).zip(ticks.windows(2)) {
+        assert!(
+            (w[1] - w[0] - step).abs() < 1e-9 * step,
+            "{title}: {values:?}"
+        );
+        assert!(r[0].1.right() < r[1].1.left(), "labels overlap: {ticks:?}");
+    }
+    values
 }
 
 /// A synthetic cell of `n` points written to `dir`, opened as by `pollard view FILE`, drawn in a
@@ -649,52 +678,51 @@ fn open_synthetic(dir: &std::path::Path, n: usize, size: Vec2) -> Harness<'stati
     h
 }
 
-/// The distance axis's ticks read: the title names the unit, at least `least` labels from 0 at
-/// one even step, none overlapping, reaching at least halfway to the farthest point.
-fn assert_readable_distance_axis(h: &Harness<'static, PollardApp>, least: usize) {
+/// The three plots' x axes read (at least `least` labels each); the distance axis's title names
+/// its unit and its labels reach at least halfway to the farthest point.
+fn assert_readable_axes(h: &Harness<'static, PollardApp>, least: usize) {
     let (title, ticks) = distance_axis(h);
     let um = match title.as_str() {
         "path distance from the soma (µm)" => 1.0,
         "path distance from the soma (mm)" => 1000.0,
         t => panic!("the axis title names no unit: {t:?}"),
     };
-    let values: Vec<f64> = ticks.iter().map(|t| t.0).collect();
-    assert!(ticks.len() >= least, "{title}: tick labels {values:?}");
-    assert_eq!(values[0], 0.0, "{values:?}");
-    let step = values[1] - values[0];
-    for (w, r) in values.windows(2).zip(ticks.windows(2)) {
-        assert!((w[1] - w[0] - step).abs() < 1e-9 * step, "{values:?}");
-        assert!(r[0].1.right() < r[1].1.left(), "labels overlap: {ticks:?}");
-    }
+    let values = assert_readable_ticks(&title, &ticks, least);
     let s = h.state().state.as_ref().unwrap();
     let far = s.model.path_distance.iter().copied().fold(0.0, f64::max);
     assert!(
         values[values.len() - 1] * um >= 0.5 * far,
         "{values:?} {title}; farthest {far} µm"
     );
+    for (t, n) in [(COMPARTMENTS, SHOLL), (SHOLL, COMPARTMENTS)] {
+        let (title, ticks) = axis_ticks(h, t, n);
+        assert_readable_ticks(&title, &ticks, least);
+    }
 }
 
 #[test]
 fn path_distance_axis_has_readable_ticks_on_a_large_cell_in_a_narrow_plot() {
-    // The attenuation plot is about 60 px wide in a 1280 × 800 window and 150 px in 1600 × 1000.
-    // On this cell (farthest point 1,956 µm from the soma) egui_plot's own powers-of-ten ticks
-    // showed only "0" in the narrow plot (labels closer than 60 px are hidden).
+    // In a 1280 × 800 window the attenuation plot was about 60 px wide (the traces panel beside
+    // the plots took 670 px; it now takes at most 40 % of the width) and in 1600 × 1000 about
+    // 150 px. On this cell (farthest point 1,956 µm from the soma) egui_plot's own powers-of-ten
+    // ticks showed only "0" in the narrow plot (labels closer than 60 px are hidden), and only
+    // "0" under the error curve's 4,000 compartments.
     let dir = tempfile::tempdir().unwrap();
     let narrow = Vec2::new(1280.0, 800.0);
     let usual = Vec2::new(1600.0, 1000.0);
-    for (size, least) in [(narrow, 2), (usual, 3)] {
+    for size in [narrow, usual] {
         let h = open_synthetic(dir.path(), 100_000, size);
-        assert_readable_distance_axis(&h, least);
+        assert_readable_axes(&h, 3);
         assert_eq!(distance_axis(&h).0, "path distance from the soma (mm)");
     }
     // the demo cell (farthest point a few hundred µm away) keeps µm
-    for (size, least) in [(narrow, 2), (usual, 3)] {
+    for size in [narrow, usual] {
         let mut h = Harness::builder()
             .with_size(size)
             .with_max_steps(200)
             .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app_with(vec![]));
         settle(&mut h);
-        assert_readable_distance_axis(&h, least);
+        assert_readable_axes(&h, 3);
         assert_eq!(distance_axis(&h).0, "path distance from the soma (µm)");
     }
 }

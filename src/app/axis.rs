@@ -1,12 +1,14 @@
-//! The path-distance axis of the attenuation plot: its unit and its ticks, so that a narrow plot
-//! (about 150 px) reads at any cell size. egui_plot's default ticks are powers of ten and hide
-//! every label closer than 60 px, which left only "0" under a cell 2,000 µm deep.
+//! The x axes of the cell view's three narrow plots (about 150 px each): ticks that keep their
+//! labels at any cell size, and the path-distance axis's unit. egui_plot's default ticks are
+//! powers of ten and hide every label closer than 60 px, which left only "0" under a cell
+//! 2,000 µm deep (and under its 4,000-compartment error curve).
 //!
-//! Here the unit is µm up to 1,000 µm and mm beyond (labels stay within four characters), the
-//! labelled step is the smallest 1, 2, 2.5 or 5 × 10^k that keeps labels [`LABEL_PX`] apart
-//! (common practice for axis ticks, no source), and four unlabelled grid lines split each step.
+//! Here the labelled step is the smallest 1, 2, 2.5 or 5 × 10^k that keeps labels [`LABEL_PX`]
+//! apart (common practice for axis ticks, no source), four unlabelled grid lines split each
+//! step, and the path distance is in µm up to 1,000 µm and in mm beyond (labels stay within four
+//! characters).
 
-use egui_plot::{GridInput, GridMark};
+use egui_plot::{AxisHints, GridInput, GridMark, Plot};
 
 /// Labelled ticks are at least this far apart (px): four characters and a gap.
 pub const LABEL_PX: f64 = 34.0;
@@ -49,6 +51,18 @@ impl DistanceUnit {
             DistanceUnit::Millimetre => "path distance from the soma (mm)",
         }
     }
+}
+
+/// `plot` with an x axis titled `title` that keeps its labels in a narrow plot ([`marks`],
+/// [`label`]).
+pub fn readable_x<'a>(plot: Plot<'a>, title: impl Into<String>) -> Plot<'a> {
+    let hints = AxisHints::new_x()
+        .label(title.into())
+        .formatter(|mark, _| label(mark))
+        .label_spacing(LABEL_FADE_PX.0..=LABEL_FADE_PX.1);
+    plot.custom_x_axes(vec![hints])
+        .x_grid_spacer(marks)
+        .grid_spacing(GRID_MIN_PX..=300.0)
 }
 
 /// The labelled step for an axis of `units_per_px`: the smallest 1, 2, 2.5 or 5 × 10^k whose

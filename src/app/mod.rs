@@ -630,9 +630,12 @@ impl PollardApp {
             .min_size(160.0)
             .show(ui, |ui| match &self.state {
                 Some(s) => {
+                    // at most 40 % of the width, so the three plots beside it keep theirs
+                    let most = 0.4 * ui.available_width();
                     egui::Panel::right("traces")
                         .resizable(true)
-                        .default_size(430.0)
+                        .default_size(430.0f32.min(most))
+                        .max_size(most)
                         .show(ui, |ui| self.traces.ui(ui, s));
                     self.plots.ui(ui, s);
                 }

@@ -7,7 +7,7 @@ use super::state::{CellState, ColourBy, LogUnit};
 use crate::cable::Params;
 use crate::morphology::kind_name;
 use eframe::egui::{self, Color32};
-use egui_plot::{AxisHints, Legend, Line, Plot, Points, VLine};
+use egui_plot::{Legend, Line, Plot, Points, VLine};
 use std::path::PathBuf;
 
 /// Something the user asked for; the app applies it after drawing.
@@ -443,15 +443,9 @@ impl PlotsPanel {
             v.into_iter().map(|[d, y]| [d / unit.um(), y]).collect()
         };
         let (thinned, red) = (to_axis(thinned), to_axis(red));
-        let x_axis = AxisHints::new_x()
-            .label(unit.title())
-            .formatter(|mark, _| axis::label(mark))
-            .label_spacing(axis::LABEL_FADE_PX.0..=axis::LABEL_FADE_PX.1);
-        Plot::new("attenuation")
-            .legend(Legend::default().position(egui_plot::Corner::RightBottom))
-            .custom_x_axes(vec![x_axis])
-            .x_grid_spacer(axis::marks)
-            .grid_spacing(axis::GRID_MIN_PX..=300.0)
+        let plot = Plot::new("attenuation")
+            .legend(Legend::default().position(egui_plot::Corner::RightBottom));
+        axis::readable_x(plot, unit.title())
             .y_axis_label(s.unit.suffix())
             .show(ui, |pu| {
                 pu.points(
@@ -484,9 +478,8 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
                 .map(|(b, e)| [b as f64, e])
                 .collect();
             let current = s.reduced.as_ref().map(|t| t.tree.len()).unwrap_or(s.budget);
-            Plot::new("error")
-                .legend(Legend::default())
-                .x_axis_label("compartments")
+            let plot = Plot::new("error").legend(Legend::default());
+            axis::readable_x(plot, "compartments")
                 .y_axis_label("DC attenuation error, RMS (Np)")
                 .show(ui, |pu| {
                     pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
@@ -505,8 +498,7 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
 fn sholl_plot(ui: &mut egui::Ui, s: &CellState) {
     ui.label("Sholl profile").on_hover_text(super::terms::SHOLL);
     let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
-    Plot::new("sholl")
-        .x_axis_label("distance from the soma centre (µm)")
+    axis::readable_x(Plot::new("sholl"), "distance from the soma centre (µm)")
         .y_axis_label(format!("crossings, every {} µm", s.cell.sholl_step))
         .show(ui, |pu| {
             pu.line(Line::new("crossings", pts).color(Color32::from_rgb(110, 215, 140)));
