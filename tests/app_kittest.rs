@@ -1,5 +1,5 @@
 //! The desktop app driven through its real state and widgets (egui_kittest, no rendering): open
-//! cells, click a site, move the sliders, save files to a temporary folder.
+//! cells, click an injection point, move the sliders, save files to a temporary folder.
 #![cfg(feature = "gui")]
 
 use eframe::egui::{self, Pos2, Vec2};
@@ -58,7 +58,7 @@ fn opens_on_the_demo_cell_and_draws_both_canvases() {
         "demo cell has {} points",
         s.cell.morph.len()
     );
-    assert!(s.site.is_some(), "a default site is chosen");
+    assert!(s.site.is_some(), "a default injection point is chosen");
     assert!(app.left.tessellations >= 1);
     h.get_by_label("Original arbor");
     h.get_by_label("Reduced tree");
@@ -80,14 +80,14 @@ fn opening_a_sample_from_the_menu_replaces_the_cell() {
 }
 
 #[test]
-fn clicking_a_point_makes_it_the_site_and_recolours_without_retessellating() {
+fn clicking_a_point_makes_it_the_injection_point_and_recolours_without_retessellating() {
     let mut h = harness(app_with(vec![]));
     settle(&mut h);
     let (target, p, tess_before, colour_before) = {
         let app = h.state();
         let s = app.state.as_ref().unwrap();
         let old = s.site.unwrap();
-        // a point well inside the canvas, not the current site
+        // a point well inside the canvas, not the current injection point
         let rect = app.left.last_rect;
         let k = (1..s.cell.flat.len())
             .rev()
@@ -110,12 +110,12 @@ fn clicking_a_point_makes_it_the_site_and_recolours_without_retessellating() {
     h.run_steps(1);
     let app = h.state();
     let s = app.state.as_ref().unwrap();
-    let site = s.site.expect("site set");
-    // the nearest drawn point to the click is the site
+    let site = s.site.expect("injection point set");
+    // the nearest drawn point to the click is the injection point
     let q = app.left.screen_of(site).unwrap();
     assert!(q.distance(p) <= app.left.screen_of(target).unwrap().distance(p) + 1e-3);
     assert!(s.colour_version > colour_before);
-    // the voltage ratio is 1 (0 dB) at the site and below 1 everywhere else (passive cable)
+    // the voltage ratio is 1 (0 dB) at the injection point and below 1 everywhere else (passive cable)
     let m = s.model.of_full[site] as usize;
     assert!(s.ln_from_site[m].abs() < 1e-9);
     assert!(s.ln_from_site.iter().all(|v| *v <= 1e-9));
@@ -139,7 +139,7 @@ fn frequency_slider_changes_the_maps() {
     settle(&mut h);
     let s = h.state().state.as_ref().unwrap();
     assert!((s.freq_hz - 200.0).abs() < 1.0, "{}", s.freq_hz);
-    // a passive cable filters: the soma sees less of the site's voltage at 200 Hz than at DC
+    // a passive cable filters: the soma sees less of the injection point's voltage at 200 Hz than at DC
     // (Koch 1999 ch. 3, common knowledge)
     assert!(
         s.ln_from_site[0] < dc_soma,
@@ -434,7 +434,7 @@ fn dropping_a_file_on_the_window_opens_it() {
 }
 
 #[test]
-fn start_options_set_budget_site_frequency_colouring_and_layout() {
+fn start_options_set_budget_injection_point_frequency_colouring_and_layout() {
     let dir = tempfile::tempdir().unwrap();
     let f = dir.path().join("y.swc");
     std::fs::write(
@@ -449,7 +449,7 @@ fn start_options_set_budget_site_frequency_colouring_and_layout() {
     );
     app.start_options = Some(pollard::app::StartOptions {
         budget: Some(3),
-        site_id: Some(4),
+        injection_point_id: Some(4),
         freq_hz: Some(50.0),
         colour_by: Some(pollard::app::state::ColourBy::ToSoma),
         dendrogram: true,
@@ -501,7 +501,7 @@ fn view_file_loads_only_that_file_and_falls_back_to_the_demo_on_failure() {
     );
 }
 
-/// The site's morphology point, the budget, and the soma traces (full cell, reduced tree) shown.
+/// The injection point's morphology point, the budget, and the soma traces (full cell, reduced tree) shown.
 fn shown_traces(h: &Harness<'static, PollardApp>) -> (u32, usize, Vec<f64>, Vec<f64>) {
     let sh = h.state().traces.shown.as_ref().expect("traces are shown");
     (
@@ -547,12 +547,12 @@ fn response_traces_follow_the_click_and_the_budget() {
     let (a, b) = (peak(&red0), peak(&red1));
     assert!((a / b).ln().abs() > 1e-3, "reduced peaks {a} vs {b} mV");
 
-    // a click on another point: the traces are that site's
+    // a click on another point: the traces are that injection point's
     let p = {
         let app = h.state();
         let s = app.state.as_ref().unwrap();
         let rect = app.left.last_rect.shrink(30.0);
-        // the visible point nearest the soma (the old site is the farthest tip)
+        // the visible point nearest the soma (the old injection point is the farthest tip)
         let k = (1..s.cell.flat.len())
             .filter(|&k| s.model.of_full[k] != pollard::morphology::NONE)
             .filter(|&k| app.left.screen_of(k).is_some_and(|q| rect.contains(q)))

@@ -44,8 +44,8 @@ pub enum Start {
 #[derive(Debug, Clone, Default)]
 pub struct StartOptions {
     pub budget: Option<usize>,
-    /// SWC id of the synapse site.
-    pub site_id: Option<i64>,
+    /// SWC id of the injection point (`pollard view --injection-point`).
+    pub injection_point_id: Option<i64>,
     pub freq_hz: Option<f64>,
     pub colour_by: Option<state::ColourBy>,
     pub dendrogram: bool,
@@ -379,7 +379,7 @@ impl PollardApp {
             s.colour_by = c;
             s.colour_version += 1;
         }
-        if let Some(id) = o.site_id {
+        if let Some(id) = o.injection_point_id {
             let node = s
                 .cell
                 .morph
@@ -567,7 +567,7 @@ impl PollardApp {
         }
     }
 
-    /// Sets the synapse site (a whole-tree node), as a click on the original does.
+    /// Sets the injection point (a whole-tree node), as a click on the original does.
     pub fn click_site(&mut self, node: usize) {
         if let Some(s) = &mut self.state {
             s.set_site(Some(node));

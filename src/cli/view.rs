@@ -64,7 +64,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     use pollard::app::state::ColourBy as C;
     let opts = pollard::app::StartOptions {
         budget: a.compartments,
-        site_id: a.injection_point,
+        injection_point_id: a.injection_point,
         freq_hz: a.freq,
         colour_by: a.colour_by.map(|c| match c {
             ColourBy::FromInjectionPoint => C::FromSite,
