@@ -258,7 +258,11 @@ fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::
             "  warning: the junction links change the input resistance by more than 0.1 %; pass a smaller --junction-fraction"
         )?;
     }
-    writeln!(w, "  slowest time constant: τ = {} ms", r.tau_ms)?;
+    writeln!(
+        w,
+        "  slowest time constant: {:.2} ms (the cell's: Rm·Cm = {} ms)",
+        r.slowest_time_constant_ms, r.tau_ms
+    )?;
     let s = &r.ln_attenuation_error;
     writeln!(
         w,

@@ -145,18 +145,21 @@ fn leaf_targets(
             if p == NONE { 0.0 } else { a[p as usize] }
         })
         .collect();
-    let mut acc = vec![Moments::default(); leaves.len()];
+    // plain weighted sums (Σw, Σw·lnA): no division per site, so the pass is memory-bound
+    let lna: Vec<f64> = site_leaf.iter().map(|&(_, x, _)| a[x as usize]).collect();
+    let mut acc = vec![(0.0, 0.0); leaves.len()];
     for _ in 0..6 {
-        acc.iter_mut().for_each(|m| *m = Moments::default());
-        for &(i, x, w) in site_leaf {
-            let (i, xa) = (i as usize, a[x as usize]);
+        acc.iter_mut().for_each(|m| *m = (0.0, 0.0));
+        for (&(i, _, w), &xa) in site_leaf.iter().zip(&lna) {
+            let i = i as usize;
             if (xa - t[i]).abs() < (xa - parent_level[i]).abs() {
-                acc[i].add(w, xa);
+                acc[i].0 += w;
+                acc[i].1 += w * xa;
             }
         }
-        for (ti, m) in t.iter_mut().zip(&acc) {
-            if m.w > 0.0 {
-                *ti = m.mean;
+        for (ti, &(w, wx)) in t.iter_mut().zip(&acc) {
+            if w > 0.0 {
+                *ti = wx / w;
             }
         }
     }
@@ -232,7 +235,8 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
 
 /// For every fine node, the compartment that serves it: of the two ends of the reduced link its
 /// path hangs from (below a leaf: the leaf and its parent), the one whose DC log attenuation to
-/// the soma is closest to the node's own.
+/// the soma is closest to the node's own. `dynamics` holds, per fine node, its complex log
+/// transfer to the soma at the serving frequencies.
 fn serving(
     fine: &Fine,
     kept: &[bool],
@@ -240,17 +244,18 @@ fn serving(
     (has, kept_child, top): (&[bool], &[u32], &[u32]),
     out: &Kept,
 ) -> Vec<u32> {
+    use rayon::prelude::*;
     let n = fine.len();
     let a = &fine.ln_att;
     // distance between two nodes: DC log attenuation to the soma (Np) plus the difference of
     // their transfer impedances to the soma (complex log) at the frequencies of a synaptic
     // potential, so a node is served by the end whose response at the soma is most like its own
     let score = |x: usize, c: usize| -> f64 {
-        let (fx, fc) = (fine.flat_node[x] as usize, fine.flat_node[c] as usize);
         (a[x] - a[c]).abs()
             + dynamics
                 .iter()
-                .map(|lz| (lz[fx] - lz[fc]).norm())
+                // |Δ| as √(re² + im²): these are logs, far from overflow, and hypot is slow
+                .map(|lz| (lz[x] - lz[c]).norm_sqr().sqrt())
                 .sum::<f64>()
     };
     // lower end of the path through each node that leads to a kept node
@@ -264,32 +269,41 @@ fn serving(
     }
     // attachment: the nearest ancestor-or-self on a path to a kept node
     let mut att = vec![NONE; n];
-    let mut serves = vec![NONE; n];
     for k in 0..n {
         att[k] = if has[k] {
             k as u32
         } else {
             att[fine.parent[k] as usize]
         };
-        let h = att[k] as usize;
-        let (u, l) = if kept[h] {
-            if h == k {
-                (h, h)
-            } else {
-                // below a leaf: the leaf or its parent
-                let pc = out.parent[out.comp[h] as usize];
-                let up = if pc == NONE {
-                    h
-                } else {
-                    out.node[pc as usize] as usize
-                };
-                (up, h)
-            }
-        } else {
-            (top[h] as usize, lower[h] as usize)
-        };
-        let pick = if score(k, u) <= score(k, l) { u } else { l };
-        serves[k] = out.comp[pick];
     }
-    serves
+    // the choice itself is independent per node: in parallel
+    (0..n)
+        .into_par_iter()
+        .with_min_len(4096)
+        .map(|k| {
+            let h = att[k] as usize;
+            let (u, l) = if kept[h] {
+                if h == k {
+                    (h, h)
+                } else {
+                    // below a leaf: the leaf or its parent
+                    let pc = out.parent[out.comp[h] as usize];
+                    let up = if pc == NONE {
+                        h
+                    } else {
+                        out.node[pc as usize] as usize
+                    };
+                    (up, h)
+                }
+            } else {
+                (top[h] as usize, lower[h] as usize)
+            };
+            let pick = if u == l || score(k, u) <= score(k, l) {
+                u
+            } else {
+                l
+            };
+            out.comp[pick]
+        })
+        .collect()
 }

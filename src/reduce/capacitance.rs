@@ -15,6 +15,7 @@
 
 use super::Reducer;
 use super::build::Kept;
+use super::tree::slowest_mode;
 use crate::cable::C64;
 use crate::cable::solve::TreeFactor;
 
@@ -37,6 +38,16 @@ const RIDGE: f64 = 0.02;
 
 /// Rise time of the synaptic current whose spectrum weights the frequencies (s).
 const SYNAPSE_TAU_S: f64 = 0.5e-3;
+
+/// Weight of the slowest-mode constraint, relative to the soma's weight in the fit.
+const SLOW_WEIGHT: f64 = 100.0;
+
+/// Tolerance band (relative) around τ = Rm·Cm left free for the slowest mode.
+const SLOW_BAND: f64 = 0.02;
+
+/// Inverse-iteration steps for the slowest mode (RC trees separate τ₀ from τ₁ by a factor
+/// of several, so the error shrinks by that factor per step).
+const SLOW_STEPS: usize = 24;
 
 /// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
 /// along the path from the soma (ln Z_k0 = ln Z_00 + Σ ln(g/(g + D)) over the path).
@@ -62,8 +73,14 @@ fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64]) {
         *first = -f.root_admittance().ln();
     }
     for k in 1..lz.len() {
-        lz[k] = lz[f.parent()[k] as usize] + f.down()[k].ln();
+        lz[k] = lz[f.parent()[k] as usize] + fast_ln(f.down()[k]);
     }
+}
+
+/// ln z = ½·ln|z|² + j·arg z, without the overflow guard of hypot (a voltage ratio g/(g + D)
+/// has 0 < |z| ≤ 1, far from the limits of f64 squares).
+fn fast_ln(z: C64) -> C64 {
+    C64::new(0.5 * z.norm_sqr().ln(), z.im.atan2(z.re))
 }
 
 /// The fitting problem of one reduced tree.
@@ -77,6 +94,9 @@ struct Problem<'a> {
     /// Per frequency, per compartment: target ln Z_0c and weight.
     target: Vec<Vec<C64>>,
     weight: Vec<Vec<f64>>,
+    /// The membrane time constant Rm·Cm (s) and the weight holding the slowest mode to it.
+    tau_s: f64,
+    slow_weight: f64,
 }
 
 impl Problem<'_> {
@@ -112,7 +132,26 @@ impl Problem<'_> {
                 grad[k] += 2.0 * dj.re;
             }
         }
-        total
+        total + self.slow_penalty(theta, grad)
+    }
+
+    /// Holds the slowest time constant within SLOW_BAND of Rm·Cm, the full cell's own τ₀
+    /// (Rall 1969): a quadratic penalty on ln(λτ) outside the band; its gradient from the
+    /// eigenvalue's first-order perturbation, ∂λ/∂C_k = −λ·x_k² / xᵀCx.
+    fn slow_penalty(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
+        let n = self.parent.len();
+        let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
+        let (lam, x, xcx) = slowest_mode(self.parent, self.g, self.leak, &cap, SLOW_STEPS, 0.0);
+        let d = (lam * self.tau_s).ln();
+        let band = SLOW_BAND.ln_1p();
+        let excess = d.signum() * (d.abs() - band).max(0.0);
+        if excess == 0.0 || !excess.is_finite() {
+            return 0.0;
+        }
+        for k in 0..n {
+            grad[k] += 2.0 * self.slow_weight * excess * (-x[k] * x[k] * cap[k] / xcx);
+        }
+        self.slow_weight * excess * excess
     }
 }
 
@@ -176,9 +215,11 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         ridge: RIDGE * total_w.max(1e-30) / n as f64,
         target,
         weight,
+        tau_s,
+        slow_weight: SLOW_WEIGHT * SOMA_WEIGHT * total_w.max(1e-30),
     };
-    // iterations shrink with the tree so any budget stays quick (200 up to 63 compartments)
-    let iters = (200 * 63 / n).clamp(30, 200);
+    // iterations shrink with the tree so any budget stays quick (200 up to 31 compartments)
+    let iters = (200 * 31 / n).clamp(30, 200);
     let theta = lbfgs(&prob, n, iters);
     let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
@@ -189,7 +230,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
 }
 
 /// Limited-memory BFGS with a backtracking (Armijo) line search (Nocedal 1980; Nocedal & Wright
-/// 2006, Algorithm 7.4), from θ = 0, with θ kept in [−4, 4] (C within e^±4 of τG).
+/// 2006, Algorithm 7.4), from θ = 0, with θ kept in [−8, 8] (C within e^±8 of τG).
 fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
     const M: usize = 8;
     let clamp = |v: &mut [f64]| v.iter_mut().for_each(|x| *x = x.clamp(-8.0, 8.0));
@@ -262,7 +303,7 @@ fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
             s_hist.push(s);
             y_hist.push(y);
         }
-        let done = (f - fnew) <= 1e-9 * f0;
+        let done = (f - fnew) <= 1e-7 * f0;
         x.copy_from_slice(&xn);
         g.copy_from_slice(&gn);
         f = fnew;

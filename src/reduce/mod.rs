@@ -314,11 +314,15 @@ pub struct Report {
     pub freq_hz: f64,
     /// |Z_in| of the soma at `freq_hz`, full kept cell (MΩ).
     pub soma_input_impedance_full_mohm: f64,
-    /// |Z_in| of the soma at `freq_hz`, reduced tree with C = τ·G (MΩ).
+    /// |Z_in| of the soma at `freq_hz`, reduced tree with its capacitances (MΩ).
     pub soma_input_impedance_reduced_mohm: f64,
     /// |Z_red − Z_full|/|Z_full| at `freq_hz` (complex difference).
     pub soma_input_impedance_relative_error: f64,
+    /// The membrane time constant Rm·Cm, the full cell's slowest (ms).
     pub tau_ms: f64,
+    /// The reduced tree's slowest time constant (ms): Rm·Cm exactly with uniform capacitances,
+    /// held within 2–5 % of it by the fitted ones.
+    pub slowest_time_constant_ms: f64,
     pub sites: usize,
     /// |ln A_site(full) − ln A_compartment(reduced)| over the sites, DC (nepers).
     #[serde(rename = "attenuation_to_soma_error_np")]
@@ -350,6 +354,8 @@ pub struct Reducer {
     z_full_freq: OnceLock<Result<C64, CableError>>,
     /// The full cell's ln Z_0k at the capacitance fit's frequencies, computed once.
     full_lz: OnceLock<Vec<Vec<C64>>>,
+    /// `full_lz` at the serving frequencies, indexed by fine node.
+    serve_lz: OnceLock<Vec<Vec<C64>>>,
 }
 
 /// Checks the options and parameters once.
@@ -487,6 +493,7 @@ impl Reducer {
             points_left_out,
             z_full_freq: OnceLock::new(),
             full_lz: OnceLock::new(),
+            serve_lz: OnceLock::new(),
         })
     }
     /// Compartments of the maximal tree (odd; 2·tips − 1 plus one for a single-stem soma).
@@ -564,10 +571,10 @@ impl Reducer {
                 keep[if leaf[k] { place[k] as usize } else { k }] = true;
             }
         }
-        let lz = self.full_log_transfer();
-        let dynamics: Vec<&[C64]> = capacitance::SERVE_HZ_INDEX
+        let dynamics: Vec<&[C64]> = self
+            .serve_log_transfer()
             .iter()
-            .filter_map(|&i| lz.get(i).map(Vec::as_slice))
+            .map(Vec::as_slice)
             .collect();
         let kron = build::kron(fine, &keep, &dynamics);
         let m = kron.node.len();
@@ -641,6 +648,20 @@ impl Reducer {
             .get_or_init(|| capacitance::full_log_transfer(self))
     }
 
+    /// The full cell's complex log transfer to the soma at the serving frequencies, per fine
+    /// node (junctions take their point's), computed once.
+    fn serve_log_transfer(&self) -> &[Vec<C64>] {
+        self.serve_lz.get_or_init(|| {
+            let lz = self.full_log_transfer();
+            capacitance::SERVE_HZ_INDEX
+                .iter()
+                .filter_map(|&i| lz.get(i))
+                .filter(|v| !v.is_empty())
+                .map(|v| self.fine.flat_node.iter().map(|&k| v[k as usize]).collect())
+                .collect()
+        })
+    }
+
     /// Soma input impedance of the full kept cell at the options' frequency (Ω), computed once.
     pub fn full_input_impedance_at_freq(&self) -> Result<C64, ReduceError> {
         self.z_full_freq
@@ -696,6 +717,7 @@ impl Reducer {
             soma_input_impedance_reduced_mohm: z_red.norm() / 1e6,
             soma_input_impedance_relative_error: (z_red - z_full).norm() / z_full.norm(),
             tau_ms: self.params.tau_ms(),
+            slowest_time_constant_ms: tree.slowest_time_constant_ms(),
             sites: self.sites.len(),
             ln_attenuation_error: Stats {
                 median: q(0.5),
