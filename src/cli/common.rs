@@ -7,7 +7,7 @@ use pollard::cable::{Params, PrepOptions, prepare};
 use pollard::fidelity::FidelityOptions;
 use pollard::reduce::{ReduceOptions, Reducer, Sites, parse_sites_csv};
 use pollard::transient::PieceRule;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 /// Passive membrane and cytoplasm. Defaults Rm 20 000 Ω·cm², Ra 150 Ω·cm, Cm 1 µF/cm²: common
 /// practice, not from one source.
@@ -129,31 +129,45 @@ pub fn parse_type(s: &str) -> Result<i32, String> {
     })
 }
 
-/// Reads the cell, prepares it and builds the reducer (as `pollard reduce` does).
-pub fn reducer_for(
-    cell: &Path,
-    membrane: &MembraneArgs,
-    geometry: &GeometryArgs,
-    r: &ReduceArgs,
-) -> anyhow::Result<(Morphology, Reducer)> {
-    let params = membrane.params();
-    let name = cell.display().to_string();
-    let m = Morphology::read(cell)?;
-    let flat = prepare(&m, &geometry.prep()).with_context(|| name.clone())?;
-    let sites = match &r.sites {
-        None => Sites::Default,
-        Some(p) => {
-            let text = std::fs::read_to_string(p)
-                .with_context(|| format!("{}: cannot read the site list", p.display()))?;
-            Sites::List(parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?)
-        }
-    };
-    let opts = ReduceOptions {
-        types: r.types.clone(),
-        sites,
-        junction_length_fraction: r.junction_fraction,
-        ..ReduceOptions::default()
-    };
-    let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
-    Ok((m, reducer))
+/// The cell and what makes its reduction, for the commands that reduce on the way (fidelity,
+/// trace).
+#[derive(clap::Args, Debug, Clone)]
+pub struct ReducedCellArgs {
+    /// The SWC file to read.
+    pub cell: PathBuf,
+    #[command(flatten)]
+    pub membrane: MembraneArgs,
+    #[command(flatten)]
+    pub geometry: GeometryArgs,
+    #[command(flatten)]
+    pub reduce: ReduceArgs,
+}
+
+impl ReducedCellArgs {
+    /// Reads the cell, prepares it and builds the reducer (as `pollard reduce` does).
+    pub fn reducer(&self) -> anyhow::Result<(Morphology, Reducer)> {
+        let (cell, r) = (self.cell.as_path(), &self.reduce);
+        let params = self.membrane.params();
+        let name = cell.display().to_string();
+        let m = Morphology::read(cell)?;
+        let flat = prepare(&m, &self.geometry.prep()).with_context(|| name.clone())?;
+        let sites = match &r.sites {
+            None => Sites::Default,
+            Some(p) => {
+                let text = std::fs::read_to_string(p)
+                    .with_context(|| format!("{}: cannot read the site list", p.display()))?;
+                Sites::List(
+                    parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?,
+                )
+            }
+        };
+        let opts = ReduceOptions {
+            types: r.types.clone(),
+            sites,
+            junction_length_fraction: r.junction_fraction,
+            ..ReduceOptions::default()
+        };
+        let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
+        Ok((m, reducer))
+    }
 }

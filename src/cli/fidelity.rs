@@ -15,14 +15,8 @@ error |ln(reduced/full)| (Np) and the time-to-peak error |ttp_red - ttp_full|/tt
 DC log attenuation to the soma ln(Z_kk/Z_k0) and from the soma ln(Z_00/Z_0k), full and reduced.
 One simulation of each network (current at the soma) gives every site, by reciprocity.")]
 pub struct Args {
-    /// The SWC file to read.
-    pub cell: PathBuf,
     #[command(flatten)]
-    pub membrane: super::common::MembraneArgs,
-    #[command(flatten)]
-    pub geometry: super::common::GeometryArgs,
-    #[command(flatten)]
-    pub reduce: super::common::ReduceArgs,
+    pub from: super::common::ReducedCellArgs,
     #[command(flatten)]
     pub fidelity: super::common::FidelityArgs,
     /// Write the per-site table as CSV to this file.
@@ -48,14 +42,14 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     }
     let opts = a.fidelity.options();
     opts.validate()?;
-    let name = a.cell.display().to_string();
-    let (m, reducer) = super::common::reducer_for(&a.cell, &a.membrane, &a.geometry, &a.reduce)?;
-    let tree = reducer.tree(a.reduce.compartments);
+    let name = a.from.cell.display().to_string();
+    let (m, reducer) = a.from.reducer()?;
+    let tree = reducer.tree(a.from.reduce.compartments);
     let fid = Fidelity::new(&reducer, &opts)?;
     let (rows, _) = fid.sites(&tree, Some(&m))?;
     let summary = fid.report(&tree, Some(&m))?;
-    let mut inputs = vec![a.cell.as_path()];
-    if let Some(s) = &a.reduce.sites {
+    let mut inputs = vec![a.from.cell.as_path()];
+    if let Some(s) = &a.from.reduce.sites {
         inputs.push(s.as_path());
     }
     if let Some(p) = &a.csv {

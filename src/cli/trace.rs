@@ -17,14 +17,8 @@ Columns: time_ms, soma_full_mv, injection_point_full_mv, soma_reduced_mv,
 injection_point_reduced_mv (voltages relative to rest). Input: an alpha current (t/tau)e^(1-t/tau) by default, or with --synapse a conductance
 g(t)(E - V) whose g is a difference of exponentials peaking at --g-peak.")]
 pub struct Args {
-    /// The SWC file to read.
-    pub cell: PathBuf,
     #[command(flatten)]
-    pub membrane: super::common::MembraneArgs,
-    #[command(flatten)]
-    pub geometry: super::common::GeometryArgs,
-    #[command(flatten)]
-    pub reduce: super::common::ReduceArgs,
+    pub from: super::common::ReducedCellArgs,
     /// The injection point: an SWC id.
     #[arg(
         long = "injection-point",
@@ -166,8 +160,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if a.csv.is_none() && a.out.is_none() {
         anyhow::bail!("give --out FILE.json and/or --csv FILE.csv for the traces");
     }
-    let name = a.cell.display().to_string();
-    let (m, reducer) = super::common::reducer_for(&a.cell, &a.membrane, &a.geometry, &a.reduce)?;
+    let name = a.from.cell.display().to_string();
+    let (m, reducer) = a.from.reducer()?;
     let site = match (&a.injection_point, &a.at) {
         (Some(id), _) => SiteRef::SwcId(*id),
         (None, Some(p)) if p.len() == 3 && p.iter().all(|x| x.is_finite()) => {
@@ -177,7 +171,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         (None, None) => anyhow::bail!("give --injection-point ID or --at X,Y,Z"),
     };
     let point = resolve_site(&m, &reducer, site)?;
-    let tree = reducer.tree(a.reduce.compartments);
+    let tree = reducer.tree(a.from.reduce.compartments);
     let input = a.input.input();
     let opts = TraceOptions {
         duration_ms: a.duration,
@@ -189,7 +183,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let mut tr = response_traces(&reducer, &tree, point, &input, &opts)?;
     tr.swc_id = m.points.get(point as usize).map(|p| p.id);
-    let inputs = [a.cell.as_path()];
+    let inputs = [a.from.cell.as_path()];
     if let Some(p) = &a.csv {
         write_atomic(p, tr.to_csv().as_bytes(), &inputs)?;
     }
