@@ -83,6 +83,27 @@ fn fast_ln(z: C64) -> C64 {
     C64::new(0.5 * z.norm_sqr().ln(), z.im.atan2(z.re))
 }
 
+/// Per site, what the fit sums over the sites a compartment serves: at each fit frequency
+/// ln|Z_0s| and 1/φ_s (φ_s the phase lag, floored at 1e-6 rad), interleaved.
+pub(super) fn site_log_transfer(r: &Reducer) -> Vec<[f64; 2 * FIT_HZ.len()]> {
+    let full = r.full_log_transfer();
+    if full.iter().any(|v| v.len() != r.kept.len()) {
+        return Vec::new();
+    }
+    r.site_fine
+        .iter()
+        .map(|&(x, _)| {
+            let k = r.fine.flat_node[x as usize] as usize;
+            let mut out = [0.0; 2 * FIT_HZ.len()];
+            for (fi, lz) in full.iter().enumerate() {
+                out[2 * fi] = lz[k].re;
+                out[2 * fi + 1] = 1.0 / (-lz[k].im).max(1e-6);
+            }
+            out
+        })
+        .collect()
+}
+
 /// The fitting problem of one reduced tree.
 struct Problem<'a> {
     parent: &'a [u32],
@@ -168,18 +189,25 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         return c0;
     }
     let fine = &r.fine;
-    let mut target = vec![vec![C64::new(0.0, 0.0); n]; FIT_HZ.len()];
-    let mut wsum = vec![0.0; n];
     // phase lag targets are harmonic means (Σw / Σ(w/φ)): delays are judged relative to their
     // own size, so a compartment should not run late for the nearest of its sites
-    let mut inv_phase = vec![vec![0.0; n]; FIT_HZ.len()];
-    for (i, &(x, w)) in r.site_fine.iter().enumerate() {
-        let c = serves_site[i] as usize;
-        let k = fine.flat_node[x as usize] as usize;
+    let mut sums = vec![[0.0; 2 * FIT_HZ.len()]; n];
+    let mut wsum = vec![0.0; n];
+    for ((&c, &(_, w)), per) in serves_site
+        .iter()
+        .zip(&r.site_fine)
+        .zip(r.site_log_transfer())
+    {
+        let c = c as usize;
         wsum[c] += w;
-        for (fi, t) in target.iter_mut().enumerate() {
-            t[c] += w * full[fi][k];
-            inv_phase[fi][c] += w / (-full[fi][k].im).max(1e-6);
+        sums[c].iter_mut().zip(per).for_each(|(a, v)| *a += w * v);
+    }
+    let mut target = vec![vec![C64::new(0.0, 0.0); n]; FIT_HZ.len()];
+    let mut inv_phase = vec![vec![0.0; n]; FIT_HZ.len()];
+    for (c, sum) in sums.iter().enumerate() {
+        for fi in 0..FIT_HZ.len() {
+            target[fi][c].re = sum[2 * fi];
+            inv_phase[fi][c] = sum[2 * fi + 1];
         }
     }
     let total_w: f64 = wsum.iter().sum();

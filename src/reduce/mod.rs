@@ -356,6 +356,8 @@ pub struct Reducer {
     full_lz: OnceLock<Vec<Vec<C64>>>,
     /// `full_lz` at the serving frequencies, indexed by fine node.
     serve_lz: OnceLock<Vec<Vec<C64>>>,
+    /// Per site, what the capacitance fit sums (ln|Z| and 1/phase at each fit frequency).
+    site_lz: OnceLock<Vec<[f64; 2 * capacitance::FIT_HZ.len()]>>,
 }
 
 /// Checks the options and parameters once.
@@ -494,6 +496,7 @@ impl Reducer {
             z_full_freq: OnceLock::new(),
             full_lz: OnceLock::new(),
             serve_lz: OnceLock::new(),
+            site_lz: OnceLock::new(),
         })
     }
     /// Compartments of the maximal tree (odd; 2·tips − 1 plus one for a single-stem soma).
@@ -646,6 +649,13 @@ impl Reducer {
     fn full_log_transfer(&self) -> &[Vec<C64>] {
         self.full_lz
             .get_or_init(|| capacitance::full_log_transfer(self))
+    }
+
+    /// Per site, ln|Z| and 1/phase lag at the fit frequencies (see
+    /// `capacitance::site_log_transfer`), computed once.
+    fn site_log_transfer(&self) -> &[[f64; 2 * capacitance::FIT_HZ.len()]] {
+        self.site_lz
+            .get_or_init(|| capacitance::site_log_transfer(self))
     }
 
     /// The full cell's complex log transfer to the soma at the serving frequencies, per fine
