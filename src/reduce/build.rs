@@ -157,10 +157,15 @@ fn leaf_targets(
                 acc[i].1 += w * xa;
             }
         }
+        let mut moved = false;
         for (ti, &(w, wx)) in t.iter_mut().zip(&acc) {
-            if w > 0.0 {
+            if w > 0.0 && *ti != wx / w {
                 *ti = wx / w;
+                moved = true;
             }
+        }
+        if !moved {
+            break;
         }
     }
     t
