@@ -726,3 +726,92 @@ fn path_distance_axis_has_readable_ticks_on_a_large_cell_in_a_narrow_plot() {
         assert_eq!(distance_axis(&h).0, "path distance from the soma (µm)");
     }
 }
+
+/// The traces plot's y-axis title and tick labels (the numbers left of its frame: inside the
+/// traces panel, below its title, above the time axis's tick line).
+fn traces_y_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<String>) {
+    let texts = painted_texts(h);
+    let find = |prefix: &str| {
+        texts
+            .iter()
+            .find(|(t, _)| t.starts_with(prefix))
+            .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
+            .clone()
+    };
+    let (_, panel) = find("Soma voltage for a brief");
+    let (_, time) = find("time (ms)");
+    let numeric = |t: &str| t.replace('\u{2212}', "-").parse::<f64>().is_ok();
+    let in_panel: Vec<&(String, egui::Rect)> = texts
+        .iter()
+        .filter(|(t, r)| numeric(t) && r.left() >= panel.left() - 2.0 && r.top() > panel.bottom())
+        .filter(|(_, r)| r.bottom() <= time.top() + 1.0)
+        .collect();
+    // the time axis's labels are the lowest line; the y axis's sit above it
+    let x_line = in_panel
+        .iter()
+        .map(|(_, r)| r.top())
+        .fold(f32::NEG_INFINITY, f32::max);
+    let labels = in_panel
+        .iter()
+        .filter(|(_, r)| (r.top() - x_line).abs() > 0.5)
+        .map(|(t, _)| t.clone())
+        .collect();
+    let title = texts
+        .iter()
+        .find(|(t, _)| t.contains("above rest"))
+        .map(|(t, _)| t.clone())
+        .unwrap_or_default();
+    (title, labels)
+}
+
+#[test]
+fn traces_on_a_large_cell_have_short_labels_and_no_peak_error_for_a_rising_trace() {
+    // On this cell the default injection point is a far tip (−110 dB to the soma): the soma's
+    // response is about 0.7 nV and peaks after 70 ms. The panel ran 40 ms, quoted a peak error of
+    // +305 % for two traces still rising at 40 ms, and labelled its y axis in mV ("0.0000007").
+    let dir = tempfile::tempdir().unwrap();
+    let h = open_synthetic(dir.path(), 100_000, Vec2::new(1280.0, 800.0));
+    let (title, labels) = traces_y_axis(&h);
+    let unit = ["mV", "µV", "nV", "pV"]
+        .into_iter()
+        .find(|u| title.ends_with(&format!("({u})")))
+        .unwrap_or_else(|| panic!("the voltage axis names no unit: {title:?}"));
+    assert!(labels.len() >= 3, "{title}: {labels:?}");
+    for l in &labels {
+        assert!(l.chars().count() <= 4, "{title}: label {l:?} of {labels:?}");
+    }
+    let sh = h.state().traces.shown.as_ref().expect("traces are shown");
+    let (v, t) = sh.full.soma_peak();
+    assert!(v > 0.0 && v < 1e-3, "soma peak {v} mV, shown in {unit}");
+    // the run lasts until both have peaked, and then the error is quoted
+    assert!(
+        sh.full.soma_peaked() && sh.reduced.soma_peaked(),
+        "cell peak at {t} ms"
+    );
+    assert!(
+        t > 40.0 && t < sh.full.end_ms(),
+        "{t} ms, run {} ms",
+        sh.full.end_ms()
+    );
+    assert!(sh.peak_error_np().is_some_and(f64::is_finite));
+    h.get_by_label_contains("peak: reduced");
+
+    // a run cut short (10 ms): no peak error, a plain note instead
+    let f = dir.path().join("synth100000.swc");
+    let mut app = PollardApp::new(
+        Start::File(f),
+        Dialogs::scripted(vec![]),
+        RecentFiles::in_memory(),
+    );
+    app.traces.opts.duration_ms = 10.0;
+    app.wait_idle();
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .with_max_steps(200)
+        .build_ui_state(|ui, app: &mut PollardApp| app.show(ui), app);
+    settle(&mut h);
+    let sh = h.state().traces.shown.as_ref().expect("traces are shown");
+    assert!(!sh.full.soma_peaked() && sh.peak_error_np().is_none());
+    assert!(h.query_by_label_contains("peak: reduced").is_none());
+    h.get_by_label_contains("no peak to compare: both soma traces are still rising at 10 ms");
+}

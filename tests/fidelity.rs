@@ -3,7 +3,9 @@
 //! filter, and the options' checks.
 
 use pollard::cable::Params;
-use pollard::fidelity::{Fidelity, FidelityOptions, percent};
+use pollard::fidelity::{
+    Fidelity, FidelityOptions, Input, TraceOptions, UntilPeaked, percent, reduced_tree_traces,
+};
 use pollard::morphology::Morphology;
 use pollard::reduce::{ReduceOptions, Reducer};
 use pollard::transient::{
@@ -120,6 +122,73 @@ fn one_compartment_tree_follows_the_rc_closed_form() {
     let r = fid.report(&tree, None).unwrap();
     assert!(r.soma_epsp_peak_error_np > 0.01, "{r:?}");
     assert!((r.soma_epsp_peak_error_percent - percent(r.soma_epsp_peak_error_np)).abs() < 1e-12);
+}
+
+#[test]
+fn traces_until_peaked_end_after_the_soma_peak_of_the_rc_closed_form() {
+    // Budget 1: the one compartment's EPSP V = K·(e^(−at)(t/s − 1/s²) + e^(−bt)/s²) as above
+    // (first-order ODE by hand, no source) peaks at t* where I(t*) = G·V(t*), a few ms in.
+    let m = sample("pyramidal");
+    let red = Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
+    let tree = red.tree(1);
+    let (g, c) = (
+        tree.compartments[0].g_leak_ns,
+        tree.compartments[0].capacitance_pf,
+    );
+    let (tau_a, peak_pa) = (0.5, 10.0);
+    let (a, b) = (1.0 / tau_a, g / c);
+    let s = b - a;
+    let k = peak_pa * std::f64::consts::E * a / c;
+    let v = |t: f64| k * ((-a * t).exp() * (t / s - 1.0 / (s * s)) + (-b * t).exp() / (s * s));
+    let slope = |t: f64| peak_pa * (t * a) * (1.0 - t * a).exp() - g * v(t);
+    let (mut lo, mut hi) = (tau_a, 100.0);
+    for _ in 0..100 {
+        let mid = 0.5 * (lo + hi);
+        if slope(mid) > 0.0 { lo = mid } else { hi = mid }
+    }
+    let t_star = 0.5 * (lo + hi);
+    assert!(t_star > 1.0 && t_star < 20.0, "{t_star}");
+    let input = Input::Current {
+        waveform: Waveform::Alpha {
+            tau_ms: tau_a,
+            peak_pa,
+        },
+    };
+    let point = red.kept_flat().node_point[0];
+    let run = |o: &TraceOptions| reduced_tree_traces(&tree, point, &input, o).unwrap().1;
+    // a fixed window that ends before t*: still rising, no peak
+    let short = run(&TraceOptions {
+        duration_ms: 0.5 * t_star,
+        ..TraceOptions::default()
+    });
+    assert!(!short.soma_peaked(), "{:?}", short.soma_peak());
+    // until peaked: 500 ms at most, 40 ms at least, the step growing from 10τa on
+    let o = TraceOptions {
+        duration_ms: 500.0,
+        until_peaked: Some(UntilPeaked {
+            min_ms: 40.0,
+            grow_after_ms: 10.0 * tau_a,
+        }),
+        ..TraceOptions::default()
+    };
+    let long = run(&o);
+    assert!(long.soma_peaked());
+    let (vp, tp) = long.soma_peak();
+    // the largest sample at dt = 0.025 ms: within a step of t*, and within 2e-3 (Crank–Nicolson)
+    assert!(
+        (vp - v(t_star)).abs() < 2e-3 * v(t_star),
+        "{vp} {}",
+        v(t_star)
+    );
+    assert!((tp - t_star).abs() <= o.dt_ms, "{tp} {t_star}");
+    // it ends at the first step past 40 ms (the step there is at most 2 % of t), with far
+    // fewer samples than a fixed step would take
+    assert!(
+        long.end_ms() >= 40.0 && long.end_ms() < 41.0,
+        "{}",
+        long.end_ms()
+    );
+    assert!(long.times_ms.len() < 600, "{}", long.times_ms.len());
 }
 
 #[test]

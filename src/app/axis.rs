@@ -1,12 +1,14 @@
-//! The x axes of the cell view's three narrow plots (about 150 px each): ticks that keep their
-//! labels at any cell size, and the path-distance axis's unit. egui_plot's default ticks are
+//! The axes of the cell view's plots: the three narrow plots' x axes (about 150 px each) and the
+//! traces' axes keep their labels at any cell size; the path-distance and voltage axes' units. egui_plot's default ticks are
 //! powers of ten and hide every label closer than 60 px, which left only "0" under a cell
 //! 2,000 µm deep (and under its 4,000-compartment error curve).
 //!
 //! Here the labelled step is the smallest 1, 2, 2.5 or 5 × 10^k that keeps labels [`LABEL_PX`]
 //! apart (common practice for axis ticks, no source), four unlabelled grid lines split each
 //! step, and the path distance is in µm up to 1,000 µm and in mm beyond (labels stay within four
-//! characters).
+//! characters). A voltage is in the largest of mV, µV, nV, pV in which its peak is at least 1
+//! (a far injection point's soma response on a large cell is a fraction of a µV, which in mV
+//! needed labels of nine characters).
 
 use egui_plot::{AxisHints, GridInput, GridMark, Plot};
 
@@ -53,16 +55,82 @@ impl DistanceUnit {
     }
 }
 
+/// The unit of a voltage axis.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum VoltageUnit {
+    Millivolt,
+    Microvolt,
+    Nanovolt,
+    Picovolt,
+}
+
+impl VoltageUnit {
+    /// The largest unit in which `peak_mv` (the largest |V| shown, mV) is at least 1; mV for 0
+    /// or anything not finite, pV below 1 nV.
+    pub fn for_peak(peak_mv: f64) -> VoltageUnit {
+        let p = peak_mv.abs();
+        if !(p.is_finite() && p > 0.0) || p >= 1.0 {
+            VoltageUnit::Millivolt
+        } else if p >= 1e-3 {
+            VoltageUnit::Microvolt
+        } else if p >= 1e-6 {
+            VoltageUnit::Nanovolt
+        } else {
+            VoltageUnit::Picovolt
+        }
+    }
+
+    /// How many of this unit one mV is.
+    pub fn per_mv(self) -> f64 {
+        match self {
+            VoltageUnit::Millivolt => 1.0,
+            VoltageUnit::Microvolt => 1e3,
+            VoltageUnit::Nanovolt => 1e6,
+            VoltageUnit::Picovolt => 1e9,
+        }
+    }
+
+    pub fn symbol(self) -> &'static str {
+        match self {
+            VoltageUnit::Millivolt => "mV",
+            VoltageUnit::Microvolt => "µV",
+            VoltageUnit::Nanovolt => "nV",
+            VoltageUnit::Picovolt => "pV",
+        }
+    }
+
+    /// `mv` in this unit with three significant digits (up to 999) and the symbol.
+    pub fn show(self, mv: f64) -> String {
+        let x = mv * self.per_mv();
+        let digits = match x.abs() {
+            a if a < 10.0 => 2,
+            a if a < 100.0 => 1,
+            _ => 0,
+        };
+        format!("{x:.digits$} {}", self.symbol()).replace('-', "\u{2212}")
+    }
+}
+
 /// `plot` with an x axis titled `title` that keeps its labels in a narrow plot ([`marks`],
 /// [`label`]).
 pub fn readable_x<'a>(plot: Plot<'a>, title: impl Into<String>) -> Plot<'a> {
-    let hints = AxisHints::new_x()
-        .label(title.into())
-        .formatter(|mark, _| label(mark))
-        .label_spacing(LABEL_FADE_PX.0..=LABEL_FADE_PX.1);
-    plot.custom_x_axes(vec![hints])
+    plot.custom_x_axes(vec![readable(AxisHints::new_x(), title.into())])
         .x_grid_spacer(marks)
         .grid_spacing(GRID_MIN_PX..=300.0)
+}
+
+/// `plot` with a y axis titled `title` whose labels are [`readable_x`]'s ([`marks`], [`label`]).
+pub fn readable_y<'a>(plot: Plot<'a>, title: impl Into<String>) -> Plot<'a> {
+    plot.custom_y_axes(vec![readable(AxisHints::new_y(), title.into())])
+        .y_grid_spacer(marks)
+        .grid_spacing(GRID_MIN_PX..=300.0)
+}
+
+fn readable(hints: AxisHints<'_>, title: String) -> AxisHints<'_> {
+    hints
+        .label(title)
+        .formatter(|mark, _| label(mark))
+        .label_spacing(LABEL_FADE_PX.0..=LABEL_FADE_PX.1)
 }
 
 /// The labelled step for an axis of `units_per_px`: the smallest 1, 2, 2.5 or 5 × 10^k whose
@@ -177,5 +245,31 @@ mod tests {
         assert_eq!(g(-2.0, 1.0), "\u{2212}2");
         assert_eq!(DistanceUnit::for_extent(999.0), DistanceUnit::Micrometre);
         assert_eq!(DistanceUnit::for_extent(1956.0).um(), 1000.0);
+    }
+
+    #[test]
+    fn a_voltage_is_shown_in_the_unit_of_its_peak() {
+        // hand-worked: 2.1e-3 mV = 2.1 µV; 2.1e-4 mV = 210 nV; 1.3e-6 mV = 1.3 nV; 7e-7 mV =
+        // 700 pV; 0.5 mV = 500 µV
+        let u = VoltageUnit::for_peak;
+        assert_eq!(u(2.1e-3).show(2.1e-3), "2.10 µV");
+        assert_eq!(u(2.1e-4), VoltageUnit::Nanovolt);
+        assert_eq!(u(2.1e-4).show(2.1e-4), "210 nV");
+        assert_eq!(u(1.3e-6), VoltageUnit::Nanovolt);
+        assert_eq!(u(1.3e-6).show(7e-7), "0.70 nV");
+        assert_eq!(u(7e-7).show(7e-7), "700 pV");
+        assert_eq!(u(0.5).show(0.5), "500 µV");
+        assert_eq!(u(1.0).show(-12.345), "\u{2212}12.3 mV");
+        assert_eq!(u(0.0), VoltageUnit::Millivolt);
+        assert_eq!(u(f64::NAN), VoltageUnit::Millivolt);
+        // a peak of 1 to 1000 units over a 150 px axis: labels of at most four characters
+        for peak in [1.0, 2.7, 99.0, 999.0] {
+            let step = label_step(peak * 1.1 / 150.0);
+            let top = label(GridMark {
+                value: (peak / step).floor() * step,
+                step_size: step,
+            });
+            assert!(top.chars().count() <= 4, "{peak}: {top}");
+        }
     }
 }

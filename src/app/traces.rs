@@ -1,15 +1,24 @@
 //! The response-trace plot under the drawings: the soma voltage over time for a brief current
 //! at the clicked site, full cell vs reduced tree, with the peak error beside it.
 //!
+//! Each run lasts until every node of its network has passed its peak (at least
+//! [`SHORTEST_MS`], at most [`LONGEST_MS`], the step growing in the slow tail as the fidelity
+//! report's runs): a far tip of a large cell can peak at the soma long after 40 ms. A trace
+//! still rising at the end gets no peak error, only a plain note. The voltage axis is in the unit
+//! of the larger peak ([`axis::VoltageUnit`]).
+//!
 //! The full cell's half (its fine network, [`full_cell_traces`]) is the expensive one and does
 //! not depend on the budget: it runs on a background thread and is kept per site for the current
 //! reduction (a new membrane or new kept types make a new reduction, which empties the store).
 //! The reduced half is redone, in the same job, when the budget moves. One job at a time: a
 //! click during a run waits for it, then the latest wish is computed.
 
+use super::axis::{self, VoltageUnit};
 use super::jobs::Job;
 use super::state::{CellState, Reduction};
-use crate::fidelity::{Input, SideTraces, TraceOptions, full_cell_traces, reduced_tree_traces};
+use crate::fidelity::{
+    Input, SideTraces, TraceOptions, UntilPeaked, full_cell_traces, reduced_tree_traces,
+};
 use crate::morphology::NONE;
 use crate::reduce::ReducedTree;
 use crate::transient::Waveform;
@@ -21,10 +30,16 @@ use std::sync::Arc;
 /// into the cell at the site (depolarising), as the fidelity report uses.
 pub const INPUT: Input = Input::Current {
     waveform: Waveform::Alpha {
-        tau_ms: 0.5,
+        tau_ms: INPUT_TAU_MS,
         peak_pa: 10.0,
     },
 };
+const INPUT_TAU_MS: f64 = 0.5;
+
+/// The shortest run (ms): a near injection point's traces still show their decay.
+pub const SHORTEST_MS: f64 = 40.0;
+/// The longest run (ms): 25 membrane time constants at the default 20 ms.
+pub const LONGEST_MS: f64 = 500.0;
 
 /// How many sites' full-cell traces are kept.
 const KEEP: usize = 32;
@@ -62,11 +77,14 @@ pub struct Shown {
 
 impl Shown {
     /// ln(peak_reduced/peak_full) of the soma traces (Np, signed: < 0 when the tree answers
-    /// too weakly).
-    pub fn peak_error_np(&self) -> f64 {
+    /// too weakly); `None` unless both have peaked inside their runs.
+    pub fn peak_error_np(&self) -> Option<f64> {
+        if !(self.full.soma_peaked() && self.reduced.soma_peaked()) {
+            return None;
+        }
         let (pf, _) = self.full.soma_peak();
         let (pr, _) = self.reduced.soma_peak();
-        (pr.abs() / pf.abs()).ln()
+        Some((pr.abs() / pf.abs()).ln())
     }
 }
 
@@ -87,7 +105,12 @@ impl Default for TracesView {
             shown: None,
             error: None,
             opts: TraceOptions {
-                duration_ms: 40.0,
+                duration_ms: LONGEST_MS,
+                until_peaked: Some(UntilPeaked {
+                    min_ms: SHORTEST_MS,
+                    // the alpha current is below 0.2 % of its peak after 10τ
+                    grow_after_ms: 10.0 * INPUT_TAU_MS,
+                }),
                 ..TraceOptions::default()
             },
             job: None,
@@ -171,6 +194,14 @@ impl TracesView {
             };
             p.set("the reduced tree");
             let tree = k.tree.clone();
+            // at least as long as the cell's run, so both lines span the plot
+            let opts = TraceOptions {
+                until_peaked: opts.until_peaked.map(|u| UntilPeaked {
+                    min_ms: u.min_ms.max(full.end_ms()),
+                    ..u
+                }),
+                ..opts
+            };
             let (compartment, reduced) = reduced_tree_traces(&tree, k.point, &INPUT, &opts)?;
             Ok(Shown {
                 point: k.point,
@@ -192,7 +223,8 @@ impl TracesView {
             ui.label("Soma voltage for a brief inward current at the injection point")
                 .on_hover_text(
                     "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the injection point; \
-                     the reduced tree gets it at the injection point's compartment. mV above rest.",
+                     the reduced tree gets it at the injection point's compartment. Voltage above rest; \
+                     each run lasts until the whole cell has passed its peak (40 to 500 ms).",
                 );
             if let Some((_, job)) = &self.job {
                 ui.spinner();
@@ -208,47 +240,67 @@ impl TracesView {
         let Some(sh) = &self.shown else {
             return;
         };
-        let (pf, tf) = sh.full.soma_peak();
-        let (pr, tr) = sh.reduced.soma_peak();
-        let np = sh.peak_error_np();
-        // signed relative difference (e^x − 1)·100 of the peaks, with a typographic minus
-        let minus = |t: String| t.replace('-', "−");
-        ui.horizontal_wrapped(|ui| {
+        let (pf, pr) = (sh.full.soma_peak().0, sh.reduced.soma_peak().0);
+        let unit = VoltageUnit::for_peak(pf.abs().max(pr.abs()));
+        peak_line(ui, sh, unit);
+        let line = |t: &SideTraces| -> Vec<[f64; 2]> {
+            t.times_ms
+                .iter()
+                .zip(&t.soma_mv)
+                .map(|(&x, &y)| [x, y * unit.per_mv()])
+                .collect()
+        };
+        let plot =
+            Plot::new("traces").legend(Legend::default().position(egui_plot::Corner::RightTop));
+        let plot = axis::readable_x(plot, "time (ms)");
+        let plot = axis::readable_y(plot, format!("above rest ({})", unit.symbol()));
+        plot.show(ui, |pu| {
+            pu.line(
+                Line::new("cell", line(&sh.full))
+                    .color(Color32::from_rgb(175, 175, 185))
+                    .width(4.0),
+            );
+            pu.line(
+                Line::new("reduced tree", line(&sh.reduced))
+                    .color(Color32::from_rgb(250, 170, 60))
+                    .width(1.5),
+            );
+        });
+    }
+}
+
+/// The peak error line (signed relative difference (e^x − 1)·100 of the peaks, with a
+/// typographic minus), or which soma trace is still rising at the end of its run.
+fn peak_line(ui: &mut egui::Ui, sh: &Shown, unit: VoltageUnit) {
+    let (pf, tf) = sh.full.soma_peak();
+    let (pr, tr) = sh.reduced.soma_peak();
+    let minus = |t: String| t.replace('-', "−");
+    let rising = |t: &SideTraces| (!t.soma_peaked()).then(|| t.end_ms());
+    ui.horizontal_wrapped(|ui| match sh.peak_error_np() {
+        Some(np) => {
             let pct = np.exp_m1() * 100.0;
             let digits = if pct.abs() < 10.0 { 1 } else { 0 };
             ui.strong(minus(format!(
                 "peak: reduced {pct:+.digits$} % vs cell ({np:+.2} Np)"
             )));
-            ui.weak(format!("(cell {pf:.3} mV at {tf:.1} ms)"));
-        })
-        .response
-        .on_hover_text(format!(
-            "cell {pf:.3} mV at {tf:.1} ms; reduced tree {pr:.3} mV at {tr:.1} ms, current at \
-             compartment {} of {}",
-            sh.compartment, sh.compartments
-        ));
-        let line = |t: &SideTraces| -> Vec<[f64; 2]> {
-            t.times_ms
-                .iter()
-                .zip(&t.soma_mv)
-                .map(|(&x, &y)| [x, y])
-                .collect()
-        };
-        Plot::new("traces")
-            .legend(Legend::default().position(egui_plot::Corner::RightTop))
-            .x_axis_label("time (ms)")
-            .y_axis_label("mV above rest")
-            .show(ui, |pu| {
-                pu.line(
-                    Line::new("cell", line(&sh.full))
-                        .color(Color32::from_rgb(175, 175, 185))
-                        .width(4.0),
-                );
-                pu.line(
-                    Line::new("reduced tree", line(&sh.reduced))
-                        .color(Color32::from_rgb(250, 170, 60))
-                        .width(1.5),
-                );
-            });
-    }
+            ui.weak(format!("(cell {} at {tf:.1} ms)", unit.show(pf)));
+        }
+        None => {
+            let who = match (rising(&sh.full), rising(&sh.reduced)) {
+                (Some(t), Some(_)) => format!("both soma traces are still rising at {t:.0} ms"),
+                (Some(t), None) => format!("the cell's soma is still rising at {t:.0} ms"),
+                (None, Some(t)) => format!("the reduced tree's soma is still rising at {t:.0} ms"),
+                (None, None) => "a soma trace stays at rest".to_string(),
+            };
+            ui.strong(format!("no peak to compare: {who}"));
+        }
+    })
+    .response
+    .on_hover_text(format!(
+        "cell {} at {tf:.1} ms; reduced tree {} at {tr:.1} ms, current at compartment {} of {}",
+        unit.show(pf),
+        unit.show(pr),
+        sh.compartment,
+        sh.compartments
+    ));
 }

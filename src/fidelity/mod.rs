@@ -12,8 +12,8 @@
 mod traces;
 
 pub use traces::{
-    Input, SideTraces, SiteRef, TraceOptions, Traces, full_cell_traces, reduced_tree_traces,
-    resolve_site, response_traces, sites_csv,
+    Input, SideTraces, SiteRef, TraceOptions, Traces, UntilPeaked, full_cell_traces,
+    reduced_tree_traces, resolve_site, response_traces, sites_csv,
 };
 
 use crate::cable::{CableError, network_arrays};

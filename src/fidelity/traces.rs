@@ -2,11 +2,11 @@
 //! and reduced tree, for a current waveform or a conductance synapse there (what `pollard trace`
 //! writes and the app can plot), and the per-site table (the scored sites) as CSV.
 
-use super::{FidelityError, SiteFidelity};
+use super::{FidelityError, GROWTH_RATIO, SiteFidelity};
 use crate::morphology::{Morphology, NONE};
 use crate::reduce::{ReducedTree, Reducer};
 use crate::transient::{
-    Drive, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
+    Drive, Growth, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
     simulate,
 };
 
@@ -30,10 +30,26 @@ pub enum SiteRef {
 /// How long and how finely to integrate the traces.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct TraceOptions {
+    /// The run's length (ms); with `until_peaked`, its longest.
     pub duration_ms: f64,
     pub dt_ms: f64,
     pub method: Method,
     pub pieces: PieceRule,
+    /// `None`: exactly `duration_ms` at the fixed step `dt_ms`. `Some`: the run ends once every
+    /// node of its network has passed its peak, and its step grows in the slow tail, as the
+    /// fidelity report's runs do.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub until_peaked: Option<UntilPeaked>,
+}
+
+/// A run that lasts until the responses have peaked (see [`TraceOptions::until_peaked`]).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct UntilPeaked {
+    /// The shortest run (ms), even when everything has peaked sooner.
+    pub min_ms: f64,
+    /// From this time on (ms; once a brief input is over) the step grows towards
+    /// [`GROWTH_RATIO`] × t.
+    pub grow_after_ms: f64,
 }
 
 impl Default for TraceOptions {
@@ -43,6 +59,7 @@ impl Default for TraceOptions {
             dt_ms: 0.025,
             method: Method::CrankNicolson,
             pieces: PieceRule::default(),
+            until_peaked: None,
         }
     }
 }
@@ -134,10 +151,28 @@ pub struct SideTraces {
 impl SideTraces {
     /// The soma trace's largest |V| (mV) and its time (ms), the first sample if all are 0.
     pub fn soma_peak(&self) -> (f64, f64) {
-        let mut best = (0.0f64, 0.0f64);
-        for (v, t) in self.soma_mv.iter().zip(&self.times_ms) {
-            if v.abs() > best.0.abs() {
-                best = (*v, *t);
+        let (i, v) = self.soma_peak_sample();
+        (v, self.times_ms.get(i).copied().unwrap_or(0.0))
+    }
+
+    /// True when the soma trace has a peak inside the run: its largest |V| is not 0 and is not
+    /// the last sample (a trace still rising at the end has no peak to compare).
+    pub fn soma_peaked(&self) -> bool {
+        let (i, v) = self.soma_peak_sample();
+        v != 0.0 && i + 1 < self.soma_mv.len()
+    }
+
+    /// The end of the run (ms).
+    pub fn end_ms(&self) -> f64 {
+        self.times_ms.last().copied().unwrap_or(0.0)
+    }
+
+    /// Index and value of the soma trace's first largest |V| (0, 0.0 when all are 0).
+    fn soma_peak_sample(&self) -> (usize, f64) {
+        let mut best = (0, 0.0f64);
+        for (i, v) in self.soma_mv.iter().enumerate() {
+            if v.abs() > best.1.abs() {
+                best = (i, *v);
             }
         }
         best
@@ -150,14 +185,31 @@ fn run(
     input: &Input,
     opts: &TraceOptions,
 ) -> Result<SideTraces, FidelityError> {
+    let (stop, growth) = match opts.until_peaked {
+        None => (
+            Stop::At {
+                duration_ms: opts.duration_ms,
+            },
+            None,
+        ),
+        Some(u) => (
+            Stop::AllPeaked {
+                min_ms: u.min_ms.min(opts.duration_ms),
+                max_ms: opts.duration_ms,
+            },
+            Some(Growth {
+                after_ms: u.grow_after_ms,
+                ratio: GROWTH_RATIO,
+            }),
+        ),
+    };
     let run_opts = RunOptions {
         dt_ms: opts.dt_ms,
         method: opts.method,
-        stop: Stop::At {
-            duration_ms: opts.duration_ms,
-        },
-        track_peaks: false,
-        growth: None,
+        stop,
+        // the stop on peaks watches every node's running peak
+        track_peaks: opts.until_peaked.is_some(),
+        growth,
     };
     let drive = match *input {
         Input::Current { waveform } => Drive::Current { node, waveform },
