@@ -32,11 +32,13 @@ fn prep_for(m: &Morphology) -> PrepOptions {
     }
 }
 
-/// `POLLARD_CAPACITANCE=uniform` measures C = τ·G instead of the default fitted capacitances;
+/// `POLLARD_CAPACITANCE=uniform` measures C = τ·G instead of the default fitted capacitances,
+/// `POLLARD_CAPACITANCE=timed` the fitted ones polished in the time domain;
 /// `POLLARD_TABLE_MAX=1` adds a row at the largest budget the cell allows.
 fn capacitance_rule() -> CapacitanceRule {
     match std::env::var("POLLARD_CAPACITANCE").as_deref() {
         Ok("uniform") => CapacitanceRule::Uniform,
+        Ok("timed") => CapacitanceRule::Timed,
         _ => CapacitanceRule::Fitted,
     }
 }
@@ -110,7 +112,10 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
         budgets.push(red.max_compartments());
     }
     for b in budgets {
-        let tree = red.tree(b);
+        let mut tree = red.tree(b);
+        if ropts.capacitance == CapacitanceRule::Timed {
+            fid.polish(&mut tree).map_err(|e| e.to_string())?;
+        }
         let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let (site_rows, _) = fid.sites(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let floor = ttp_partition_floor(&site_rows, tree.len());

@@ -231,3 +231,32 @@ fn reduce_errors_are_one_line_and_name_the_file() {
     assert_eq!(o.status.code(), Some(1));
     assert!(text(&o.stderr).contains("refusing to overwrite"));
 }
+
+#[test]
+fn timed_capacitances_are_recorded_and_need_the_fidelity_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("tree.json");
+    let cell = manifest("sample_cells/practice_stellate.swc");
+    let (c, o) = (cell.to_str().unwrap(), out.to_str().unwrap());
+    let r = pollard(&["reduce", c, "-n", "15", "--capacitance", "timed", "-o", o]);
+    assert!(r.status.success(), "{}", text(&r.stderr));
+    let doc: serde_json::Value = serde_json::from_slice(&std::fs::read(&out).unwrap()).unwrap();
+    assert_eq!(doc["parameters"]["capacitance"], "timed");
+    let tau = doc["report"]["slowest_time_constant_ms"].as_f64().unwrap();
+    assert!((tau / 20.0 - 1.0).abs() < 0.15, "{tau}");
+    let r = pollard(&[
+        "reduce",
+        c,
+        "-n",
+        "15",
+        "--capacitance",
+        "timed",
+        "--no-fidelity",
+        "-o",
+        o,
+    ]);
+    assert!(!r.status.success());
+    let err = text(&r.stderr);
+    assert_eq!(err.trim().lines().count(), 1, "{err}");
+    assert!(err.contains("--no-fidelity"), "{err}");
+}

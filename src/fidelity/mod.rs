@@ -9,7 +9,9 @@
 //! the expensive part: [`Fidelity::new`] does it once per reducer; [`Fidelity::report`] then
 //! costs one run of the (small) reduced tree.
 
+mod polish;
 mod traces;
+pub use polish::{POLISH_ITERATIONS, POLISH_MAX_COMPARTMENTS, PolishSummary};
 
 pub use traces::{
     Input, SideTraces, SiteRef, TraceOptions, Traces, UntilPeaked, full_cell_traces,

@@ -65,6 +65,7 @@ mod fine;
 mod order;
 mod sites;
 mod tree;
+pub use tree::slowest_time_constant_ms;
 
 pub use sites::{SiteSpec, parse_sites_csv};
 
@@ -147,6 +148,10 @@ pub enum CapacitanceRule {
     /// C = τ·G_leak (τ = Rm·Cm): the slowest time constant is exactly Rm·Cm, the transients are
     /// those of the DC-exact network with that membrane.
     Uniform,
+    /// `Fitted`, then polished in the time domain on the sites' EPSP peaks and times to peak
+    /// (`fidelity::Fidelity::polish`, which needs the full cell's time-domain run). The reducer
+    /// itself builds the `Fitted` tree; the caller polishes it.
+    Timed,
 }
 
 impl Default for ReduceOptions {

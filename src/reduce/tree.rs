@@ -165,3 +165,15 @@ pub(super) fn slowest_mode(
     }
     (lam, x, xcx)
 }
+
+/// The slowest time constant (ms) of any RC tree given parents-first (conductances in nS,
+/// capacitances in pF): [`slowest_mode`] converged to 1e-10.
+pub fn slowest_time_constant_ms(
+    parent: &[u32],
+    g_ns: &[f64],
+    leak_ns: &[f64],
+    cap_pf: &[f64],
+) -> f64 {
+    let (lam, _, _) = slowest_mode(parent, g_ns, leak_ns, cap_pf, 2000, 1e-10);
+    1.0 / lam
+}
