@@ -429,9 +429,10 @@ impl PlotsPanel {
         } else {
             "Voltage, current at the injection point"
         };
-        ui.label(format!(
-            "{what} vs path distance (reduced tree: current at the compartment)"
-        ))
+        plot_title(
+            ui,
+            format!("{what} vs path distance (reduced tree: current at the compartment)"),
+        )
         .on_hover_text(
             "Orange: the reduced tree with the current injected at the injection point's \
              compartment (not at the point itself), so its offset is not a reduction error.",
@@ -465,10 +466,9 @@ impl PlotsPanel {
 }
 
 fn error_plot(ui: &mut egui::Ui, s: &CellState) {
-    ui.label("Reduction error vs number of compartments")
-        .on_hover_text(
-            "Weighted RMS over the sites of the error in DC attenuation to the soma, in Np",
-        );
+    plot_title(ui, "Reduction error vs number of compartments").on_hover_text(
+        "Weighted RMS over the sites of the error in DC attenuation to the soma, in Np",
+    );
     match &s.reduction {
         Some(r) => {
             let curve: Vec<[f64; 2]> = r
@@ -496,11 +496,20 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
 }
 
 fn sholl_plot(ui: &mut egui::Ui, s: &CellState) {
-    ui.label("Sholl profile").on_hover_text(super::terms::SHOLL);
+    plot_title(ui, "Sholl profile").on_hover_text(super::terms::SHOLL);
     let pts: Vec<[f64; 2]> = s.cell.sholl.iter().map(|&(r, c)| [r, c as f64]).collect();
     axis::readable_x(Plot::new("sholl"), "distance from the soma centre (µm)")
         .y_axis_label(format!("crossings, every {} µm", s.cell.sholl_step))
         .show(ui, |pu| {
             pu.line(Line::new("crossings", pts).color(Color32::from_rgb(110, 215, 140)));
         });
+}
+
+/// A plot's title: left-aligned and wrapped with normal spacing (the plot columns are justified
+/// layouts, where egui stretches the spaces of a wrapped label to the column's width).
+pub(super) fn plot_title(ui: &mut egui::Ui, text: impl Into<egui::WidgetText>) -> egui::Response {
+    ui.with_layout(egui::Layout::top_down(egui::Align::Min), |ui| {
+        ui.label(text)
+    })
+    .inner
 }

@@ -220,7 +220,10 @@ impl TracesView {
     pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
         self.update(s, Some(ui.ctx().clone()));
         ui.horizontal(|ui| {
-            ui.label("Soma voltage for a brief inward current at the injection point")
+            super::panels::plot_title(
+                ui,
+                "Soma voltage for a brief inward current at the injection point",
+            )
                 .on_hover_text(
                     "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the injection point; \
                      the reduced tree gets it at the injection point's compartment. Voltage above rest; \
