@@ -674,3 +674,123 @@ fn a_changed_added_or_removed_synapse_table_redoes_its_cell() {
     let (_, reused) = run_lib(&cells, &plain, false);
     assert_eq!(reused, 4);
 }
+
+/// `(done, reused)` from the batch's last stderr line ("… N done in this run, M reused …").
+fn done_reused(err: &str) -> (usize, usize) {
+    let line = err
+        .lines()
+        .find(|l| l.contains("done in this run"))
+        .unwrap();
+    let num = |before: &str| -> usize {
+        let head = &line[..line.find(before).unwrap()];
+        head.split_whitespace().last().unwrap().parse().unwrap()
+    };
+    (num(" done in this run"), num(" reused"))
+}
+
+/// The `compartments` member's `key` of every compartment of a tree file, as JSON values.
+fn column(path: &Path, key: &str) -> Vec<serde_json::Value> {
+    let doc: serde_json::Value = serde_json::from_slice(&std::fs::read(path).unwrap()).unwrap();
+    assert!(doc["parameters"]["capacitance"].is_string());
+    doc["compartments"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| c[key].clone())
+        .collect()
+}
+
+#[test]
+fn timed_capacitances_are_a_setting_and_keep_the_conductances() {
+    let tmp = tempfile::tempdir().unwrap();
+    let input = tmp.path().join("in");
+    let out = tmp.path().join("out");
+    for i in 0..3 {
+        let text = synth::to_swc(&synth::random_tree(150, 60 + i), &[]);
+        write(&input, &format!("c{i}.swc"), text.as_bytes());
+    }
+    let run = |extra: &[&str]| {
+        let mut args = vec![
+            "batch",
+            s(&input),
+            "--out-dir",
+            s(&out),
+            "-n",
+            "15",
+            "-j",
+            "2",
+        ];
+        args.extend(extra);
+        let (code, err) = pollard(&args);
+        assert_eq!(code, 0, "{err}");
+        done_reused(&err)
+    };
+    let trees = |key: &str| -> Vec<Vec<serde_json::Value>> {
+        (0..3)
+            .map(|i| column(&out.join(format!("c{i}.json")), key))
+            .collect()
+    };
+    let rule = || -> String {
+        let doc: serde_json::Value =
+            serde_json::from_slice(&std::fs::read(out.join("c0.json")).unwrap()).unwrap();
+        doc["parameters"]["capacitance"]
+            .as_str()
+            .unwrap()
+            .to_string()
+    };
+    assert_eq!(run(&[]), (3, 0));
+    assert_eq!(rule(), "fitted");
+    let fitted_bytes = std::fs::read(out.join("c1.json")).unwrap();
+    let (ga, gl, cf) = (
+        trees("g_axial_ns"),
+        trees("g_leak_ns"),
+        trees("capacitance_pf"),
+    );
+    // another rule is another setting: every cell is redone, then reused
+    assert_eq!(run(&["--capacitance", "timed"]), (3, 0));
+    assert_eq!(rule(), "timed");
+    assert_eq!(run(&["--capacitance", "timed"]), (0, 3));
+    // reference: the fitted run's trees; the polish changes capacitances only
+    assert_eq!(trees("g_axial_ns"), ga);
+    assert_eq!(trees("g_leak_ns"), gl);
+    let ct = trees("capacitance_pf");
+    for (t, f) in ct.iter().zip(&cf) {
+        assert_eq!(t.len(), f.len());
+        assert_ne!(t, f, "the polish moved some capacitance");
+        assert!(t.iter().all(|c| c.as_f64().unwrap() > 0.0));
+    }
+    // reference: `pollard reduce --capacitance timed` on the same cell and budget
+    let single = tmp.path().join("single.json");
+    let (code, err) = pollard(&[
+        "reduce",
+        s(&input.join("c2.swc")),
+        "-n",
+        "15",
+        "--capacitance",
+        "timed",
+        "--out",
+        s(&single),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(column(&single, "capacitance_pf"), ct[2]);
+    // back to fitted: redone, the first run's bytes again
+    assert_eq!(run(&["--capacitance", "fitted"]), (3, 0));
+    assert_eq!(std::fs::read(out.join("c1.json")).unwrap(), fitted_bytes);
+    // timed without the fidelity run it polishes on: one line, exit 1, no work
+    let out2 = tmp.path().join("out2");
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out-dir",
+        s(&out2),
+        "-n",
+        "15",
+        "--capacitance",
+        "timed",
+        "--no-fidelity",
+    ]);
+    assert_eq!(code, 1, "{err}");
+    assert_eq!(err.trim().lines().count(), 1, "{err}");
+    assert!(err.contains("--no-fidelity"), "{err}");
+    assert!(!out2.join("c0.json").exists());
+}

@@ -166,7 +166,9 @@ def reduce(
     """Reduces a cell to a strict binary tree of `compartments` compartments (odd; an even
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
     (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
-    `capacitance`: "fitted" (to the cell's transfer impedances) or "uniform" (C = Rm·Cm·G);
+    `capacitance`: "fitted" (to the cell's transfer impedances), "timed" (fitted, then polished
+    on the sites' EPSP peaks and times to peak, as `pollard reduce --capacitance timed`; runs
+    the full cell once, which `fidelity` and `to_json` then reuse) or "uniform" (C = Rm·Cm·G);
     `synapses`: a synapse table (CSV: input, swc_id or x,y,z in the cell's units, weight),
     snapped as `pollard reduce --synapses` does (`snap_limit` µm, `skip_far`); its synapses
     are the sites and `ReducedTree.synapse_matrix()` gives the input × compartment matrix."""

@@ -469,9 +469,10 @@ pub fn reduce(
     let capacitance = match capacitance {
         "fitted" => CapacitanceRule::Fitted,
         "uniform" => CapacitanceRule::Uniform,
+        "timed" => CapacitanceRule::Timed,
         other => {
             return Err(fail(format!(
-                "capacitance: {other:?} is neither \"fitted\" nor \"uniform\""
+                "capacitance: {other:?} is not \"fitted\", \"uniform\" or \"timed\""
             )));
         }
     };
@@ -510,7 +511,17 @@ pub fn reduce(
             capacitance,
         };
         let reducer = Reducer::new(&flat, &params, &opts).map_err(|e| format!("{name}: {e}"))?;
-        let tree = reducer.tree(compartments);
+        let mut tree = reducer.tree(compartments);
+        // `timed`: polished on the full cell's run with `pollard reduce`'s fidelity options,
+        // kept for the tree's `fidelity` and `to_json` (which use those options too)
+        let fidelity = if capacitance == CapacitanceRule::Timed {
+            let o = FidelityOptions::default();
+            let f = Fidelity::new(&reducer, &o).map_err(|e| format!("{name}: {e}"))?;
+            f.polish(&mut tree).map_err(|e| format!("{name}: {e}"))?;
+            Some((o, Arc::new(f)))
+        } else {
+            None
+        };
         let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
         let report_json = serde_json::to_string(&report).map_err(|e| e.to_string())?;
         let synapses = match snapped {
@@ -536,7 +547,7 @@ pub fn reduce(
                 morph: m,
                 source: name,
                 inputs,
-                fidelity: Mutex::new(None),
+                fidelity: Mutex::new(fidelity),
                 synapses,
                 scale: prep.scale,
             },

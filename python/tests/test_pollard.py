@@ -290,6 +290,28 @@ def test_fidelity_report_and_sites(tmp_path):
         loaded.fidelity()
 
 
+def test_timed_capacitances_polish_the_fitted_tree_as_the_cli_does(tmp_path):
+    """capacitance="timed": the fitted tree's conductances bit for bit (the polish touches only
+    capacitances), other capacitances, and `to_json` writes `pollard reduce --capacitance timed`'s
+    bytes (reference: the command line on the same cell and budget)."""
+    cell = REPO / "sample_cells" / "practice_stellate.swc"
+    path, doc = cli_tree(tmp_path, cell, 21, "--capacitance", "timed")
+    fitted = pollard.reduce(cell, compartments=21)
+    timed = pollard.reduce(cell, compartments=21, capacitance="timed")
+    for name in ("g_axial_ns", "g_leak_ns", "membrane_area_um2", "parent", "children"):
+        np.testing.assert_array_equal(getattr(timed, name), getattr(fitted, name))
+    assert np.all(timed.capacitance_pf > 0.0)
+    assert not np.array_equal(timed.capacitance_pf, fitted.capacitance_pf)
+    np.testing.assert_array_equal(timed.capacitance_pf,
+                                  [c["capacitance_pf"] for c in doc["compartments"]])
+    assert doc["parameters"]["capacitance"] == "timed"
+    mine = tmp_path / "py-timed.json"
+    timed.to_json(mine)
+    assert mine.read_bytes() == path.read_bytes()
+    with pytest.raises(pollard.PollardError, match='"fitted", "uniform" or "timed"'):
+        pollard.reduce(cell, compartments=3, capacitance="slow")
+
+
 # ---------------------------------------------------------------- synapse tables
 
 DEMO_CELL = REPO / "sample_cells" / "practice_pyramidal.swc"

@@ -6,7 +6,7 @@ use crate::cable::prepare;
 use crate::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
 use crate::fidelity::{Fidelity, FidelityReport};
 use crate::morphology::Morphology;
-use crate::reduce::Reducer;
+use crate::reduce::{CapacitanceRule, Reducer};
 use crate::synapses::{SynapseJson, SynapseMap, table_for_cell};
 use std::path::Path;
 use std::time::Instant;
@@ -46,7 +46,10 @@ fn compute(
     }
     let reducer =
         Reducer::new(&flat, &settings.params, &opts).map_err(|e| format!("{name}: {e}"))?;
-    let tree = reducer.tree(settings.compartments);
+    let mut tree = reducer.tree(settings.compartments);
+    // polished (`timed`) before anything reads the tree's capacitances
+    let fidelity =
+        fidelity_for(settings, &reducer, &mut tree, &m).map_err(|e| format!("{name}: {e}"))?;
     let report = reducer.report(&tree).map_err(|e| format!("{name}: {e}"))?;
     let map = match &snapped {
         Some(s) => Some(
@@ -57,8 +60,6 @@ fn compute(
         None => None,
     };
     let ids: Vec<i64> = m.points.iter().map(|p| p.id).collect();
-    let fidelity =
-        fidelity_for(settings, &reducer, &tree, &m).map_err(|e| format!("{name}: {e}"))?;
     let fid = |f: fn(&FidelityReport) -> f64| {
         fidelity
             .as_ref()
@@ -114,17 +115,22 @@ fn compute(
     })
 }
 
-/// The fidelity summary of a cell's tree, when the settings ask for it.
+/// The fidelity summary of a cell's tree, when the settings ask for it; with the `timed` rule
+/// the tree's capacitances are first polished on the same full-cell run (as `pollard reduce`).
 fn fidelity_for(
     settings: &Settings,
     reducer: &Reducer,
-    tree: &crate::reduce::ReducedTree,
+    tree: &mut crate::reduce::ReducedTree,
     m: &Morphology,
 ) -> Result<Option<FidelityReport>, crate::fidelity::FidelityError> {
-    match &settings.fidelity {
-        None => Ok(None),
-        Some(o) => Ok(Some(Fidelity::new(reducer, o)?.report(tree, Some(m))?)),
+    let Some(o) = &settings.fidelity else {
+        return Ok(None);
+    };
+    let f = Fidelity::new(reducer, o)?;
+    if settings.capacitance == CapacitanceRule::Timed {
+        f.polish(tree)?;
     }
+    Ok(Some(f.report(tree, Some(m))?))
 }
 
 fn make_parent(path: &Path) -> Result<(), BatchError> {

@@ -46,7 +46,7 @@ use crate::cable::{Params, PrepOptions};
 use crate::export::WriteError;
 use crate::fidelity::{FidelityError, FidelityOptions};
 use crate::morphology::{Flat, NONE, kind};
-use crate::reduce::{ReduceOptions, Reducer, Sites};
+use crate::reduce::{CapacitanceRule, ReduceOptions, Reducer, Sites};
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
@@ -84,6 +84,10 @@ pub enum BatchError {
     Options(#[from] crate::reduce::ReduceError),
     #[error(transparent)]
     Fidelity(#[from] FidelityError),
+    #[error(
+        "--capacitance timed polishes each tree on its cell's fidelity run: drop --no-fidelity"
+    )]
+    TimedWithoutFidelity,
     #[error("{path}: cannot read the summary: {message}")]
     SummaryRead { path: PathBuf, message: String },
     #[error("{folder}: {message}")]
@@ -115,6 +119,40 @@ pub struct Settings {
     pub synapses: Option<crate::synapses::TableRule>,
     /// The EPSP fidelity check's options; `None` skips it (its columns are then empty).
     pub fidelity: Option<FidelityOptions>,
+    /// How compartments get their capacitance; `Timed` polishes each tree on its cell's
+    /// fidelity run, so it needs `fidelity`. Left out of the stored settings when `Fitted`, so
+    /// records written before this setting existed (all fitted) stay current.
+    #[serde(
+        default,
+        skip_serializing_if = "is_fitted",
+        deserialize_with = "capacitance_from_name"
+    )]
+    pub capacitance: CapacitanceRule,
+}
+
+fn is_fitted(c: &CapacitanceRule) -> bool {
+    *c == CapacitanceRule::Fitted
+}
+
+/// Reads a [`CapacitanceRule`] by the name it is written with.
+fn capacitance_from_name<'de, D: serde::Deserializer<'de>>(
+    d: D,
+) -> Result<CapacitanceRule, D::Error> {
+    let name = String::deserialize(d)?;
+    [
+        CapacitanceRule::Fitted,
+        CapacitanceRule::Uniform,
+        CapacitanceRule::Timed,
+    ]
+    .into_iter()
+    .find(|c| {
+        serde_json::to_value(c)
+            .ok()
+            .as_ref()
+            .and_then(|v| v.as_str())
+            == Some(&name)
+    })
+    .ok_or_else(|| serde::de::Error::custom(format!("unknown capacitance rule {name:?}")))
 }
 
 impl Default for Settings {
@@ -131,6 +169,7 @@ impl Default for Settings {
             junction_length_fraction: o.junction_length_fraction,
             synapses: None,
             fidelity: Some(FidelityOptions::default()),
+            capacitance: CapacitanceRule::Fitted,
         }
     }
 }
@@ -161,7 +200,7 @@ impl Settings {
             sites: Sites::Default,
             freq_hz: self.freq_hz,
             junction_length_fraction: self.junction_length_fraction,
-            ..ReduceOptions::default()
+            capacitance: self.capacitance,
         }
     }
 
@@ -171,6 +210,9 @@ impl Settings {
     /// two-point cell (a soma and one cylinder), so no range is written twice.
     pub fn validate(&self) -> Result<(), BatchError> {
         self.prep().validate()?;
+        if self.capacitance == CapacitanceRule::Timed && self.fidelity.is_none() {
+            return Err(BatchError::TimedWithoutFidelity);
+        }
         if let Some(f) = &self.fidelity {
             f.validate()?;
         }

@@ -53,6 +53,11 @@ pub struct Args {
     /// capacitances fitted (see --capacitance).
     #[arg(long = "impedance-freq", value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
     pub impedance_freq: f64,
+    /// How compartments get their capacitance, as for `pollard reduce`: `fitted` (default),
+    /// `timed` (fitted, then polished on each cell's fidelity run; refused with
+    /// --no-fidelity) or `uniform` (C = Rm·Cm × leak). Part of the settings a rerun compares.
+    #[arg(long, value_enum, default_value_t = super::reduce::Capacitance::Fitted, value_name = "RULE")]
+    pub capacitance: super::reduce::Capacitance,
     /// Junction link length as a fraction of the branch point's radius.
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
@@ -215,6 +220,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             skip_far: a.snap.skip_far,
         }),
         fidelity: (!a.no_fidelity).then(|| a.fidelity.options()),
+        capacitance: a.capacitance.into(),
     };
     // a flag error would fail every cell alike: say it once, before any work
     anyhow::ensure!(
