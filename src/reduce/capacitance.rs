@@ -130,11 +130,12 @@ impl Problem<'_> {
             *gk = 2.0 * self.ridge * t;
         }
         let mut lz = vec![C64::new(0.0, 0.0); n];
+        let mut z = vec![C64::new(0.0, 0.0); n];
         let mut y = vec![C64::new(0.0, 0.0); n];
         let g: Vec<C64> = self.g.iter().map(|&x| C64::new(x, 0.0)).collect();
+        let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
         for (fi, &f) in FIT_HZ.iter().enumerate() {
             let w = 2.0 * std::f64::consts::PI * f;
-            let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
             let shunt: Vec<C64> = (0..n).map(|k| C64::new(self.leak[k], w * cap[k])).collect();
             let fac = TreeFactor::new(self.parent, &g, &shunt);
             log_soma_column(&fac, &mut lz);
@@ -142,14 +143,14 @@ impl Problem<'_> {
                 let r = lz[k] - self.target[fi][k];
                 let wt = self.weight[fi][k];
                 total += wt * r.norm_sqr();
+                z[k] = lz[k].exp();
                 // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
-                y[k] = wt * r.conj() / lz[k].exp();
+                y[k] = wt * r.conj() / z[k];
             }
             // y = Z·a (the network is reciprocal: Z is symmetric)
             fac.solve_in_place(&mut y);
             for k in 0..n {
-                let zk = lz[k].exp();
-                let dj = C64::new(0.0, -w * cap[k]) * zk * y[k];
+                let dj = C64::new(0.0, -w * cap[k]) * z[k] * y[k];
                 grad[k] += 2.0 * dj.re;
             }
         }
