@@ -28,6 +28,29 @@ pub struct SwcPoint {
     pub line: usize,
 }
 
+impl SwcPoint {
+    /// Appends a point to a file being generated, numbered after the last (id = line =
+    /// count + 1, so ids are dense and parents come first), and returns its id.
+    pub fn append(
+        pts: &mut Vec<SwcPoint>,
+        kind: i32,
+        pos: [f64; 3],
+        radius: f64,
+        parent: i64,
+    ) -> i64 {
+        let id = pts.len() as i64 + 1;
+        pts.push(SwcPoint {
+            id,
+            kind,
+            pos,
+            radius: Some(radius),
+            parent,
+            line: id as usize,
+        });
+        id
+    }
+}
+
 /// A warning about a file that was still accepted. `code` is a short stable name
 /// (for tests and for filtering), `message` a sentence for people.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]

@@ -122,37 +122,12 @@ pub struct Settings {
     /// How compartments get their capacitance; `Timed` polishes each tree on its cell's
     /// fidelity run, so it needs `fidelity`. Left out of the stored settings when `Fitted`, so
     /// records written before this setting existed (all fitted) stay current.
-    #[serde(
-        default,
-        skip_serializing_if = "is_fitted",
-        deserialize_with = "capacitance_from_name"
-    )]
+    #[serde(default, skip_serializing_if = "is_fitted")]
     pub capacitance: CapacitanceRule,
 }
 
 fn is_fitted(c: &CapacitanceRule) -> bool {
     *c == CapacitanceRule::Fitted
-}
-
-/// Reads a [`CapacitanceRule`] by the name it is written with.
-fn capacitance_from_name<'de, D: serde::Deserializer<'de>>(
-    d: D,
-) -> Result<CapacitanceRule, D::Error> {
-    let name = String::deserialize(d)?;
-    [
-        CapacitanceRule::Fitted,
-        CapacitanceRule::Uniform,
-        CapacitanceRule::Timed,
-    ]
-    .into_iter()
-    .find(|c| {
-        serde_json::to_value(c)
-            .ok()
-            .as_ref()
-            .and_then(|v| v.as_str())
-            == Some(&name)
-    })
-    .ok_or_else(|| serde::de::Error::custom(format!("unknown capacitance rule {name:?}")))
 }
 
 impl Default for Settings {

@@ -45,17 +45,21 @@ pub struct PolishSummary {
 
 impl Fidelity {
     /// Polishes `tree`'s capacitances in the time domain (see the module documentation). Trees
-    /// of one compartment or above [`POLISH_MAX_COMPARTMENTS`] are left as they are.
+    /// of one compartment or above [`POLISH_MAX_COMPARTMENTS`] are left as they are; a tree
+    /// from another reducer (its site count differs) is refused, as [`Fidelity::sites`] does.
     pub fn polish(&self, tree: &mut ReducedTree) -> Result<PolishSummary, FidelityError> {
+        if tree.site_compartment.len() != self.peak.len() {
+            return Err(FidelityError::Mismatch {
+                what: "number of sites",
+            });
+        }
         let n = tree.len();
         let mut net = RcNetwork::from_reduced(tree);
         let tau_ms = tree.params.tau_ms();
         let mut f = self.objective(tree, &net, tau_ms)?;
         let before = f;
         let mut steps = 0;
-        if !(2..=POLISH_MAX_COMPARTMENTS).contains(&n)
-            || tree.site_compartment.len() != self.peak.len()
-        {
+        if !(2..=POLISH_MAX_COMPARTMENTS).contains(&n) {
             return Ok(PolishSummary {
                 steps,
                 objective_before: before,

@@ -321,18 +321,7 @@ fn fan_angles(secs: &mut [Section]) {
 /// section, the id of its last point. Type 3 (dendrite) for every neurite point.
 pub fn swc_points(spec: &TreeSpec, secs: &[Section]) -> (Vec<SwcPoint>, Vec<i64>) {
     let mut pts: Vec<SwcPoint> = Vec::new();
-    let push = |pts: &mut Vec<SwcPoint>, kind: i32, pos: [f64; 3], radius: f64, parent: i64| {
-        let id = pts.len() as i64 + 1;
-        pts.push(SwcPoint {
-            id,
-            kind,
-            pos,
-            radius: Some(radius),
-            parent,
-            line: id as usize,
-        });
-        id
-    };
+    let push = SwcPoint::append;
     push(&mut pts, 1, [0.0; 3], spec.soma_diam_um / 2.0, -1);
     let mut last_id = vec![0i64; secs.len()];
     let mut end_pos = vec![[0.0; 3]; secs.len()];

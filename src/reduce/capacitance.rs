@@ -154,24 +154,23 @@ impl Problem<'_> {
                 grad[k] += 2.0 * dj.re;
             }
         }
-        total + self.slow_penalty(theta, grad)
+        total + self.slow_penalty(&cap, grad)
     }
 
     /// Holds the slowest time constant within SLOW_BAND of Rm·Cm, the full cell's own τ₀
     /// (Rall 1969): a quadratic penalty on ln(λτ) outside the band; its gradient from the
     /// eigenvalue's first-order perturbation, ∂λ/∂C_k = −λ·x_k² / xᵀCx.
-    fn slow_penalty(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
-        let n = self.parent.len();
-        let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
-        let (lam, x, xcx) = slowest_mode(self.parent, self.g, self.leak, &cap, SLOW_STEPS, 0.0);
+    /// `cap` holds the trial capacitances C_k = C0_k·e^θ_k, so ∂/∂θ_k = C_k·∂/∂C_k.
+    fn slow_penalty(&self, cap: &[f64], grad: &mut [f64]) -> f64 {
+        let (lam, x, xcx) = slowest_mode(self.parent, self.g, self.leak, cap, SLOW_STEPS, 0.0);
         let d = (lam * self.tau_s).ln();
         let band = SLOW_BAND.ln_1p();
         let excess = d.signum() * (d.abs() - band).max(0.0);
         if excess == 0.0 || !excess.is_finite() {
             return 0.0;
         }
-        for k in 0..n {
-            grad[k] += 2.0 * self.slow_weight * excess * (-x[k] * x[k] * cap[k] / xcx);
+        for (k, gk) in grad.iter_mut().enumerate() {
+            *gk += 2.0 * self.slow_weight * excess * (-x[k] * x[k] * cap[k] / xcx);
         }
         self.slow_weight * excess * excess
     }

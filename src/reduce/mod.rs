@@ -137,7 +137,7 @@ pub struct ReduceOptions {
 }
 
 /// How the reduced tree's capacitances are chosen (the conductances are the same either way).
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum CapacitanceRule {
     /// Fitted to the full cell's transfer impedances to the soma (default): the soma's own
@@ -326,7 +326,7 @@ pub struct Report {
     /// The membrane time constant Rm·Cm, the full cell's slowest (ms).
     pub tau_ms: f64,
     /// The reduced tree's slowest time constant (ms): Rm·Cm exactly with uniform capacitances,
-    /// held within 2–5 % of it by the fitted ones.
+    /// within 5 % of it with fitted ones, within ~10 % once polished (`Timed`).
     pub slowest_time_constant_ms: f64,
     pub sites: usize,
     /// |ln A_site(full) − ln A_compartment(reduced)| over the sites, DC (nepers).

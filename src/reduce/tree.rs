@@ -5,7 +5,7 @@
 //! What this file does not do: build trees (that is `build`) or compare them with the cell (that
 //! is `Reducer::report` and `crate::fidelity`).
 
-use super::{FeedForward, ReducedTree};
+use super::{Compartment, FeedForward, ReducedTree};
 use crate::cable::solve::{TreeFactor, TreeMaps};
 use crate::cable::{C64, Network};
 use crate::morphology::NONE;
@@ -73,17 +73,17 @@ impl ReducedTree {
         C64::new(1.0, 0.0) / TreeFactor::new(&net.parent, &net.g, &net.shunt).root_admittance()
     }
 
-    /// The tree's slowest time constant (ms): 1/λ of the slowest mode of G·x = λ·C·x, converged
-    /// to 1e-10 (at most 2,000 inverse-iteration steps). Rm·Cm exactly with uniform capacitances.
+    /// The tree's slowest time constant (ms), see [`slowest_time_constant_ms`]. Rm·Cm exactly
+    /// with uniform capacitances.
     pub fn slowest_time_constant_ms(&self) -> f64 {
-        let (p, g, s) = self.dc();
-        let cap: Vec<f64> = self
-            .compartments
-            .iter()
-            .map(|c| c.capacitance_pf * 1e-12)
-            .collect();
-        let (lam, _, _) = slowest_mode(&p, &g, &s, &cap, 2000, 1e-10);
-        1e3 / lam
+        let col =
+            |f: fn(&Compartment) -> f64| -> Vec<f64> { self.compartments.iter().map(f).collect() };
+        slowest_time_constant_ms(
+            &self.parents(),
+            &col(|c| c.g_axial_ns),
+            &col(|c| c.g_leak_ns),
+            &col(|c| c.capacitance_pf),
+        )
     }
 
     /// DC log attenuation to the soma of every compartment, ln(Z_kk/Z_k0) (nepers).
@@ -167,7 +167,7 @@ pub(super) fn slowest_mode(
 }
 
 /// The slowest time constant (ms) of any RC tree given parents-first (conductances in nS,
-/// capacitances in pF): [`slowest_mode`] converged to 1e-10.
+/// capacitances in pF): 1/λ of [`slowest_mode`] converged to 1e-10 (at most 2,000 steps).
 pub fn slowest_time_constant_ms(
     parent: &[u32],
     g_ns: &[f64],

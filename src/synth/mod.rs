@@ -153,21 +153,12 @@ impl Cell {
 
     /// Appends a point and returns its id.
     fn push(&mut self, kind: i32, pos: [f64; 3], radius: f64, parent: i64) -> i64 {
-        let id = self.pts.len() as i64 + 1;
         let (pos, radius) = if self.round {
             (pos.map(round3), round3(radius))
         } else {
             (pos, radius)
         };
-        self.pts.push(SwcPoint {
-            id,
-            kind,
-            pos,
-            radius: Some(radius),
-            parent,
-            line: id as usize,
-        });
-        id
+        SwcPoint::append(&mut self.pts, kind, pos, radius, parent)
     }
 
     fn pos(&self, id: i64) -> [f64; 3] {
