@@ -113,9 +113,8 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
     }
     for b in budgets {
         let mut tree = red.tree(b);
-        if ropts.capacitance == CapacitanceRule::Timed {
-            fid.polish(&mut tree).map_err(|e| e.to_string())?;
-        }
+        fid.apply_capacitance_rule(&mut tree)
+            .map_err(|e| e.to_string())?;
         let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let (site_rows, _) = fid.sites(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let floor = ttp_partition_floor(&site_rows, tree.len());

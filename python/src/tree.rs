@@ -517,7 +517,8 @@ pub fn reduce(
         let fidelity = if capacitance == CapacitanceRule::Timed {
             let o = FidelityOptions::default();
             let f = Fidelity::new(&reducer, &o).map_err(|e| format!("{name}: {e}"))?;
-            f.polish(&mut tree).map_err(|e| format!("{name}: {e}"))?;
+            f.apply_capacitance_rule(&mut tree)
+                .map_err(|e| format!("{name}: {e}"))?;
             Some((o, Arc::new(f)))
         } else {
             None

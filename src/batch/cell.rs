@@ -6,7 +6,7 @@ use crate::cable::prepare;
 use crate::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
 use crate::fidelity::{Fidelity, FidelityReport};
 use crate::morphology::Morphology;
-use crate::reduce::{CapacitanceRule, Reducer};
+use crate::reduce::Reducer;
 use crate::synapses::{SynapseJson, SynapseMap, table_for_cell};
 use std::path::Path;
 use std::time::Instant;
@@ -127,9 +127,7 @@ fn fidelity_for(
         return Ok(None);
     };
     let f = Fidelity::new(reducer, o)?;
-    if settings.capacitance == CapacitanceRule::Timed {
-        f.polish(tree)?;
-    }
+    f.apply_capacitance_rule(tree)?;
     Ok(Some(f.report(tree, Some(m))?))
 }
 

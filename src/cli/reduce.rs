@@ -126,8 +126,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         junction_length_fraction: a.junction_fraction,
         capacitance: a.capacitance.into(),
     };
-    let timed = opts.capacitance == pollard::reduce::CapacitanceRule::Timed;
-    if timed && a.no_fidelity {
+    if opts.capacitance == pollard::reduce::CapacitanceRule::Timed && a.no_fidelity {
         anyhow::bail!(
             "--capacitance timed polishes the tree on the fidelity run: drop --no-fidelity"
         );
@@ -138,9 +137,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         None
     } else {
         let f = Fidelity::new(&reducer, &a.fidelity.options()).with_context(|| name.clone())?;
-        if timed {
-            f.polish(&mut tree)?;
-        }
+        f.apply_capacitance_rule(&mut tree)?;
         Some(f.report(&tree, Some(&m))?)
     };
     let report = reducer.report(&tree)?;

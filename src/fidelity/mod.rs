@@ -163,6 +163,8 @@ pub struct Fidelity {
     duration_ms: f64,
     not_peaked: usize,
     max_compartments: usize,
+    /// The reducer's capacitance rule (`Timed` trees are polished here).
+    rule: crate::reduce::CapacitanceRule,
 }
 
 /// One site's numbers (a row of the per-site table).
@@ -332,6 +334,7 @@ impl Fidelity {
             duration_ms: end,
             not_peaked,
             max_compartments: reducer.max_compartments(),
+            rule: reducer.options().capacitance,
         })
     }
 

@@ -12,7 +12,7 @@
 //! [`Fidelity::new`]), or run on trees above [`POLISH_MAX_COMPARTMENTS`].
 
 use super::{Fidelity, FidelityError};
-use crate::reduce::ReducedTree;
+use crate::reduce::{CapacitanceRule, ReducedTree};
 use crate::transient::{RcNetwork, simulate};
 use rayon::prelude::*;
 
@@ -44,6 +44,19 @@ pub struct PolishSummary {
 }
 
 impl Fidelity {
+    /// Finishes a tree of this fidelity's reducer by its capacitance rule: polishes it when the
+    /// rule is `Timed` (returning what the polish did), leaves it as built otherwise.
+    pub fn apply_capacitance_rule(
+        &self,
+        tree: &mut ReducedTree,
+    ) -> Result<Option<PolishSummary>, FidelityError> {
+        if self.rule == CapacitanceRule::Timed {
+            self.polish(tree).map(Some)
+        } else {
+            Ok(None)
+        }
+    }
+
     /// Polishes `tree`'s capacitances in the time domain (see the module documentation). Trees
     /// of one compartment or above [`POLISH_MAX_COMPARTMENTS`] are left as they are; a tree
     /// from another reducer (its site count differs) is refused, as [`Fidelity::sites`] does.
