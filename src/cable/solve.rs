@@ -110,6 +110,22 @@ impl<T: Scalar> TreeFactor<T> {
         }
     }
 
+    /// The same tree with new shunts (series admittances and parents kept): eliminates again in
+    /// place, no allocation. The result equals [`TreeFactor::new`] with these shunts, bit for bit.
+    /// Panics if `shunt` has the wrong length.
+    pub fn refactor(&mut self, shunt: &[T]) {
+        check_shape(&self.parent, &self.g, shunt);
+        self.d.copy_from_slice(shunt);
+        eliminate::<T, false>(
+            &self.parent,
+            &self.g,
+            &mut self.d,
+            &mut self.down,
+            &mut self.inv,
+            &mut [],
+        );
+    }
+
     /// x = A⁻¹·rhs in O(N), in place, no allocation: the upward pass folds each node's current
     /// into its parent (weight down_k), then V_0 = I'_0/D_0 and V_k = I'_k/(g_k + D_k) +
     /// down_k·V_p on the way down (Hines 1984). Panics if `rhs` has the wrong length.

@@ -83,31 +83,30 @@ pub(super) fn place_leaves(
             leaves.push(l);
         }
     }
-    let site_leaf: Vec<(u32, u32, f64)> = sites
-        .iter()
-        .filter(|&&(_, w)| w > 0.0)
-        .filter_map(|&(x, w)| {
-            let i = lid[rep[sk.section_of[x as usize] as usize] as usize];
-            (i != NONE).then_some((i, x, w))
-        })
-        .collect();
-    let target = leaf_targets(a, sk, &leaves, region, &site_leaf);
-    // the site with the smallest ln A at or above the target, and the highest, per leaf
-    let mut best = vec![NONE; leaves.len()];
-    let mut top = vec![NONE; leaves.len()];
-    for &(i, x, _) in &site_leaf {
-        let (i, xa) = (i as usize, a[x as usize]);
-        if xa >= target[i] && (best[i] == NONE || xa < a[best[i] as usize]) {
-            best[i] = x;
-        }
-        if top[i] == NONE || xa > a[top[i] as usize] {
-            top[i] = x;
-        }
-    }
+    let groups = LeafSites::new(a, leaves.len(), sites, |x| {
+        lid[rep[sk.section_of[x] as usize] as usize]
+    });
+    let target = leaf_targets(a, sk, &leaves, region, &groups);
     let mut place: Vec<u32> = (0..n as u32).collect();
     for (i, &l) in leaves.iter().enumerate() {
         let t = target[i];
-        let mut u = if best[i] != NONE { best[i] } else { top[i] } as usize;
+        // the site with the smallest ln A at or above the target, else the highest (the first
+        // such in site order)
+        let (mut best, mut top) = ((NONE, f64::INFINITY), (NONE, f64::NEG_INFINITY));
+        for (&x, &xa) in groups
+            .leaf(&groups.node, i)
+            .iter()
+            .zip(groups.leaf(&groups.lna, i))
+        {
+            if xa >= t && (best.0 == NONE || xa < best.1) {
+                best = (x, xa);
+            }
+            if top.0 == NONE || xa > top.1 {
+                top = (x, xa);
+            }
+        }
+        let (best, top) = (best.0, top.0);
+        let mut u = if best != NONE { best } else { top } as usize;
         // walk up while the parent is still at or above the target and inside the region
         loop {
             let p = fine.parent[u] as usize;
@@ -125,75 +124,130 @@ pub(super) fn place_leaves(
     place
 }
 
+/// The sites (weight > 0) of each leaf to place, grouped by leaf and in site order within a
+/// leaf (a stable counting sort), so each leaf's passes read two short contiguous runs.
+struct LeafSites {
+    /// Leaf i's sites are `start[i]..start[i + 1]`.
+    start: Vec<usize>,
+    node: Vec<u32>,
+    lna: Vec<f64>,
+    w: Vec<f64>,
+}
+
+impl LeafSites {
+    /// `leaf_of(x)` is the leaf number of fine node x, or NONE.
+    fn new(a: &[f64], leaves: usize, sites: &[(u32, f64)], leaf_of: impl Fn(usize) -> u32) -> Self {
+        let of: Vec<u32> = sites
+            .iter()
+            .map(|&(x, w)| if w > 0.0 { leaf_of(x as usize) } else { NONE })
+            .collect();
+        let mut start = vec![0usize; leaves + 1];
+        for &i in of.iter().filter(|&&i| i != NONE) {
+            start[i as usize + 1] += 1;
+        }
+        for i in 0..leaves {
+            start[i + 1] += start[i];
+        }
+        let m = start[leaves];
+        let mut next = start.clone();
+        let (mut node, mut lna, mut w) = (vec![0u32; m], vec![0.0; m], vec![0.0; m]);
+        for (&(x, wx), &i) in sites.iter().zip(&of) {
+            if i != NONE {
+                let j = next[i as usize];
+                next[i as usize] += 1;
+                (node[j], lna[j], w[j]) = (x, a[x as usize], wx);
+            }
+        }
+        LeafSites {
+            start,
+            node,
+            lna,
+            w,
+        }
+    }
+
+    fn leaf<'a, T>(&self, v: &'a [T], i: usize) -> &'a [T] {
+        &v[self.start[i]..self.start[i + 1]]
+    }
+}
+
 /// The DC log attenuation each leaf should sit at. A leaf's sites are served by the leaf or by
 /// its parent, whichever is closer in ln A, so the best level is the weighted mean of the sites
 /// the leaf itself serves: a one-dimensional two-centre k-means with one centre fixed at the
-/// parent (Lloyd 1982), started from the mean of all the region's sites. `site_leaf` holds
-/// (leaf number, fine node, weight) per site of a leaf in `leaves`.
+/// parent (Lloyd 1982), started from the mean of all the region's sites, at most six steps.
+/// Each leaf iterates on its own sites only, until its level stops moving.
 fn leaf_targets(
     a: &[f64],
     sk: &Skeleton,
     leaves: &[usize],
     region: &[Moments],
-    site_leaf: &[(u32, u32, f64)],
+    groups: &LeafSites,
 ) -> Vec<f64> {
-    let mut t: Vec<f64> = leaves.iter().map(|&l| region[l].mean).collect();
-    let parent_level: Vec<f64> = leaves
+    leaves
         .iter()
-        .map(|&l| {
+        .enumerate()
+        .map(|(i, &l)| {
             let p = sk.rparent[l];
-            if p == NONE { 0.0 } else { a[p as usize] }
+            let parent_level = if p == NONE { 0.0 } else { a[p as usize] };
+            let (lna, ws) = (groups.leaf(&groups.lna, i), groups.leaf(&groups.w, i));
+            let mut t = region[l].mean;
+            for _ in 0..6 {
+                // plain weighted sums (Σw, Σw·lnA), branch-free: adding 0 changes no sum
+                let (mut w, mut wx) = (0.0, 0.0);
+                for (&xa, &wi) in lna.iter().zip(ws) {
+                    let on = if (xa - t).abs() < (xa - parent_level).abs() {
+                        1.0
+                    } else {
+                        0.0
+                    };
+                    w += wi * on;
+                    wx += wi * xa * on;
+                }
+                if w > 0.0 && t != wx / w {
+                    t = wx / w;
+                } else {
+                    break;
+                }
+            }
+            t
         })
-        .collect();
-    // plain weighted sums (Σw, Σw·lnA): no division per site, so the pass is memory-bound
-    let lna: Vec<f64> = site_leaf.iter().map(|&(_, x, _)| a[x as usize]).collect();
-    let mut acc = vec![(0.0, 0.0); leaves.len()];
-    for _ in 0..6 {
-        acc.iter_mut().for_each(|m| *m = (0.0, 0.0));
-        for (&(i, _, w), &xa) in site_leaf.iter().zip(&lna) {
-            let i = i as usize;
-            if (xa - t[i]).abs() < (xa - parent_level[i]).abs() {
-                acc[i].0 += w;
-                acc[i].1 += w * xa;
-            }
-        }
-        let mut moved = false;
-        for (ti, &(w, wx)) in t.iter_mut().zip(&acc) {
-            if w > 0.0 && *ti != wx / w {
-                *ti = wx / w;
-                moved = true;
-            }
-        }
-        if !moved {
-            break;
-        }
-    }
-    t
+        .collect()
 }
 
 /// Kron reduction (Schur complement of the conductance matrix) of the fine network onto `kept`
 /// nodes whose connecting tree branches only at kept nodes. Subtrees without a kept node fold
 /// into the node they hang from (g·D/(g + D)); each path node x between kept a and b is
 /// eliminated top-down: S = g_up + g_dn + G_x, new link g_up·g_dn/S, a gains g_up·G_x/S and the
-/// next node down g_dn·G_x/S. All values stay ≥ 0. O(N).
+/// next node down g_dn·G_x/S. All values stay ≥ 0. O(N): one pass up, one pass down.
 pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
     let n = fine.len();
     let (p, g) = (&fine.parent, &fine.g);
+    // upwards: which nodes lead to a kept node (`has`), the child that leads there, the folded
+    // subtrees, and the lower end of the path through each node that leads to a kept node
     let mut has = kept.to_vec();
     let mut kept_child = vec![NONE; n];
     let mut fold = vec![0.0; n];
-    for k in (1..n).rev() {
+    let mut lower = vec![NONE; n];
+    for k in (0..n).rev() {
+        // k's children (all > k) are done
+        if kept[k] {
+            lower[k] = k as u32;
+        } else if has[k] {
+            lower[k] = lower[kept_child[k] as usize];
+        }
+        if k == 0 {
+            break;
+        }
         let q = p[k] as usize;
         if has[k] {
             has[q] = true;
             kept_child[q] = k as u32;
         } else {
-            fold[q] += g[k] * fine.d[k] / (g[k] + fine.d[k]);
+            fold[q] += fine.branch[k];
         }
     }
     let mut out = Kept {
         comp: vec![NONE; n],
-        serves: vec![NONE; n],
         ..Kept::default()
     };
     for (k, _) in kept.iter().enumerate().filter(|(_, on)| **on) {
@@ -204,13 +258,19 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
     out.parent = vec![NONE; m];
     out.g = vec![0.0; m];
     out.shunt = vec![0.0; m];
+    // downwards: the eliminations, and each node's attachment (its nearest ancestor-or-self on
+    // a path to a kept node)
     let mut top = vec![NONE; n];
     let mut grun = vec![0.0; n];
     let mut add = vec![0.0; n];
+    let mut att = Vec::with_capacity(n);
     for k in 0..n {
         if !has[k] {
+            let up = att[p[k] as usize];
+            att.push(up);
             continue;
         }
+        att.push(k as u32);
         if k > 0 && kept[p[k] as usize] {
             top[k] = p[k];
             grun[k] = g[k];
@@ -234,55 +294,55 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
             top[c] = top[k];
         }
     }
-    out.serves = serving(fine, kept, dynamics, (&has, &kept_child, &top), &out);
+    out.serves = serving(fine, kept, dynamics, Paths { lower, att, top }, &out);
     out
+}
+
+/// Per fine node, from [`kron`]'s passes: the lower end of its path to a kept node, its
+/// attachment, and the kept node at the top of its path.
+struct Paths {
+    lower: Vec<u32>,
+    att: Vec<u32>,
+    top: Vec<u32>,
 }
 
 /// For every fine node, the compartment that serves it: of the two ends of the reduced link its
 /// path hangs from (below a leaf: the leaf and its parent), the one whose DC log attenuation to
 /// the soma is closest to the node's own. `dynamics` holds, per fine node, its complex log
 /// transfer to the soma at the serving frequencies.
-fn serving(
-    fine: &Fine,
-    kept: &[bool],
-    dynamics: &[&[C64]],
-    (has, kept_child, top): (&[bool], &[u32], &[u32]),
-    out: &Kept,
-) -> Vec<u32> {
+fn serving(fine: &Fine, kept: &[bool], dynamics: &[&[C64]], paths: Paths, out: &Kept) -> Vec<u32> {
     use rayon::prelude::*;
-    let n = fine.len();
     let a = &fine.ln_att;
     // distance between two nodes: DC log attenuation to the soma (Np) plus the difference of
     // their transfer impedances to the soma (complex log) at the frequencies of a synaptic
     // potential, so a node is served by the end whose response at the soma is most like its own
+    // (|Δ| as √(re² + im²): these are logs, far from overflow, and hypot is slow)
     let score = |x: usize, c: usize| -> f64 {
         (a[x] - a[c]).abs()
             + dynamics
                 .iter()
-                // |Δ| as √(re² + im²): these are logs, far from overflow, and hypot is slow
                 .map(|lz| (lz[x] - lz[c]).norm_sqr().sqrt())
                 .sum::<f64>()
     };
-    // lower end of the path through each node that leads to a kept node
-    let mut lower = vec![NONE; n];
-    for k in (0..n).rev() {
-        if kept[k] {
-            lower[k] = k as u32;
-        } else if has[k] {
-            lower[k] = lower[kept_child[k] as usize];
-        }
-    }
-    // attachment: the nearest ancestor-or-self on a path to a kept node
-    let mut att = vec![NONE; n];
-    for k in 0..n {
-        att[k] = if has[k] {
-            k as u32
+    // whether x goes to u rather than l; with the usual two frequencies the four square roots
+    // are taken side by side (the same numbers as `score`)
+    let prefers_upper = |x: usize, u: usize, l: usize| -> bool {
+        if let [d0, d1] = dynamics {
+            let q = [
+                (d0[x] - d0[u]).norm_sqr(),
+                (d1[x] - d1[u]).norm_sqr(),
+                (d0[x] - d0[l]).norm_sqr(),
+                (d1[x] - d1[l]).norm_sqr(),
+            ]
+            .map(f64::sqrt);
+            (a[x] - a[u]).abs() + (q[0] + q[1]) <= (a[x] - a[l]).abs() + (q[2] + q[3])
         } else {
-            att[fine.parent[k] as usize]
-        };
-    }
+            score(x, u) <= score(x, l)
+        }
+    };
+    let Paths { lower, att, top } = paths;
     // the choice itself is independent per node: in parallel
-    (0..n)
+    (0..fine.len())
         .into_par_iter()
         .with_min_len(4096)
         .map(|k| {
@@ -303,7 +363,7 @@ fn serving(
             } else {
                 (top[h] as usize, lower[h] as usize)
             };
-            let pick = if u == l || score(k, u) <= score(k, l) {
+            let pick = if u == l || prefers_upper(k, u, l) {
                 u
             } else {
                 l

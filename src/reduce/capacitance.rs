@@ -15,7 +15,7 @@
 
 use super::Reducer;
 use super::build::Kept;
-use super::tree::slowest_mode;
+use super::tree::slowest_mode_with;
 use crate::cable::C64;
 use crate::cable::solve::TreeFactor;
 
@@ -120,59 +120,123 @@ struct Problem<'a> {
     slow_weight: f64,
 }
 
-impl Problem<'_> {
-    /// Objective and gradient at θ.
-    fn eval(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
-        let n = self.parent.len();
-        let mut total = 0.0;
-        for (gk, t) in grad.iter_mut().zip(theta) {
-            total += self.ridge * t * t;
-            *gk = 2.0 * self.ridge * t;
+/// The buffers of one fit, reused by every evaluation (no allocation per evaluation), and what
+/// [`Problem::value`] leaves for [`Problem::gradient`] at the same θ.
+struct Work {
+    /// Trial capacitances C_k = C0_k·e^θ_k.
+    cap: Vec<f64>,
+    shunt: Vec<C64>,
+    /// Per fit frequency: the tree factored at it, and ln Z_0c.
+    fac: Vec<TreeFactor<C64>>,
+    lz: Vec<Vec<C64>>,
+    z: Vec<C64>,
+    y: Vec<C64>,
+    /// G alone (axial and leak), for the slowest mode; fixed over the fit.
+    g_fac: TreeFactor<f64>,
+    /// The slowest mode x, xᵀCx and the penalised excess of ln(λτ).
+    mode: Vec<f64>,
+    xcx: f64,
+    excess: f64,
+}
+
+impl Work {
+    fn new(p: &Problem) -> Work {
+        let n = p.parent.len();
+        let zero = vec![C64::new(0.0, 0.0); n];
+        let g: Vec<C64> = p.g.iter().map(|&x| C64::new(x, 0.0)).collect();
+        let leak: Vec<C64> = p.leak.iter().map(|&x| C64::new(x, 0.0)).collect();
+        let fac = TreeFactor::new(p.parent, &g, &leak);
+        Work {
+            cap: vec![0.0; n],
+            shunt: zero.clone(),
+            fac: vec![fac; FIT_HZ.len()],
+            lz: vec![zero.clone(); FIT_HZ.len()],
+            z: zero.clone(),
+            y: zero,
+            g_fac: TreeFactor::new(p.parent, p.g, p.leak),
+            mode: Vec::with_capacity(n),
+            xcx: 0.0,
+            excess: 0.0,
         }
-        let mut lz = vec![C64::new(0.0, 0.0); n];
-        let mut z = vec![C64::new(0.0, 0.0); n];
-        let mut y = vec![C64::new(0.0, 0.0); n];
-        let g: Vec<C64> = self.g.iter().map(|&x| C64::new(x, 0.0)).collect();
-        let cap: Vec<f64> = (0..n).map(|k| self.c0[k] * theta[k].exp()).collect();
+    }
+}
+
+impl Problem<'_> {
+    /// Objective at θ; keeps in `wk` what [`Problem::gradient`] needs. A rejected line-search
+    /// step costs only this.
+    fn value(&self, wk: &mut Work, theta: &[f64]) -> f64 {
+        let mut total = 0.0;
+        for t in theta {
+            total += self.ridge * t * t;
+        }
+        for ((c, c0), t) in wk.cap.iter_mut().zip(&self.c0).zip(theta) {
+            *c = c0 * t.exp();
+        }
         for (fi, &f) in FIT_HZ.iter().enumerate() {
             let w = 2.0 * std::f64::consts::PI * f;
-            let shunt: Vec<C64> = (0..n).map(|k| C64::new(self.leak[k], w * cap[k])).collect();
-            let fac = TreeFactor::new(self.parent, &g, &shunt);
-            log_soma_column(&fac, &mut lz);
+            for ((s, &leak), c) in wk.shunt.iter_mut().zip(self.leak).zip(&wk.cap) {
+                *s = C64::new(leak, w * c);
+            }
+            let (fac, lz) = (&mut wk.fac[fi], &mut wk.lz[fi]);
+            fac.refactor(&wk.shunt);
+            log_soma_column(fac, lz);
+            for ((l, t), wt) in lz.iter().zip(&self.target[fi]).zip(&self.weight[fi]) {
+                total += wt * (l - t).norm_sqr();
+            }
+        }
+        total + self.slow_penalty(wk)
+    }
+
+    /// Gradient at the θ of the last [`Problem::value`] call, by one adjoint solve per frequency:
+    /// ∂Z_0c/∂C_k = −jω·Z_0k·Z_kc.
+    fn gradient(&self, wk: &mut Work, theta: &[f64], grad: &mut [f64]) {
+        let n = self.parent.len();
+        for (gk, t) in grad.iter_mut().zip(theta) {
+            *gk = 2.0 * self.ridge * t;
+        }
+        let Work {
+            cap, fac, lz, z, y, ..
+        } = wk;
+        for (fi, &f) in FIT_HZ.iter().enumerate() {
+            let w = 2.0 * std::f64::consts::PI * f;
+            let lz = &lz[fi];
             for k in 0..n {
                 let r = lz[k] - self.target[fi][k];
                 let wt = self.weight[fi][k];
-                total += wt * r.norm_sqr();
                 z[k] = lz[k].exp();
                 // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
                 y[k] = wt * r.conj() / z[k];
             }
             // y = Z·a (the network is reciprocal: Z is symmetric)
-            fac.solve_in_place(&mut y);
+            fac[fi].solve_in_place(y);
             for k in 0..n {
                 let dj = C64::new(0.0, -w * cap[k]) * z[k] * y[k];
                 grad[k] += 2.0 * dj.re;
             }
         }
-        total + self.slow_penalty(&cap, grad)
+        if wk.excess != 0.0 && wk.excess.is_finite() {
+            let (x, cap) = (&wk.mode, &wk.cap);
+            for (k, gk) in grad.iter_mut().enumerate() {
+                *gk += 2.0 * self.slow_weight * wk.excess * (-x[k] * x[k] * cap[k] / wk.xcx);
+            }
+        }
     }
 
     /// Holds the slowest time constant within SLOW_BAND of Rm·Cm, the full cell's own τ₀
-    /// (Rall 1969): a quadratic penalty on ln(λτ) outside the band; its gradient from the
-    /// eigenvalue's first-order perturbation, ∂λ/∂C_k = −λ·x_k² / xᵀCx.
-    /// `cap` holds the trial capacitances C_k = C0_k·e^θ_k, so ∂/∂θ_k = C_k·∂/∂C_k.
-    fn slow_penalty(&self, cap: &[f64], grad: &mut [f64]) -> f64 {
-        let (lam, x, xcx) = slowest_mode(self.parent, self.g, self.leak, cap, SLOW_STEPS, 0.0);
+    /// (Rall 1969): a quadratic penalty on ln(λτ) outside the band; its gradient (in
+    /// [`Problem::gradient`]) from the eigenvalue's first-order perturbation,
+    /// ∂λ/∂C_k = −λ·x_k² / xᵀCx, and ∂/∂θ_k = C_k·∂/∂C_k.
+    fn slow_penalty(&self, wk: &mut Work) -> f64 {
+        let (lam, xcx) =
+            slowest_mode_with(&wk.g_fac, self.leak, &wk.cap, SLOW_STEPS, 0.0, &mut wk.mode);
         let d = (lam * self.tau_s).ln();
         let band = SLOW_BAND.ln_1p();
-        let excess = d.signum() * (d.abs() - band).max(0.0);
-        if excess == 0.0 || !excess.is_finite() {
+        wk.excess = d.signum() * (d.abs() - band).max(0.0);
+        wk.xcx = xcx;
+        if wk.excess == 0.0 || !wk.excess.is_finite() {
             return 0.0;
         }
-        for (k, gk) in grad.iter_mut().enumerate() {
-            *gk += 2.0 * self.slow_weight * excess * (-x[k] * x[k] * cap[k] / xcx);
-        }
-        self.slow_weight * excess * excess
+        self.slow_weight * wk.excess * wk.excess
     }
 }
 
@@ -264,7 +328,9 @@ fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
     let clamp = |v: &mut [f64]| v.iter_mut().for_each(|x| *x = x.clamp(-8.0, 8.0));
     let mut x = vec![0.0; n];
     let mut g = vec![0.0; n];
-    let mut f = prob.eval(&x, &mut g);
+    let mut wk = Work::new(prob);
+    let mut f = prob.value(&mut wk, &x);
+    prob.gradient(&mut wk, &x, &mut g);
     let f0 = f;
     let mut s_hist: Vec<Vec<f64>> = Vec::new();
     let mut y_hist: Vec<Vec<f64>> = Vec::new();
@@ -311,8 +377,9 @@ fn lbfgs(prob: &Problem, n: usize, iters: usize) -> Vec<f64> {
                 .zip(&q)
                 .for_each(|((a, b), c)| *a = b - step * c);
             clamp(&mut xn);
-            fnew = prob.eval(&xn, &mut gn);
+            fnew = prob.value(&mut wk, &xn);
             if fnew.is_finite() && fnew <= f + 1e-4 * step * slope {
+                prob.gradient(&mut wk, &xn, &mut gn);
                 ok = true;
                 break;
             }

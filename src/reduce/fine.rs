@@ -34,6 +34,8 @@ pub(super) struct Fine {
     pub nkids: Vec<u8>,
     /// Subtree conductance D_k seen at k (S).
     pub d: Vec<f64>,
+    /// What k's whole branch presents at its parent, g_k·D_k/(g_k + D_k) (S); 0 at the soma.
+    pub branch: Vec<f64>,
     /// DC log attenuation to the soma, ln(Z_kk/Z_k0) (Np); additive along paths:
     /// ln A_k = ln A_parent + ln(1 + P_k/g_k) (Zador, Agmon-Snir & Segev 1995).
     pub ln_att: Vec<f64>,
@@ -214,6 +216,15 @@ pub(super) fn build(kept: &Flat, params: &Params, fraction: f64) -> Result<Fine,
     }
     let maps = TreeMaps::new(&f.parent, &f.g, &f.shunt);
     f.d = maps.subtree_admittance().to_vec();
+    f.branch = (0..f.len())
+        .map(|k| {
+            if k == 0 {
+                0.0
+            } else {
+                f.g[k] * f.d[k] / (f.g[k] + f.d[k])
+            }
+        })
+        .collect();
     f.ln_att = maps.ln_attenuations_to_soma();
     Ok(f)
 }

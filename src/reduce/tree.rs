@@ -138,8 +138,24 @@ pub(super) fn slowest_mode(
     steps: usize,
     tol: f64,
 ) -> (f64, Vec<f64>, f64) {
-    let n = parent.len();
     let fac = TreeFactor::new(parent, g, leak);
+    let mut x = Vec::new();
+    let (lam, xcx) = slowest_mode_with(&fac, leak, cap, steps, tol, &mut x);
+    (lam, x, xcx)
+}
+
+/// [`slowest_mode`] with G already factored (`fac`: series g, shunts `leak`) and the mode
+/// written into `x` (resized to the tree): what the capacitance fit calls once per evaluation.
+/// Returns λ and xᵀCx.
+pub(super) fn slowest_mode_with(
+    fac: &TreeFactor<f64>,
+    leak: &[f64],
+    cap: &[f64],
+    steps: usize,
+    tol: f64,
+    x: &mut Vec<f64>,
+) -> (f64, f64) {
+    let (n, parent, g) = (fac.len(), fac.parent(), fac.series());
     let rayleigh = |x: &[f64]| {
         let mut xgx: f64 = (0..n).map(|k| leak[k] * x[k] * x[k]).sum();
         for k in 1..n {
@@ -149,21 +165,22 @@ pub(super) fn slowest_mode(
         let xcx: f64 = (0..n).map(|k| cap[k] * x[k] * x[k]).sum();
         (xgx / xcx.max(1e-300), xcx)
     };
-    let mut x = vec![1.0; n];
-    let (mut lam, mut xcx) = rayleigh(&x);
+    x.clear();
+    x.resize(n, 1.0);
+    let (mut lam, mut xcx) = rayleigh(x);
     for _ in 0..steps {
         x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
-        fac.solve_in_place(&mut x);
+        fac.solve_in_place(x);
         let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
         x.iter_mut().for_each(|v| *v /= norm);
-        let (next, next_xcx) = rayleigh(&x);
+        let (next, next_xcx) = rayleigh(x);
         let moved = ((next - lam) / next).abs();
         (lam, xcx) = (next, next_xcx);
         if moved < tol {
             break;
         }
     }
-    (lam, x, xcx)
+    (lam, xcx)
 }
 
 /// The slowest time constant (ms) of any RC tree given parents-first (conductances in nS,

@@ -195,6 +195,25 @@ fn real_random_trees_match_a_dense_solve_in_f64() {
 }
 
 #[test]
+fn refactor_with_new_shunts_solves_the_new_matrix() {
+    // factor one tree, then refactor it with other shunts: the solve must be the dense solve of
+    // the new matrix (nalgebra), as if the factor had been built fresh
+    let (p, g, s) = random_tree(40, 21, true);
+    let (_, _, s2) = random_tree(40, 22, true);
+    let mut f = TreeFactor::new(&p, &g, &s);
+    f.refactor(&s2);
+    let inv = dense(&p, &g, &s2, &|_| true).try_inverse().expect("regular");
+    let b: Vec<C64> = (0..p.len()).map(|k| C64::new(k as f64 % 5.0 - 2.0, 0.5)).collect();
+    let mut x = b.clone();
+    f.solve_in_place(&mut x);
+    let want = &inv * DMatrix::from_column_slice(p.len(), 1, &b);
+    for k in 0..p.len() {
+        assert!(close(x[k], want[(k, 0)], 1e-10), "node {k}");
+    }
+    assert!(close(f.root_admittance(), C64::new(1.0, 0.0) / inv[(0, 0)], 1e-10));
+}
+
+#[test]
 fn empty_and_single_node() {
     let f = TreeFactor::<f64>::new(&[], &[], &[]);
     assert!(f.is_empty());
