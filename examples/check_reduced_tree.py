@@ -12,7 +12,9 @@ Checks (exit status 1 if any fails):
   3. the feed-forward form: for random injected currents I, the soma voltage of the dense solve
      equals (sum_k I_k * prod of w along k's path to the root) / Y_root;
   4. the slowest time constant (smallest eigenvalue of C^-1 G) equals tau = Rm*Cm (uniform
-     capacitances), or lies within 10 % of it from 15 compartments on (fitted capacitances).
+     capacitances), lies within 5 % of it (fitted: held within 2 % by the fit, up to 4.5 %
+     measured) or within 12 % (timed, the default: held within ~10 %, 18.2-22.2 ms measured
+     for 20 ms on the real cells).
 
 Needs numpy only. Units in the file: nS, pF, um; 1/nS = 1 GOhm = 1000 MOhm; nS/pF = 1/ms.
 """
@@ -143,14 +145,14 @@ def main(path):
     rel_tau = abs(tau_slow - tau) / tau
     print(f"slowest time constant {tau_slow:.9g} ms, tau = {tau} ms (rel {rel_tau:.2e})")
     # uniform capacitances (C = tau x leak) keep tau exactly; fitted ones are held within 5 %
-    # of it (README, "How the reduction works")
+    # of it, timed ones (the default) within 12 % (README, "How the reduction works")
     rule = doc["parameters"].get("capacitance", "uniform")
     if rule == "uniform" and rel_tau > 1e-6:
         errors += fail("the slowest time constant is not tau")
     elif rule == "fitted" and rel_tau > 0.05:
         errors += fail("the slowest time constant is more than 5 % from tau")
-    elif rule == "timed" and rel_tau > 0.15:
-        errors += fail("the slowest time constant is more than 15 % from tau")
+    elif rule == "timed" and rel_tau > 0.12:
+        errors += fail("the slowest time constant is more than 12 % from tau")
     reported = doc["report"].get("slowest_time_constant_ms")
     if reported is not None and abs(reported - tau_slow) > 1e-6 * tau_slow:
         errors += fail(f"the report's slowest time constant {reported} ms is not {tau_slow} ms")

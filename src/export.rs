@@ -141,7 +141,8 @@ struct Parameters<'a> {
     types_kept: Option<&'a [i32]>,
     sites: &'static str,
     junction_length_fraction: f64,
-    /// How the capacitances were chosen (`fitted` or `uniform`).
+    /// How the capacitances were chosen (`timed`, `fitted` or `uniform`): the reducer's rule, which
+    /// callers build as `fitted` when they cannot polish (no fidelity run).
     capacitance: crate::reduce::CapacitanceRule,
     compartments_requested: usize,
     compartments: usize,

@@ -815,3 +815,108 @@ fn traces_on_a_large_cell_have_short_labels_and_no_peak_error_for_a_rising_trace
     assert!(h.query_by_label_contains("peak: reduced").is_none());
     h.get_by_label_contains("no peak to compare: both soma traces are still rising at 10 ms");
 }
+
+#[test]
+fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_follow() {
+    use pollard::fidelity::{
+        Fidelity, FidelityOptions, TraceOptions, UntilPeaked, reduced_tree_traces,
+    };
+    use pollard::reduce::{CapacitanceRule, ReduceOptions, Reducer};
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    // reference: the library's reducer with the fitted rule, and its tree polished as
+    // `pollard reduce` polishes (default fidelity options)
+    let (fitted, timed) = {
+        let s = h.state().state.as_ref().unwrap();
+        assert_eq!(
+            s.capacitance,
+            CapacitanceRule::Timed,
+            "timed is the default"
+        );
+        let opts = ReduceOptions {
+            capacitance: CapacitanceRule::Fitted,
+            ..ReduceOptions::default()
+        };
+        let r = Reducer::new(&s.model.flat, &s.params, &opts).unwrap();
+        let fitted = r.tree(15);
+        let mut timed = fitted.clone();
+        Fidelity::new(&r, &FidelityOptions::default())
+            .unwrap()
+            .polish(&mut timed)
+            .unwrap();
+        (fitted, timed)
+    };
+    let caps = |t: &pollard::reduce::ReducedTree| -> Vec<f64> {
+        t.compartments.iter().map(|c| c.capacitance_pf).collect()
+    };
+    let conductances = |t: &pollard::reduce::ReducedTree| -> Vec<(f64, f64)> {
+        t.compartments
+            .iter()
+            .map(|c| (c.g_axial_ns, c.g_leak_ns))
+            .collect()
+    };
+    assert_ne!(caps(&timed), caps(&fitted), "the polish moves capacitances");
+    h.get_by_role_and_label(egui::Role::Slider, "Compartments")
+        .set_value_accesskit(15.0);
+    h.run_steps(1);
+    {
+        // at once: the fitted tree, not yet finished
+        let r = h.state().state.as_ref().unwrap().reduced.as_ref().unwrap();
+        assert!(!r.finished);
+        assert_eq!(caps(&r.tree), caps(&fitted));
+    }
+    h.run_steps(1);
+    h.get_by_label_contains("timing polish");
+    // poll until the polish arrives (the test's own loop, at most a minute)
+    let start = std::time::Instant::now();
+    while !h
+        .state()
+        .state
+        .as_ref()
+        .unwrap()
+        .reduced
+        .as_ref()
+        .unwrap()
+        .finished
+    {
+        assert!(start.elapsed().as_secs() < 60, "the polish never arrived");
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        h.run_steps(1);
+    }
+    settle(&mut h);
+    assert!(h.query_by_label_contains("timing polish").is_none());
+    let s = h.state().state.as_ref().unwrap();
+    let shown = &s.reduced.as_ref().unwrap().tree;
+    assert_eq!(conductances(shown), conductances(&fitted));
+    assert_ne!(caps(shown), caps(&fitted));
+    assert_eq!(caps(shown), caps(&timed));
+    // the traces shown are the polished tree's: the reduced half against the library's own run
+    // of the reference timed tree (and not the fitted one's)
+    let tr = h.state().traces.shown.as_ref().expect("traces are shown");
+    assert_eq!(tr.budget, 15);
+    let o = h.state().traces.opts;
+    let o = TraceOptions {
+        until_peaked: o.until_peaked.map(|u| UntilPeaked {
+            min_ms: u.min_ms.max(tr.full.end_ms()),
+            ..u
+        }),
+        ..o
+    };
+    let input = pollard::app::traces::INPUT;
+    let (_, want) = reduced_tree_traces(&timed, tr.point, &input, &o).unwrap();
+    let (_, other) = reduced_tree_traces(&fitted, tr.point, &input, &o).unwrap();
+    assert_eq!(tr.reduced.soma_mv, want.soma_mv);
+    assert_ne!(tr.reduced.soma_mv, other.soma_mv);
+    h.get_by_label_contains("peak: reduced");
+
+    // the rule is a choice: fitted shows the reducer's tree, finished at once
+    h.get_by_label("fitted").click();
+    h.run_steps(1);
+    settle(&mut h);
+    let s = h.state().state.as_ref().unwrap();
+    assert_eq!(s.capacitance, CapacitanceRule::Fitted);
+    let r = s.reduced.as_ref().unwrap();
+    assert!(r.finished);
+    assert_eq!(caps(&r.tree), caps(&fitted));
+    assert!(h.state().error.is_none(), "{:?}", h.state().error);
+}

@@ -738,7 +738,7 @@ fn timed_capacitances_are_a_setting_and_keep_the_conductances() {
             .unwrap()
             .to_string()
     };
-    assert_eq!(run(&[]), (3, 0));
+    assert_eq!(run(&["--capacitance", "fitted"]), (3, 0));
     assert_eq!(rule(), "fitted");
     let fitted_bytes = std::fs::read(out.join("c1.json")).unwrap();
     let (ga, gl, cf) = (
@@ -746,8 +746,8 @@ fn timed_capacitances_are_a_setting_and_keep_the_conductances() {
         trees("g_leak_ns"),
         trees("capacitance_pf"),
     );
-    // another rule is another setting: every cell is redone, then reused
-    assert_eq!(run(&["--capacitance", "timed"]), (3, 0));
+    // another rule is another setting: every cell is redone, then reused; the default is timed
+    assert_eq!(run(&[]), (3, 0));
     assert_eq!(rule(), "timed");
     assert_eq!(run(&["--capacitance", "timed"]), (0, 3));
     // reference: the fitted run's trees; the polish changes capacitances only
@@ -793,4 +793,20 @@ fn timed_capacitances_are_a_setting_and_keep_the_conductances() {
     assert_eq!(err.trim().lines().count(), 1, "{err}");
     assert!(err.contains("--no-fidelity"), "{err}");
     assert!(!out2.join("c0.json").exists());
+    // the default without it: fitted, said on stderr and recorded in every tree
+    let (code, err) = pollard(&[
+        "batch",
+        s(&input),
+        "--out-dir",
+        s(&out2),
+        "-n",
+        "15",
+        "--no-fidelity",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains("capacitances fitted, not timed"), "{err}");
+    let doc: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out2.join("c1.json")).unwrap()).unwrap();
+    assert_eq!(doc["parameters"]["capacitance"], "fitted");
+    assert_eq!(column(&out2.join("c1.json"), "capacitance_pf"), cf[1]);
 }

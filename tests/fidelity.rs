@@ -232,8 +232,9 @@ fn time_domain_polish_keeps_dc_and_brings_the_sites_timing_closer() {
     // every DC relation, stay bit-for-bit those of the fitted tree. Its purpose, checked here on
     // the per-site rows of the report (one run of each tree; not the polish's own objective):
     // the sites' squared log time-to-peak errors fall, the soma's own EPSP stays within 3 %,
-    // and the slowest time constant stays within 15 % of Rm·Cm (the slowest mode of a uniform
-    // membrane is Rm·Cm; Rall 1969).
+    // and the slowest time constant stays within 12 % of Rm·Cm (the slowest mode of a uniform
+    // membrane is Rm·Cm; Rall 1969): the polish holds it within ~10 %, 18.2–22.2 ms measured
+    // for 20 ms on the real cells (the fitted rule's 2 % is checked in tests/reduce_cells.rs).
     let o = FidelityOptions::default();
     for s in pollard::samples::SAMPLES {
         let m = Morphology::parse(s.text, s.file_name).unwrap();
@@ -269,7 +270,7 @@ fn time_domain_polish_keeps_dc_and_brings_the_sites_timing_closer() {
         );
         let tau = timed.slowest_time_constant_ms();
         assert!(
-            (tau / Params::default().tau_ms() - 1.0).abs() < 0.15,
+            (tau / Params::default().tau_ms() - 1.0).abs() < 0.12,
             "{}: τ {tau}",
             s.name
         );

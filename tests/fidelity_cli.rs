@@ -206,3 +206,45 @@ fn trace_and_fidelity_errors_are_one_line() {
         assert!(e.contains(needle), "{args:?}: {e}");
     }
 }
+
+#[test]
+fn trace_and_fidelity_polish_the_default_tree_as_reduce_does() {
+    let dir = tempfile::tempdir().unwrap();
+    let cell = manifest("sample_cells/practice_stellate.swc");
+    let c = cell.to_str().unwrap();
+    let json = |args: &[&str], out: &Path| -> serde_json::Value {
+        let o = pollard(args);
+        assert!(o.status.success(), "{args:?}: {}", text(&o.stderr));
+        serde_json::from_str(&std::fs::read_to_string(out).unwrap()).unwrap()
+    };
+    let tr = dir.path().join("tr.json");
+    let t = tr.to_str().unwrap();
+    let base = [
+        "trace",
+        c,
+        "-n",
+        "15",
+        "--injection-point",
+        "103",
+        "--out",
+        t,
+    ];
+    let timed = json(&base, &tr);
+    let fitted = json(&[&base[..], &["--capacitance", "fitted"]].concat(), &tr);
+    assert_eq!(timed["capacitance"], "timed");
+    assert_eq!(fitted["capacitance"], "fitted");
+    // the same cell, another reduced tree: only the reduced side moves
+    assert_eq!(timed["soma_full_mv"], fitted["soma_full_mv"]);
+    assert_ne!(timed["soma_reduced_mv"], fitted["soma_reduced_mv"]);
+    // reference: `pollard reduce`'s own fidelity summary of its default (timed) tree
+    let fi = dir.path().join("sites.json");
+    let f = fi.to_str().unwrap();
+    let sites = json(&["fidelity", c, "-n", "15", "--out", f], &fi);
+    assert_eq!(sites["capacitance"], "timed");
+    let tree = dir.path().join("tree.json");
+    let reduced = json(
+        &["reduce", c, "-n", "15", "--out", tree.to_str().unwrap()],
+        &tree,
+    );
+    assert_eq!(sites["summary"], reduced["fidelity"]);
+}

@@ -156,7 +156,7 @@ def reduce(
     cm: float = 1.0,
     impedance_freq: float = 100.0,
     junction_fraction: float = 1e-4,
-    capacitance: str = "fitted",
+    capacitance: str = "timed",
     scale: Optional[float] = None,
     default_diameter: Optional[float] = None,
     synapses: Optional[PathLike] = None,
@@ -166,9 +166,10 @@ def reduce(
     """Reduces a cell to a strict binary tree of `compartments` compartments (odd; an even
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
     (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
-    `capacitance`: "fitted" (to the cell's transfer impedances), "timed" (fitted, then polished
-    on the sites' EPSP peaks and times to peak, as `pollard reduce --capacitance timed`; runs
-    the full cell once, which `fidelity` and `to_json` then reuse) or "uniform" (C = Rm·Cm·G);
+    `capacitance`: "timed" (the default: fitted, then polished on the sites' EPSP peaks and
+    times to peak, as `pollard reduce`; runs the full cell once, which `fidelity` and `to_json`
+    then reuse; slowest time constant within about 10 % of Rm·Cm), "fitted" (to the cell's
+    transfer impedances only; within 2 %) or "uniform" (C = Rm·Cm·G, exactly Rm·Cm);
     `synapses`: a synapse table (CSV: input, swc_id or x,y,z in the cell's units, weight),
     snapped as `pollard reduce --synapses` does (`snap_limit` µm, `skip_far`); its synapses
     are the sites and `ReducedTree.synapse_matrix()` gives the input × compartment matrix."""

@@ -437,7 +437,7 @@ fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
 /// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
 /// command `pollard reduce`).
 #[pyfunction]
-#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="fitted", scale=None, default_diameter=None, synapses=None, snap_limit=pollard::synapses::DEFAULT_SNAP_LIMIT_UM, skip_far=false))]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="timed", scale=None, default_diameter=None, synapses=None, snap_limit=pollard::synapses::DEFAULT_SNAP_LIMIT_UM, skip_far=false))]
 #[allow(clippy::too_many_arguments)]
 pub fn reduce(
     py: Python<'_>,

@@ -291,13 +291,13 @@ def test_fidelity_report_and_sites(tmp_path):
 
 
 def test_timed_capacitances_polish_the_fitted_tree_as_the_cli_does(tmp_path):
-    """capacitance="timed": the fitted tree's conductances bit for bit (the polish touches only
-    capacitances), other capacitances, and `to_json` writes `pollard reduce --capacitance timed`'s
-    bytes (reference: the command line on the same cell and budget)."""
+    """capacitance="timed" (the default): the fitted tree's conductances bit for bit (the polish
+    touches only capacitances), other capacitances, and `to_json` writes `pollard reduce
+    --capacitance timed`'s bytes (reference: the command line on the same cell and budget)."""
     cell = REPO / "sample_cells" / "practice_stellate.swc"
     path, doc = cli_tree(tmp_path, cell, 21, "--capacitance", "timed")
-    fitted = pollard.reduce(cell, compartments=21)
-    timed = pollard.reduce(cell, compartments=21, capacitance="timed")
+    fitted = pollard.reduce(cell, compartments=21, capacitance="fitted")
+    timed = pollard.reduce(cell, compartments=21)
     for name in ("g_axial_ns", "g_leak_ns", "membrane_area_um2", "parent", "children"):
         np.testing.assert_array_equal(getattr(timed, name), getattr(fitted, name))
     assert np.all(timed.capacitance_pf > 0.0)
@@ -310,6 +310,18 @@ def test_timed_capacitances_polish_the_fitted_tree_as_the_cli_does(tmp_path):
     assert mine.read_bytes() == path.read_bytes()
     with pytest.raises(pollard.PollardError, match='"fitted", "uniform" or "timed"'):
         pollard.reduce(cell, compartments=3, capacitance="slow")
+    # the slowest time constant against Rm·Cm = 20 ms (the full cell's, Rall 1969), from the
+    # tree's own matrices with numpy: fitted within 2 % (5 % tested on every cell), timed
+    # within ~10 % (measured 18.2–22.2 ms on the real cells)
+    for tree, bound in ((fitted, 0.05), (timed, 0.12)):
+        G = np.diag(tree.g_leak_ns)
+        for k in range(1, len(tree)):
+            p, g = tree.parent[k], tree.g_axial_ns[k]
+            G[[k, p], [k, p]] += g
+            G[k, p] = G[p, k] = -g
+        s = 1.0 / np.sqrt(tree.capacitance_pf)
+        slowest = 1.0 / np.linalg.eigvalsh(s[:, None] * G * s[None, :]).min()
+        assert abs(slowest / 20.0 - 1.0) < bound, (bound, slowest)
 
 
 # ---------------------------------------------------------------- synapse tables

@@ -15,6 +15,7 @@ pub mod lab;
 pub mod mesh;
 pub mod panels;
 pub mod picture;
+pub mod polish;
 pub mod reduction;
 mod saving;
 pub mod state;
@@ -57,6 +58,8 @@ pub struct StartOptions {
     pub synapse_input: Option<String>,
     /// Factor for the start file's coordinates and radii and its synapse tables' positions.
     pub scale: Option<f64>,
+    /// The capacitance rule (None: the default, `timed`).
+    pub capacitance: Option<crate::reduce::CapacitanceRule>,
 }
 
 /// Opens the window.
@@ -110,6 +113,8 @@ pub struct PollardApp {
     pub plots: PlotsPanel,
     /// The soma voltage traces for the clicked site.
     pub traces: traces::TracesView,
+    /// The `timed` rule's background polish of the shown tree.
+    pub polisher: polish::Polisher,
     pub scale: colour::Scale,
     colours: Option<colour::Colours>,
     colours_version: (u64, usize),
@@ -164,6 +169,7 @@ impl PollardApp {
             synapse_panel: synapses::SynapsePanel::default(),
             plots: PlotsPanel::default(),
             traces: traces::TracesView::default(),
+            polisher: polish::Polisher::default(),
             scale: colour::Scale::new(),
             colours: None,
             colours_version: (0, 0),
@@ -257,6 +263,7 @@ impl PollardApp {
         let cell = s.cell.clone();
         let kept = s.kept_types();
         let params = s.params;
+        let rule = s.capacitance;
         let table = synapses::on_model(s);
         self.reduced_for_table = s.synapses.as_ref().map(|l| l.id);
         let job = Job::spawn(
@@ -264,7 +271,7 @@ impl PollardApp {
             self.ctx.clone(),
             move |p| {
                 p.set("building the collapse order");
-                state::build_reduction_for(&cell, kept, &params, table)
+                state::build_reduction_for(&cell, kept, &params, table, rule)
                     .map_err(|e| anyhow::anyhow!(e))
             },
         );
@@ -277,6 +284,7 @@ impl PollardApp {
             || self.reduce_job.is_some()
             || self.pending_dialog.is_some()
             || self.traces.busy()
+            || self.polisher.busy()
     }
 
     /// Applies finished background work. Called every frame.
@@ -353,6 +361,12 @@ impl PollardApp {
         {
             self.start_reduction();
         }
+        if let Some(s) = &mut self.state {
+            self.polisher.update(s, self.ctx.clone());
+            if let Some(e) = self.polisher.error.take() {
+                self.error = Some(e);
+            }
+        }
         self.traces.poll();
         if let Some(lab_tree) = self.lab.take_send_to_main() {
             self.open_morphology(lab_tree.0, lab_tree.1);
@@ -398,6 +412,12 @@ impl PollardApp {
             s.budget = b.max(1);
             self.controls.budget = s.budget;
         }
+        let new_rule = o.capacitance.filter(|&r| r != s.capacitance);
+        if let Some(rule) = new_rule {
+            s.capacitance = rule;
+            self.start_reduction();
+        }
+        let Some(s) = &mut self.state else { return };
         if let Some(p) = &o.synapses {
             let done =
                 synapses::load(s, p).and_then(|_| synapses::select(s, o.synapse_input.as_deref()));
@@ -451,6 +471,10 @@ impl PollardApp {
                             rebuild_reduction = true;
                         }
                         Action::Budget(b) => s.set_budget(b),
+                        Action::Capacitance(rule) if rule != s.capacitance => {
+                            s.capacitance = rule;
+                            rebuild_reduction = true;
+                        }
                         Action::Kept(k, on) => {
                             s.set_kept(k, on)?;
                             rebuild_reduction = true;
@@ -564,7 +588,11 @@ impl PollardApp {
         if let Some((path, frames)) = self.png_when_ready.take() {
             let ready = self.load_job.is_none()
                 && self.reduce_job.is_none()
-                && self.state.as_ref().is_some_and(|s| s.reduced.is_some());
+                && self
+                    .state
+                    .as_ref()
+                    .and_then(|s| s.reduced.as_ref())
+                    .is_some_and(|r| r.finished);
             if ready && frames >= 3 {
                 self.dialog_answered(Purpose::SavePng, path);
             } else {

@@ -6,6 +6,7 @@ use super::files::{Purpose, RecentFiles};
 use super::state::{CellState, ColourBy, LogUnit};
 use crate::cable::Params;
 use crate::morphology::kind_name;
+use crate::reduce::CapacitanceRule;
 use eframe::egui::{self, Color32};
 use egui_plot::{Legend, Line, Plot, Points, VLine};
 use std::path::PathBuf;
@@ -30,6 +31,8 @@ pub enum Action {
     /// A drag ended: rebuild what waits on settled values.
     Settle,
     Budget(usize),
+    /// How compartments get their capacitance (the reduction is rebuilt).
+    Capacitance(CapacitanceRule),
     Kept(i32, bool),
     ColourBy(ColourBy),
     Unit(LogUnit),
@@ -233,6 +236,7 @@ impl ControlsPanel {
                 if let Some(red) = &s.reduced {
                     ui.label(format!("{} compartments drawn", red.tree.len()));
                 }
+                capacitance_choice(ui, s, out);
             }
             None => {
                 ui.add_enabled(
@@ -242,6 +246,36 @@ impl ControlsPanel {
                 ui.label(&s.reduction_note);
             }
         }
+    }
+}
+
+/// The capacitance rule, and the status line while a `timed` tree is being polished.
+fn capacitance_choice(ui: &mut egui::Ui, s: &CellState, out: &mut Vec<Action>) {
+    ui.horizontal(|ui| {
+        ui.label("Capacitances").on_hover_text(
+            "timed: fitted, then adjusted so every injection point's soma EPSP peaks when and \
+             as high as in the cell (slowest time constant within about 10 % of Rm·Cm).\n\
+             fitted: to the cell's transfer impedances (slowest time constant within 2 %).\n\
+             uniform: Rm·Cm × leak (slowest time constant exactly Rm·Cm).\n\
+             The conductances are the same under all three.",
+        );
+        for (rule, name) in [
+            (CapacitanceRule::Timed, "timed"),
+            (CapacitanceRule::Fitted, "fitted"),
+            (CapacitanceRule::Uniform, "uniform"),
+        ] {
+            if ui.selectable_label(s.capacitance == rule, name).clicked() && s.capacitance != rule {
+                out.push(Action::Capacitance(rule));
+            }
+        }
+    });
+    if s.reduced.as_ref().is_some_and(|r| !r.finished) {
+        ui.horizontal(|ui| {
+            ui.spinner();
+            ui.weak(super::polish::STATUS).on_hover_text(
+                "The fitted tree is shown meanwhile; the timed one replaces it when ready.",
+            );
+        });
     }
 }
 

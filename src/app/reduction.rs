@@ -5,10 +5,11 @@
 //! node → compartment, mean path distance, Strahler order) are added.
 
 use crate::cable::Params;
+use crate::fidelity::{Fidelity, FidelityOptions};
 use crate::morphology::{Flat, NONE};
-use crate::reduce::{ReducedTree, Reducer, Sites};
+use crate::reduce::{CapacitanceRule, ReducedTree, Reducer, Sites};
 use crate::synapses::{Snapped, SynapseJson, SynapseMap};
-use std::sync::Arc;
+use std::sync::{Arc, OnceLock};
 
 /// What drawing needs of one budget's [`ReducedTree`] besides the tree: which compartment each
 /// model node belongs to, how many model nodes each compartment stands for and their mean path
@@ -82,7 +83,9 @@ pub fn tree_disc_radii(t: &ReducedTree, view_px: f32) -> Vec<f32> {
 }
 
 /// The reduction of one model: the library's [`Reducer`] plus what its exports name (source,
-/// point ids and positions). Every budget is a replay of the reducer.
+/// point ids and positions). Every budget is a replay of the reducer. The full cell's EPSP run
+/// ([`Fidelity`], what the `timed` polish and the saved report need) is made once, on first
+/// use, and kept with it: a new membrane, new sites or new kept types make a new reduction.
 pub struct Reduction {
     reducer: Reducer,
     source: String,
@@ -90,29 +93,33 @@ pub struct Reduction {
     pos: Vec<[f64; 3]>,
     /// The synapse table whose synapses are the sites (the saved JSON gets its map).
     table: Option<Snapped>,
+    fidelity: OnceLock<Result<Arc<Fidelity>, String>>,
 }
 
-/// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), or says why
-/// it cannot.
+/// Builds the reduction of a cell keeping the neurite types in `kept` (None: all), with the
+/// library's default capacitance rule (`timed`), or says why it cannot.
 pub fn build_reduction(
     cell: &super::state::Cell,
     kept: Option<Vec<i32>>,
     params: &Params,
 ) -> Result<Arc<Reduction>, String> {
-    build_reduction_for(cell, kept, params, None)
+    build_reduction_for(cell, kept, params, None, CapacitanceRule::default())
 }
 
 /// [`build_reduction`] serving the synapses of `table` (the open table's synapses on the model,
-/// [`super::synapses::on_model`]) as its sites, as `pollard reduce --synapses` does.
+/// [`super::synapses::on_model`]) as its sites, as `pollard reduce --synapses` does, with the
+/// capacitance rule `rule` (the reducer records it; `timed` trees are polished by the caller).
 pub fn build_reduction_for(
     cell: &super::state::Cell,
     kept: Option<Vec<i32>>,
     params: &Params,
     table: Option<Snapped>,
+    rule: CapacitanceRule,
 ) -> Result<Arc<Reduction>, String> {
     let opts = crate::reduce::ReduceOptions {
         types: kept,
         sites: table.as_ref().map_or(Sites::Default, Snapped::sites),
+        capacitance: rule,
         ..Default::default()
     };
     match Reducer::new(&cell.flat, params, &opts) {
@@ -122,6 +129,7 @@ pub fn build_reduction_for(
             ids: cell.morph.points.iter().map(|p| p.id).collect(),
             pos: cell.morph.points.iter().map(|p| p.pos).collect(),
             table,
+            fidelity: OnceLock::new(),
         })),
         Err(e) => Err(format!("no reduction: {e}")),
     }
@@ -141,33 +149,64 @@ impl Reduction {
         1
     }
 
-    /// The library's tree at `budget` (a replay of the reducer's collapse order).
+    /// The library's tree at `budget` as the reducer builds it (a replay of its collapse
+    /// order; a `timed` tree still unpolished, see [`Reduction::finished_tree`]).
     pub fn tree(&self, budget: usize) -> Arc<ReducedTree> {
         Arc::new(self.reducer.tree(budget))
+    }
+
+    /// The capacitance rule of this reduction.
+    pub fn rule(&self) -> CapacitanceRule {
+        self.reducer.options().capacitance
+    }
+
+    /// The full cell's EPSP run with `pollard reduce`'s default options, made on first use and
+    /// kept (about 0.3 s on a 100,000-point cell; several threads asking at once wait for one).
+    pub fn fidelity(&self) -> anyhow::Result<Arc<Fidelity>> {
+        self.fidelity
+            .get_or_init(|| {
+                Fidelity::new(&self.reducer, &FidelityOptions::default())
+                    .map(Arc::new)
+                    .map_err(|e| e.to_string())
+            })
+            .clone()
+            .map_err(|e| anyhow::anyhow!(e))
+    }
+
+    /// `fitted`, finished by this reduction's capacitance rule: the same tree for `fitted` and
+    /// `uniform`, polished on [`Reduction::fidelity`] for `timed` (what `pollard reduce` writes
+    /// with its default fidelity options).
+    pub fn finish(&self, fitted: &ReducedTree) -> anyhow::Result<ReducedTree> {
+        let mut t = fitted.clone();
+        if self.rule() == CapacitanceRule::Timed {
+            self.fidelity()?.apply_capacitance_rule(&mut t)?;
+        }
+        Ok(t)
+    }
+
+    /// The tree at `budget` with its capacitance rule applied (blocking; the app polishes in
+    /// the background, [`super::polish`]).
+    pub fn finished_tree(&self, budget: usize) -> anyhow::Result<ReducedTree> {
+        self.finish(&self.reducer.tree(budget))
     }
 
     pub fn error_curve(&self) -> Vec<(usize, f64)> {
         self.reducer.error_curve()
     }
 
-    /// The reduced tree at `budget` as JSON text.
-    pub fn export_json(&self, budget: usize) -> anyhow::Result<String> {
-        let t = self.reducer.tree(budget);
-        let report = self.reducer.report(&t)?;
+    /// A finished tree of this reduction ([`Reduction::finished_tree`]) as JSON text.
+    pub fn export_json(&self, t: &ReducedTree) -> anyhow::Result<String> {
+        let report = self.reducer.report(t)?;
         let src = crate::export::TreeSource {
             source: &self.source,
             point_ids: &self.ids,
             point_pos: &self.pos,
         };
         // the saved file carries the same fidelity summary as `pollard reduce` writes
-        let fid = crate::fidelity::Fidelity::new(
-            &self.reducer,
-            &crate::fidelity::FidelityOptions::default(),
-        )?;
-        let fidelity = fid.report(&t, None)?;
+        let fidelity = self.fidelity()?.report(t, None)?;
         // and, with a synapse table, the same `synapses` member
         let map = match &self.table {
-            Some(s) => Some(SynapseMap::new(s, &t)?.with_curve(s, &self.reducer)?),
+            Some(s) => Some(SynapseMap::new(s, t)?.with_curve(s, &self.reducer)?),
             None => None,
         };
         let extras = crate::export::TreeExtras::<()> {
@@ -179,34 +218,32 @@ impl Reduction {
         Ok(crate::export::reduced_tree_json_with(
             &src,
             &self.reducer,
-            &t,
+            t,
             &report,
             extras,
             true,
         )?)
     }
 
-    /// The reduced tree at `budget` as a NeuroML cell (rest at the CLI's default).
-    pub fn export_neuroml(&self, budget: usize) -> anyhow::Result<String> {
-        let t = self.reducer.tree(budget);
+    /// A finished tree as a NeuroML cell (rest at the CLI's default).
+    pub fn export_neuroml(&self, t: &ReducedTree) -> anyhow::Result<String> {
         let id = crate::neuroml::cell_id_from(&self.source);
         let rest = crate::neuroml::DEFAULT_REST_MV;
         Ok(crate::neuroml::reduced_tree_neuroml(
-            &t,
+            t,
             &id,
             &self.source,
             rest,
         )?)
     }
 
-    /// The reduced tree at `budget` as SWC text.
-    pub fn export_swc(&self, budget: usize) -> anyhow::Result<String> {
-        let t = self.reducer.tree(budget);
+    /// A finished tree as SWC text.
+    pub fn export_swc(&self, t: &ReducedTree) -> anyhow::Result<String> {
         let header = vec![
             format!("reduced tree of {}: {} compartments", self.source, t.len()),
             format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
         ];
-        Ok(crate::export::reduced_tree_swc(&t, &header))
+        Ok(crate::export::reduced_tree_swc(t, &header))
     }
 }
 

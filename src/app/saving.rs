@@ -81,10 +81,13 @@ impl PollardApp {
                 let r = s.reduction.as_ref().ok_or_else(|| {
                     anyhow::anyhow!("there is no reduced tree yet ({})", s.reduction_note)
                 })?;
+                // the tree as shown once its capacitance rule is applied (a `timed` tree
+                // still being polished in the background is polished here)
+                let t = s.finished_tree()?;
                 match purpose {
-                    Purpose::SaveJson => r.export_json(s.budget)?,
-                    Purpose::SaveSwc => r.export_swc(s.budget)?,
-                    _ => r.export_neuroml(s.budget)?,
+                    Purpose::SaveJson => r.export_json(&t)?,
+                    Purpose::SaveSwc => r.export_swc(&t)?,
+                    _ => r.export_neuroml(&t)?,
                 }
                 .into_bytes()
             }

@@ -343,10 +343,18 @@ pub struct Reduced {
     pub ln_from_site: Vec<f64>,
     /// The compartment the site maps to.
     pub site_comp: Option<usize>,
+    /// The tree has its capacitance rule applied: at once for `fitted` and `uniform`; a `timed`
+    /// tree is shown fitted until its polish arrives ([`super::polish`]).
+    pub finished: bool,
 }
 
 impl Reduced {
-    fn new(tree: Arc<ReducedTree>, extras: DrawingExtras, freq_hz: f64) -> Reduced {
+    pub(super) fn new(
+        tree: Arc<ReducedTree>,
+        extras: DrawingExtras,
+        freq_hz: f64,
+        finished: bool,
+    ) -> Reduced {
         let elec = Electrical::from_maps(tree.network(freq_hz).maps());
         Reduced {
             tree,
@@ -354,10 +362,11 @@ impl Reduced {
             elec,
             ln_from_site: Vec::new(),
             site_comp: None,
+            finished,
         }
     }
 
-    fn set_site(&mut self, site_model_node: Option<usize>) {
+    pub(super) fn set_site(&mut self, site_model_node: Option<usize>) {
         self.site_comp = site_model_node
             .and_then(|k| self.extras.node_comp.get(k).copied())
             .filter(|&c| c != NONE)
@@ -403,6 +412,8 @@ pub struct CellState {
     pub colour_version: u64,
     /// The open synapse table, placed on this cell.
     pub synapses: Option<super::synapses::Layer>,
+    /// The capacitance rule the reduction is built with (default `timed`).
+    pub capacitance: crate::reduce::CapacitanceRule,
 }
 
 impl CellState {
@@ -430,6 +441,7 @@ impl CellState {
             geometry_version: fresh_version(),
             colour_version: fresh_version(),
             synapses: None,
+            capacitance: crate::reduce::CapacitanceRule::default(),
         };
         let far = s.farthest_tip();
         s.set_site(far);
@@ -477,7 +489,7 @@ impl CellState {
         self.colour_version += 1;
     }
 
-    fn site_model(&self) -> Option<usize> {
+    pub(super) fn site_model(&self) -> Option<usize> {
         self.site
             .and_then(|k| self.model.of_full.get(k).copied())
             .filter(|&m| m != NONE)
@@ -568,7 +580,8 @@ impl CellState {
             let mut extras =
                 DrawingExtras::new(&tree, &self.model.flat, &self.model.path_distance)?;
             extras.node_comp.resize(n_model, NONE);
-            Some(Reduced::new(tree, extras, self.freq_hz))
+            let finished = r.rule() != crate::reduce::CapacitanceRule::Timed;
+            Some(Reduced::new(tree, extras, self.freq_hz, finished))
         });
         let mm = self.site_model();
         if let Some(r) = &mut self.reduced {

@@ -44,8 +44,8 @@ pub const LONGEST_MS: f64 = 500.0;
 /// How many sites' full-cell traces are kept.
 const KEEP: usize = 32;
 
-/// What the traces are of: a reduction (by identity), a morphology point, a budget (and the
-/// state's tree at that budget, which the job runs).
+/// What the traces are of: a reduction (by identity), a morphology point, a budget and the
+/// state's tree at that budget (by identity), which the job runs.
 #[derive(Clone)]
 struct Key {
     reduction: Arc<Reduction>,
@@ -55,10 +55,12 @@ struct Key {
 }
 
 impl PartialEq for Key {
+    /// The same tree too: a `timed` tree's polish replaces the fitted one at the same budget.
     fn eq(&self, o: &Key) -> bool {
         Arc::ptr_eq(&self.reduction, &o.reduction)
             && self.point == o.point
             && self.budget == o.budget
+            && Arc::ptr_eq(&self.tree, &o.tree)
     }
 }
 

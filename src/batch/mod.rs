@@ -121,13 +121,18 @@ pub struct Settings {
     pub fidelity: Option<FidelityOptions>,
     /// How compartments get their capacitance; `Timed` polishes each tree on its cell's
     /// fidelity run, so it needs `fidelity`. Left out of the stored settings when `Fitted`, so
-    /// records written before this setting existed (all fitted) stay current.
-    #[serde(default, skip_serializing_if = "is_fitted")]
+    /// records written before this setting existed (all fitted) stay current; read back as
+    /// `Fitted` when absent (not as the library's default, `Timed`).
+    #[serde(default = "fitted", skip_serializing_if = "is_fitted")]
     pub capacitance: CapacitanceRule,
 }
 
 fn is_fitted(c: &CapacitanceRule) -> bool {
     *c == CapacitanceRule::Fitted
+}
+
+fn fitted() -> CapacitanceRule {
+    CapacitanceRule::Fitted
 }
 
 impl Default for Settings {
@@ -144,7 +149,7 @@ impl Default for Settings {
             junction_length_fraction: o.junction_length_fraction,
             synapses: None,
             fidelity: Some(FidelityOptions::default()),
-            capacitance: CapacitanceRule::Fitted,
+            capacitance: o.capacitance,
         }
     }
 }

@@ -53,11 +53,12 @@ pub struct Args {
     /// capacitances fitted (see --capacitance).
     #[arg(long = "impedance-freq", value_name = "HZ", default_value_t = ReduceOptions::default().freq_hz)]
     pub impedance_freq: f64,
-    /// How compartments get their capacitance, as for `pollard reduce`: `fitted` (default),
-    /// `timed` (fitted, then polished on each cell's fidelity run; refused with
-    /// --no-fidelity) or `uniform` (C = Rm·Cm × leak). Part of the settings a rerun compares.
-    #[arg(long, value_enum, default_value_t = super::reduce::Capacitance::Fitted, value_name = "RULE")]
-    pub capacitance: super::reduce::Capacitance,
+    /// How compartments get their capacitance, as for `pollard reduce`: `timed` (default;
+    /// fitted, then polished on each cell's fidelity run; with --no-fidelity the default falls
+    /// back to `fitted` and says so, an explicit `timed` is refused), `fitted` or `uniform`
+    /// (C = Rm·Cm × leak). Part of the settings a rerun compares.
+    #[arg(long, value_enum, value_name = "RULE")]
+    pub capacitance: Option<super::reduce::Capacitance>,
     /// Junction link length as a fraction of the branch point's radius.
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
@@ -220,8 +221,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             skip_far: a.snap.skip_far,
         }),
         fidelity: (!a.no_fidelity).then(|| a.fidelity.options()),
-        capacitance: a.capacitance.into(),
+        // an explicit `timed` without the fidelity run is refused by `validate`
+        capacitance: match a.capacitance {
+            Some(c) => c.into(),
+            None => super::reduce::Capacitance::rule(None, !a.no_fidelity)?,
+        },
     };
+    if a.capacitance.is_none() && a.no_fidelity {
+        eprintln!("note: {}", super::reduce::FALLBACK_NOTE);
+    }
     // a flag error would fail every cell alike: say it once, before any work
     anyhow::ensure!(
         a.snap.snap_limit.is_finite() && a.snap.snap_limit >= 0.0,

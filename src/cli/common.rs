@@ -117,6 +117,11 @@ pub struct ReduceArgs {
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
     pub junction_fraction: f64,
+    /// How compartments get their capacitance, as for `pollard reduce`: `timed` (default;
+    /// polished on the full cell's EPSP run with the default fidelity options), `fitted` or
+    /// `uniform`.
+    #[arg(long, value_enum, value_name = "RULE")]
+    pub capacitance: Option<super::reduce::Capacitance>,
 }
 
 /// One entry of `--types`: an SWC type code or its name (soma, axon, basal, apical, …).
@@ -165,6 +170,7 @@ impl ReducedCellArgs {
             types: r.types.clone(),
             sites,
             junction_length_fraction: r.junction_fraction,
+            capacitance: super::reduce::Capacitance::rule(r.capacitance, true)?,
             ..ReduceOptions::default()
         };
         let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;

@@ -3,6 +3,7 @@
 
 use pollard::export::{DocHeader, write_atomic};
 use pollard::fidelity::{Fidelity, FidelityOptions, FidelityReport, SiteFidelity, sites_csv};
+use pollard::reduce::CapacitanceRule;
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -32,6 +33,8 @@ struct Doc<'a> {
     #[serde(flatten)]
     head: DocHeader<'a>,
     options: FidelityOptions,
+    /// The capacitance rule the tree was given.
+    capacitance: CapacitanceRule,
     summary: &'a FidelityReport,
     sites: &'a [SiteFidelity],
 }
@@ -44,8 +47,10 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     opts.validate()?;
     let name = a.from.cell.display().to_string();
     let (m, reducer) = a.from.reducer()?;
-    let tree = reducer.tree(a.from.reduce.compartments);
+    let mut tree = reducer.tree(a.from.reduce.compartments);
     let fid = Fidelity::new(&reducer, &opts)?;
+    // `timed` (the default): the tree is polished on this run before it is judged
+    fid.apply_capacitance_rule(&mut tree)?;
     let (rows, _) = fid.sites(&tree, Some(&m))?;
     let summary = fid.report(&tree, Some(&m))?;
     let mut inputs = vec![a.from.cell.as_path()];
@@ -64,6 +69,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
                 *reducer.params(),
             ),
             options: opts,
+            capacitance: reducer.options().capacitance,
             summary: &summary,
             sites: &rows,
         };

@@ -8,7 +8,7 @@ use pollard::export::{
     TreeExtras, TreeSource, reduced_tree_json_with, reduced_tree_swc, write_atomic,
 };
 use pollard::fidelity::{Fidelity, FidelityReport, percent};
-use pollard::reduce::{ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
+use pollard::reduce::{CapacitanceRule, ReduceOptions, Reducer, Report, Sites, parse_sites_csv};
 use pollard::synapses::{SynapseJson, SynapseMap, synapse_csvs};
 use std::io::Write;
 use std::path::PathBuf;
@@ -66,14 +66,15 @@ pub struct Args {
     /// single-stem soma are split with links this short).
     #[arg(long = "junction-fraction", default_value_t = 1e-4, value_name = "F")]
     pub junction_fraction: f64,
-    /// How compartments get their capacitance: `fitted` (default) follows the cell's transfer
-    /// impedances to the soma, so EPSPs keep their size and timing; `timed` then polishes them
-    /// on the sites' EPSP peaks and times to peak in the time domain (better timing; slowest
-    /// time constant within about 10 % of Rm·Cm instead of 2 %; a fraction of a second more);
-    /// `uniform` sets C = Rm·Cm × leak, which keeps the slowest time constant exactly Rm·Cm.
-    /// Conductances are the same.
-    #[arg(long, value_enum, default_value_t = Capacitance::Fitted, value_name = "RULE")]
-    pub capacitance: Capacitance,
+    /// How compartments get their capacitance: `timed` (default) fits them to the cell's
+    /// transfer impedances to the soma, then polishes them on the sites' EPSP peaks and times to
+    /// peak in the time domain (slowest time constant within about 10 % of Rm·Cm; needs the
+    /// fidelity run, so with --no-fidelity the default falls back to `fitted` and says so);
+    /// `fitted` stops after the fit (slowest time constant within 2 % of Rm·Cm); `uniform` sets
+    /// C = Rm·Cm × leak, which keeps the slowest time constant exactly Rm·Cm. Conductances are
+    /// the same.
+    #[arg(long, value_enum, value_name = "RULE")]
+    pub capacitance: Option<Capacitance>,
     /// Where to write the reduced tree (JSON, see assets/reduced-tree.schema.json).
     #[arg(long, short = 'o', value_name = "TREE.json")]
     pub out: PathBuf,
@@ -124,13 +125,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         sites,
         freq_hz: a.impedance_freq,
         junction_length_fraction: a.junction_fraction,
-        capacitance: a.capacitance.into(),
+        capacitance: Capacitance::rule(a.capacitance, !a.no_fidelity)?,
     };
-    if opts.capacitance == pollard::reduce::CapacitanceRule::Timed && a.no_fidelity {
-        anyhow::bail!(
-            "--capacitance timed polishes the tree on the fidelity run: drop --no-fidelity"
-        );
-    }
     let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
     let mut tree = reducer.tree(a.compartments);
     let fidelity = if a.no_fidelity {
@@ -195,15 +191,21 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         write_atomic(path, nml.as_bytes(), &inputs)?;
     }
     let mut out = std::io::stdout().lock();
+    let fallback = a.capacitance.is_none() && a.no_fidelity;
     if a.json {
         let doc = ReportOut {
             report: &report,
+            capacitance: reducer.options().capacitance,
+            capacitance_note: fallback.then_some(FALLBACK_NOTE),
             fidelity: fidelity.as_ref(),
         };
         serde_json::to_writer_pretty(&mut out, &doc).map_err(std::io::Error::from)?;
         writeln!(out)?;
     } else {
         write_report(&mut out, &name, &report, reducer.max_compartments())?;
+        if fallback {
+            writeln!(out, "  note: {FALLBACK_NOTE}")?;
+        }
         if let (Some(s), Some(mp)) = (&snapped, &map) {
             super::synapses::write_summary(&mut out, s, mp)?;
         }
@@ -297,8 +299,16 @@ fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::
 struct ReportOut<'a> {
     #[serde(flatten)]
     report: &'a Report,
+    /// The capacitance rule the tree was actually given.
+    capacitance: CapacitanceRule,
+    /// Why it is not the one asked for (the default `timed` without the fidelity run).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    capacitance_note: Option<&'static str>,
     fidelity: Option<&'a FidelityReport>,
 }
+
+/// What the report says when `--no-fidelity` turns the default `timed` into `fitted`.
+pub const FALLBACK_NOTE: &str = "capacitances fitted, not timed: the timing polish needs the fidelity run that --no-fidelity skips";
 
 /// The fidelity lines of the text report.
 pub fn write_fidelity(w: &mut impl Write, f: &FidelityReport) -> std::io::Result<()> {
@@ -363,6 +373,22 @@ pub enum Capacitance {
     Fitted,
     Uniform,
     Timed,
+}
+
+impl Capacitance {
+    /// The rule for `--capacitance` (None: not given) when the fidelity run is (not) made: the
+    /// default `timed` needs that run and falls back to `fitted` without it; an explicit
+    /// `timed` without it is refused.
+    pub fn rule(given: Option<Capacitance>, fidelity: bool) -> anyhow::Result<CapacitanceRule> {
+        match (given, fidelity) {
+            (Some(Capacitance::Timed), false) => anyhow::bail!(
+                "--capacitance timed polishes the tree on the fidelity run: drop --no-fidelity"
+            ),
+            (Some(c), _) => Ok(c.into()),
+            (None, true) => Ok(CapacitanceRule::default()),
+            (None, false) => Ok(CapacitanceRule::Fitted),
+        }
+    }
 }
 
 impl From<Capacitance> for pollard::reduce::CapacitanceRule {

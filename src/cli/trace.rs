@@ -3,8 +3,10 @@
 
 use pollard::export::{DocHeader, write_atomic};
 use pollard::fidelity::{
-    Input, SiteRef, TraceOptions, Traces, percent, resolve_site, response_traces,
+    Fidelity, FidelityOptions, Input, SiteRef, TraceOptions, Traces, percent, resolve_site,
+    response_traces,
 };
+use pollard::reduce::CapacitanceRule;
 use pollard::transient::{PieceRule, Synapse, Waveform};
 use std::io::Write;
 use std::path::PathBuf;
@@ -142,6 +144,8 @@ struct Doc<'a> {
     schema_version: u32,
     input: Input,
     options: TraceOptions,
+    /// The capacitance rule the tree was given.
+    capacitance: CapacitanceRule,
     #[serde(flatten)]
     traces: &'a Traces,
 }
@@ -171,7 +175,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         (None, None) => anyhow::bail!("give --injection-point ID or --at X,Y,Z"),
     };
     let point = resolve_site(&m, &reducer, site)?;
-    let tree = reducer.tree(a.from.reduce.compartments);
+    let mut tree = reducer.tree(a.from.reduce.compartments);
+    // `timed` (the default): polished on the full cell's EPSP run, as `pollard reduce` does
+    if reducer.options().capacitance == CapacitanceRule::Timed {
+        Fidelity::new(&reducer, &FidelityOptions::default())?.apply_capacitance_rule(&mut tree)?;
+    }
     let input = a.input.input();
     let opts = TraceOptions {
         duration_ms: a.duration,
@@ -193,6 +201,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             schema_version: 2,
             input,
             options: opts,
+            capacitance: reducer.options().capacitance,
             traces: &tr,
         };
         write_atomic(p, serde_json::to_string_pretty(&doc)?.as_bytes(), &inputs)?;

@@ -57,6 +57,10 @@ pub struct Args {
     /// With --synapses: choose this input (its synapses are ringed on both trees).
     #[arg(long, value_name = "NAME", requires = "synapses")]
     pub input: Option<String>,
+    /// How compartments get their capacitance, as for `pollard reduce`: `timed` (default; the
+    /// fitted tree is shown at once and the polished one replaces it), `fitted` or `uniform`.
+    #[arg(long, value_enum, value_name = "RULE")]
+    pub capacitance: Option<super::reduce::Capacitance>,
 }
 
 #[cfg(feature = "gui")]
@@ -78,6 +82,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         synapses: a.synapses,
         synapse_input: a.input,
         scale: a.scale,
+        capacitance: a.capacitance.map(Into::into),
     };
     pollard::app::run_with(pollard::app::Start::File(a.cell), opts)?;
     Ok(ExitCode::SUCCESS)

@@ -140,17 +140,17 @@ pub struct ReduceOptions {
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum CapacitanceRule {
-    /// Fitted to the full cell's transfer impedances to the soma (default): the soma's own
+    /// Fitted to the full cell's transfer impedances to the soma: the soma's own
     /// EPSP and the sites' EPSPs follow the cell; the slowest time constant is close to, not
     /// exactly, Rm·Cm.
-    #[default]
     Fitted,
     /// C = τ·G_leak (τ = Rm·Cm): the slowest time constant is exactly Rm·Cm, the transients are
     /// those of the DC-exact network with that membrane.
     Uniform,
     /// `Fitted`, then polished in the time domain on the sites' EPSP peaks and times to peak
     /// (`fidelity::Fidelity::polish`, which needs the full cell's time-domain run). The reducer
-    /// itself builds the `Fitted` tree; the caller polishes it.
+    /// itself builds the `Fitted` tree; the caller polishes it. The default.
+    #[default]
     Timed,
 }
 
