@@ -24,71 +24,90 @@ pub(super) struct Kept {
     pub serves: Vec<u32>,
 }
 
-/// Replays the first `steps` collapses; returns, per retained node, whether it is alive, whether
-/// it is a leaf, and the alive node that stands for it (its representative).
-pub(super) fn replay(
-    sk: &Skeleton,
-    steps: usize,
-) -> (Vec<bool>, Vec<bool>, Vec<u32>, Vec<Moments>) {
+/// The maximal tree after the first `steps` collapses, on the retained nodes (entries of other
+/// nodes unused).
+pub(super) struct Replayed {
+    pub alive: Vec<bool>,
+    pub leaf: Vec<bool>,
+    /// The alive node that stands for each retained node (its representative).
+    pub rep: Vec<u32>,
+    /// The alive leaves other than the soma whose regions hold sites, ascending, with their
+    /// regions' sites.
+    pub leaves: Vec<(u32, Moments)>,
+}
+
+/// Replays the first `steps` collapses: O(retained nodes + steps), the regions read from the
+/// order's record.
+pub(super) fn replay(sk: &Skeleton, steps: usize) -> Replayed {
     let n = sk.retained.len();
     let mut alive = sk.retained.clone();
-    let mut leaf: Vec<bool> = sk.kids.iter().map(|k| k.is_none()).collect();
-    let mut region = sk.own.clone();
+    let mut leaf = vec![false; n];
+    for &k in &sk.rnodes {
+        leaf[k as usize] = sk.kids[k as usize].is_none();
+    }
     for &c in &sk.order[..steps] {
         let c = c as usize;
         if let Some([x, y]) = sk.kids[c] {
-            for x in [x as usize, y as usize] {
-                alive[x] = false;
-                let r = region[x];
-                region[c].merge(&r);
-            }
+            alive[x as usize] = false;
+            alive[y as usize] = false;
         }
         leaf[c] = true;
     }
     let mut rep = vec![NONE; n];
-    for k in 0..n {
-        if !sk.retained[k] {
-            continue;
-        }
+    let mut leaves = Vec::new();
+    for &k in &sk.rnodes {
+        let k = k as usize;
         rep[k] = if alive[k] {
             k as u32
         } else {
             rep[sk.rparent[k] as usize]
         };
+        if k > 0 && alive[k] && leaf[k] {
+            let s = sk.step_of[k];
+            let region = if s != NONE && (s as usize) < steps {
+                sk.merged[s as usize]
+            } else {
+                sk.own[k]
+            };
+            if region.w > 0.0 {
+                leaves.push((k as u32, region));
+            }
+        }
     }
-    (alive, leaf, rep, region)
+    Replayed {
+        alive,
+        leaf,
+        rep,
+        leaves,
+    }
 }
 
-/// Where each alive leaf sits: the node of its region whose DC log attenuation to the soma is
-/// closest to its target level (see [`leaf_targets`]); exact placement is free: Kron reduction
-/// keeps the chosen node's relations to the soma exactly. A leaf without sites stays at its own
-/// node, and the soma stays the soma.
+/// Where each alive leaf with sites sits (NONE for every other node): the node of its region
+/// whose DC log attenuation to the soma is closest to its target level (see [`leaf_targets`]);
+/// exact placement is free: Kron reduction keeps the chosen node's relations to the soma
+/// exactly. A leaf without sites stays at its own node, and the soma stays the soma.
 pub(super) fn place_leaves(
     fine: &Fine,
     sk: &Skeleton,
-    alive_leaf: &[bool],
-    rep: &[u32],
-    region: &[Moments],
+    rp: &Replayed,
     sites: &[(u32, f64)],
 ) -> Vec<u32> {
     let n = fine.len();
     let a = &fine.ln_att;
+    let rep = &rp.rep;
     let in_region = |y: usize, l: usize| rep[sk.section_of[y] as usize] as usize == l;
-    // the leaves to place, numbered compactly, and each site's leaf number
+    // each leaf's number in `rp.leaves`, for the sites
     let mut lid = vec![NONE; n];
-    let mut leaves: Vec<usize> = Vec::new();
-    for l in 1..n {
-        if alive_leaf[l] && region[l].w > 0.0 {
-            lid[l] = leaves.len() as u32;
-            leaves.push(l);
-        }
+    for (i, &(l, _)) in rp.leaves.iter().enumerate() {
+        lid[l as usize] = i as u32;
     }
-    let groups = LeafSites::new(a, leaves.len(), sites, |x| {
+    let groups = LeafSites::new(a, rp.leaves.len(), sites, |x| {
         lid[rep[sk.section_of[x] as usize] as usize]
     });
-    let target = leaf_targets(a, sk, &leaves, region, &groups);
-    let mut place: Vec<u32> = (0..n as u32).collect();
-    for (i, &l) in leaves.iter().enumerate() {
+    let target = leaf_targets(a, sk, &rp.leaves, &groups);
+    let mut place = vec![NONE; n];
+    for (i, &(l, _)) in rp.leaves.iter().enumerate() {
+        let l = l as usize;
         let t = target[i];
         // the site with the smallest ln A at or above the target, else the highest (the first
         // such in site order)
@@ -179,18 +198,17 @@ impl LeafSites {
 fn leaf_targets(
     a: &[f64],
     sk: &Skeleton,
-    leaves: &[usize],
-    region: &[Moments],
+    leaves: &[(u32, Moments)],
     groups: &LeafSites,
 ) -> Vec<f64> {
     leaves
         .iter()
         .enumerate()
-        .map(|(i, &l)| {
-            let p = sk.rparent[l];
+        .map(|(i, &(l, region))| {
+            let p = sk.rparent[l as usize];
             let parent_level = if p == NONE { 0.0 } else { a[p as usize] };
             let (lna, ws) = (groups.leaf(&groups.lna, i), groups.leaf(&groups.w, i));
-            let mut t = region[l].mean;
+            let mut t = region.mean;
             for _ in 0..6 {
                 // plain weighted sums (Σw, Σw·lnA), branch-free: adding 0 changes no sum
                 let (mut w, mut wx) = (0.0, 0.0);

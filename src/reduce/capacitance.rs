@@ -257,14 +257,26 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     // own size, so a compartment should not run late for the nearest of its sites
     let mut sums = vec![[0.0; 2 * FIT_HZ.len()]; n];
     let mut wsum = vec![0.0; n];
+    // consecutive sites mostly share a compartment: its sums stay in registers over the run
+    // (the same additions in the same order as one at a time)
+    let mut run = (usize::MAX, 0.0, [0.0; 2 * FIT_HZ.len()]);
     for ((&c, &(_, w)), per) in serves_site
         .iter()
         .zip(&r.site_fine)
         .zip(r.site_log_transfer())
     {
         let c = c as usize;
-        wsum[c] += w;
-        sums[c].iter_mut().zip(per).for_each(|(a, v)| *a += w * v);
+        if c != run.0 {
+            if run.0 != usize::MAX {
+                (wsum[run.0], sums[run.0]) = (run.1, run.2);
+            }
+            run = (c, wsum[c], sums[c]);
+        }
+        run.1 += w;
+        run.2.iter_mut().zip(per).for_each(|(a, v)| *a += w * v);
+    }
+    if run.0 != usize::MAX {
+        (wsum[run.0], sums[run.0]) = (run.1, run.2);
     }
     let mut target = vec![vec![C64::new(0.0, 0.0); n]; FIT_HZ.len()];
     let mut inv_phase = vec![vec![0.0; n]; FIT_HZ.len()];

@@ -570,13 +570,14 @@ impl Reducer {
         let nm = self.max_compartments();
         let b = self.effective_budget(budget);
         let (fine, sk) = (&self.fine, &self.sk);
-        let (alive, leaf, rep, region) = build::replay(sk, (nm - b) / 2);
-        let alive_leaf: Vec<bool> = alive.iter().zip(&leaf).map(|(&a, &l)| a && l).collect();
-        let place = build::place_leaves(fine, sk, &alive_leaf, &rep, &region, &self.site_fine);
+        let rp = build::replay(sk, (nm - b) / 2);
+        let place = build::place_leaves(fine, sk, &rp, &self.site_fine);
         let mut keep = vec![false; fine.len()];
-        for k in 0..fine.len() {
-            if alive[k] {
-                keep[if leaf[k] { place[k] as usize } else { k }] = true;
+        for &k in &sk.rnodes {
+            let k = k as usize;
+            if rp.alive[k] {
+                let placed = rp.leaf[k] && place[k] != NONE;
+                keep[if placed { place[k] as usize } else { k }] = true;
             }
         }
         let dynamics: Vec<&[C64]> = self
@@ -587,8 +588,20 @@ impl Reducer {
         let kron = build::kron(fine, &keep, &dynamics);
         let m = kron.node.len();
         let mut area = vec![0.0; m];
-        for (x, &c) in kron.serves.iter().enumerate() {
-            area[c as usize] += fine.area[x];
+        // consecutive fine nodes mostly share a compartment: sum each run in a register (the
+        // same additions in the same order as one node at a time)
+        let mut run = (NONE, 0.0);
+        for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
+            if c != run.0 {
+                if run.0 != NONE {
+                    area[run.0 as usize] = run.1;
+                }
+                run = (c, area[c as usize]);
+            }
+            run.1 += ax;
+        }
+        if run.0 != NONE {
+            area[run.0 as usize] = run.1;
         }
         let site_compartment: Vec<u32> = self
             .site_fine

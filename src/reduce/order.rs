@@ -67,9 +67,15 @@ pub(super) struct Skeleton {
     pub section_of: Vec<u32>,
     /// Sites of each retained node's own section.
     pub own: Vec<Moments>,
+    /// The retained nodes, ascending (parents first).
+    pub rnodes: Vec<u32>,
 
     /// Cherry parents in collapse order.
     pub order: Vec<u32>,
+    /// The region of `order[i]` once it has collapsed (its section and its leaves' regions).
+    pub merged: Vec<Moments>,
+    /// For every node: its step in `order`, or NONE if it never collapses.
+    pub step_of: Vec<u32>,
     /// Predicted error for every odd budget, ascending.
     pub curve: Vec<CurvePoint>,
 }
@@ -125,19 +131,21 @@ pub(super) fn skeleton(fine: &Fine, sites: &[(u32, f64)]) -> Skeleton {
     for &(x, w) in sites {
         own[section_of[x as usize] as usize].add(w, fine.ln_att[x as usize]);
     }
+    let rnodes = (0..n as u32).filter(|&k| retained[k as usize]).collect();
     Skeleton {
         retained,
         rparent,
         kids,
         section_of,
         own,
-        order: Vec::new(),
-        curve: Vec::new(),
+        rnodes,
+        ..Skeleton::default()
     }
 }
 
-/// The greedy collapse order (see the module documentation) and the predicted error curve:
-/// weighted RMS over the sites of the change in DC log attenuation to the soma (Np).
+/// The greedy collapse order (see the module documentation), each collapsed region's sites,
+/// and the predicted error curve: weighted RMS over the sites of the change in DC log
+/// attenuation to the soma (Np).
 pub(super) fn collapse_order(fine: &Fine, sk: &mut Skeleton) {
     let n = fine.len();
     let a = &fine.ln_att;
@@ -195,11 +203,15 @@ pub(super) fn collapse_order(fine: &Fine, sk: &mut Skeleton) {
         rms_ln_attenuation_error: rms(total),
     }];
     let mut order = Vec::with_capacity(alive / 2);
+    let mut merged_at = Vec::with_capacity(alive / 2);
+    let mut step_of = vec![NONE; n];
     while let Some(Key(k, c)) = heap.pop() {
         let c = c as usize;
+        step_of[c] = order.len() as u32;
         order.push(c as u32);
         total += k;
         region[c] = merged(c, &region);
+        merged_at.push(region[c]);
         leaf[c] = true;
         alive -= 2;
         curve.push(CurvePoint {
@@ -217,5 +229,7 @@ pub(super) fn collapse_order(fine: &Fine, sk: &mut Skeleton) {
     }
     curve.reverse();
     sk.order = order;
+    sk.merged = merged_at;
+    sk.step_of = step_of;
     sk.curve = curve;
 }

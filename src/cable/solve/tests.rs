@@ -202,15 +202,23 @@ fn refactor_with_new_shunts_solves_the_new_matrix() {
     let (_, _, s2) = random_tree(40, 22, true);
     let mut f = TreeFactor::new(&p, &g, &s);
     f.refactor(&s2);
-    let inv = dense(&p, &g, &s2, &|_| true).try_inverse().expect("regular");
-    let b: Vec<C64> = (0..p.len()).map(|k| C64::new(k as f64 % 5.0 - 2.0, 0.5)).collect();
+    let inv = dense(&p, &g, &s2, &|_| true)
+        .try_inverse()
+        .expect("regular");
+    let b: Vec<C64> = (0..p.len())
+        .map(|k| C64::new(k as f64 % 5.0 - 2.0, 0.5))
+        .collect();
     let mut x = b.clone();
     f.solve_in_place(&mut x);
     let want = &inv * DMatrix::from_column_slice(p.len(), 1, &b);
     for k in 0..p.len() {
         assert!(close(x[k], want[(k, 0)], 1e-10), "node {k}");
     }
-    assert!(close(f.root_admittance(), C64::new(1.0, 0.0) / inv[(0, 0)], 1e-10));
+    assert!(close(
+        f.root_admittance(),
+        C64::new(1.0, 0.0) / inv[(0, 0)],
+        1e-10
+    ));
 }
 
 #[test]
