@@ -32,14 +32,14 @@ fn prep_for(m: &Morphology) -> PrepOptions {
     }
 }
 
-/// `POLLARD_CAPACITANCE=uniform` measures C = τ·G instead of the default fitted capacitances,
-/// `POLLARD_CAPACITANCE=timed` the fitted ones polished in the time domain;
+/// The library's default rule (`timed`: fitted, then polished in the time domain);
+/// `POLLARD_CAPACITANCE=fitted` measures the fitted capacitances alone, `uniform` C = τ·G;
 /// `POLLARD_TABLE_MAX=1` adds a row at the largest budget the cell allows.
 fn capacitance_rule() -> CapacitanceRule {
     match std::env::var("POLLARD_CAPACITANCE").as_deref() {
         Ok("uniform") => CapacitanceRule::Uniform,
-        Ok("timed") => CapacitanceRule::Timed,
-        _ => CapacitanceRule::Fitted,
+        Ok("fitted") => CapacitanceRule::Fitted,
+        _ => CapacitanceRule::Timed,
     }
 }
 

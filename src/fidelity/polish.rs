@@ -6,7 +6,9 @@
 //! domain: J = mean over sites of (3·(ln ttp ratio)² + (ln peak ratio)²) + 30·(ln soma's own
 //! peak ratio)² + 300·(excess of ln τ_slow/τ beyond ±10 %)², by steepest descent on ln C with
 //! forward-difference gradients (one run of the reduced tree per compartment, in parallel) and
-//! a backtracking step (Armijo 1966). The conductances, and so everything at DC, do not change.
+//! a backtracking step (Armijo 1966). The sites' part is summed per compartment ([`Targets`]),
+//! so a trial costs O(compartments) after its run, not O(sites). The conductances, and so
+//! everything at DC, do not change.
 //!
 //! What this stage does not do: touch the full cell (its per-site numbers come from
 //! [`Fidelity::new`]), or run on trees above [`POLISH_MAX_COMPARTMENTS`].
@@ -69,7 +71,8 @@ impl Fidelity {
         let n = tree.len();
         let mut net = RcNetwork::from_reduced(tree);
         let tau_ms = tree.params.tau_ms();
-        let mut f = self.objective(tree, &net, tau_ms)?;
+        let targets = Targets::new(self, tree);
+        let mut f = self.objective(&targets, &net, tau_ms)?;
         let before = f;
         let mut steps = 0;
         if !(2..=POLISH_MAX_COMPARTMENTS).contains(&n) {
@@ -87,7 +90,7 @@ impl Fidelity {
                     let mut probe = net.clone();
                     probe.cap_pf[c] *= FD_STEP.exp();
                     let fc = self
-                        .objective(tree, &probe, tau_ms)
+                        .objective(&targets, &probe, tau_ms)
                         .unwrap_or(f64::INFINITY);
                     (fc - f) / FD_STEP
                 })
@@ -102,7 +105,7 @@ impl Fidelity {
                 for c in 0..n {
                     net.cap_pf[c] = base[c] * (-step * grad[c] / norm).exp();
                 }
-                let fnew = self.objective(tree, &net, tau_ms)?;
+                let fnew = self.objective(&targets, &net, tau_ms)?;
                 if fnew < f {
                     f = fnew;
                     improved = true;
@@ -127,28 +130,79 @@ impl Fidelity {
         })
     }
 
-    /// J of the module documentation for `net` (the tree's network with trial capacitances).
+    /// J of the module documentation for `net` (the tree's network with trial capacitances),
+    /// the sites' part summed per compartment ([`Targets`]): O(compartments), not O(sites).
     fn objective(
         &self,
-        tree: &ReducedTree,
+        targets: &Targets,
         net: &RcNetwork,
         tau_ms: f64,
     ) -> Result<f64, FidelityError> {
         let run = simulate(net, &self.opts.drive(), &[], &self.opts.run_options())?;
         let peaks = run.peaks.expect("peaks tracked");
-        let ln_ratio = |a: f64, b: f64| (a.max(1e-300) / b.max(1e-300)).ln();
-        let mut sum = 0.0;
-        for (i, &c) in tree.site_compartment.iter().enumerate() {
-            let c = c as usize;
-            let et = ln_ratio(peaks.time_ms[c], self.ttp[i]);
-            let ep = ln_ratio(peaks.value_mv[c], self.peak[i]);
-            sum += TIME_WEIGHT * et * et + ep * ep;
+        let mut sum = targets.spread;
+        for (c, t) in targets.per_compartment.iter().enumerate() {
+            if t.sites > 0.0 {
+                let et = ln_floor(peaks.time_ms[c]) - t.mean_ln_ttp;
+                let ep = ln_floor(peaks.value_mv[c]) - t.mean_ln_peak;
+                sum += t.sites * (TIME_WEIGHT * et * et + ep * ep);
+            }
         }
-        let sites = tree.site_compartment.len().max(1) as f64;
-        let es = ln_ratio(peaks.value_mv[0], self.soma_peak);
-        let d = ln_ratio(slowest_ms(net), tau_ms);
+        let es = ln_floor(peaks.value_mv[0]) - ln_floor(self.soma_peak);
+        let d = ln_floor(slowest_ms(net)) - ln_floor(tau_ms);
         let excess = (d.abs() - TAU_BAND.ln_1p()).max(0.0);
-        Ok(sum / sites + SOMA_WEIGHT * es * es + TAU_WEIGHT * excess * excess)
+        Ok(sum / targets.sites + SOMA_WEIGHT * es * es + TAU_WEIGHT * excess * excess)
+    }
+}
+
+/// ln of a positive value, floored at 1e-300 (a zero peak stays finite).
+fn ln_floor(x: f64) -> f64 {
+    x.max(1e-300).ln()
+}
+
+/// The sites' targets of the polish, per compartment of the tree: Σ over a compartment's sites
+/// of w·(x_c − a_i)² is n·w·(x_c − mean a)² + w·Σ(a_i − mean a)² (the parallel-axis identity,
+/// common practice, no source), so an objective costs O(compartments) however many sites.
+struct Targets {
+    per_compartment: Vec<CompartmentTargets>,
+    /// The constant part: Σ over sites of 3·(ln ttp − mean)² + (ln peak − mean)².
+    spread: f64,
+    /// Number of sites (at least 1).
+    sites: f64,
+}
+
+#[derive(Clone, Copy, Default)]
+struct CompartmentTargets {
+    sites: f64,
+    mean_ln_ttp: f64,
+    mean_ln_peak: f64,
+}
+
+impl Targets {
+    fn new(fid: &Fidelity, tree: &ReducedTree) -> Targets {
+        let mut per = vec![CompartmentTargets::default(); tree.len()];
+        for (i, &c) in tree.site_compartment.iter().enumerate() {
+            let t = &mut per[c as usize];
+            t.sites += 1.0;
+            t.mean_ln_ttp += ln_floor(fid.ttp[i]);
+            t.mean_ln_peak += ln_floor(fid.peak[i]);
+        }
+        for t in per.iter_mut().filter(|t| t.sites > 0.0) {
+            t.mean_ln_ttp /= t.sites;
+            t.mean_ln_peak /= t.sites;
+        }
+        let mut spread = 0.0;
+        for (i, &c) in tree.site_compartment.iter().enumerate() {
+            let t = &per[c as usize];
+            let et = ln_floor(fid.ttp[i]) - t.mean_ln_ttp;
+            let ep = ln_floor(fid.peak[i]) - t.mean_ln_peak;
+            spread += TIME_WEIGHT * et * et + ep * ep;
+        }
+        Targets {
+            per_compartment: per,
+            spread,
+            sites: tree.site_compartment.len().max(1) as f64,
+        }
     }
 }
 
@@ -160,4 +214,48 @@ fn slowest_ms(net: &RcNetwork) -> f64 {
         &net.g_leak_ns,
         &net.cap_pf,
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::cable::Params;
+    use crate::reduce::{ReduceOptions, Reducer};
+
+    #[test]
+    fn the_per_compartment_objective_is_the_sum_over_sites() {
+        // reference: J written as the module documentation states it, one term per site
+        let m = crate::samples::demo();
+        let red =
+            Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
+        let fid = Fidelity::new(&red, &Default::default()).unwrap();
+        for budget in [3, 15, 31] {
+            let tree = red.tree(budget);
+            let net = RcNetwork::from_reduced(&tree);
+            let tau = tree.params.tau_ms();
+            let fast = fid
+                .objective(&Targets::new(&fid, &tree), &net, tau)
+                .unwrap();
+            let run = simulate(&net, &fid.opts.drive(), &[], &fid.opts.run_options()).unwrap();
+            let p = run.peaks.unwrap();
+            let r = |a: f64, b: f64| (a / b).ln();
+            let mut sum = 0.0;
+            for (i, &c) in tree.site_compartment.iter().enumerate() {
+                let (et, ep) = (
+                    r(p.time_ms[c as usize], fid.ttp[i]),
+                    r(p.value_mv[c as usize], fid.peak[i]),
+                );
+                sum += 3.0 * et * et + ep * ep;
+            }
+            let es = r(p.value_mv[0], fid.soma_peak);
+            let d = r(slowest_ms(&net), tau);
+            let excess = (d.abs() - 1.1f64.ln()).max(0.0);
+            let slow =
+                sum / tree.site_compartment.len() as f64 + 30.0 * es * es + 300.0 * excess * excess;
+            assert!(
+                (fast - slow).abs() <= 1e-12 * slow.abs(),
+                "budget {budget}: {fast} vs {slow}"
+            );
+        }
+    }
 }
