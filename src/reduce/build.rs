@@ -34,10 +34,12 @@ pub(super) struct Replayed {
     /// The alive leaves other than the soma whose regions hold sites, ascending, with their
     /// regions' sites.
     pub leaves: Vec<(u32, Moments)>,
+    /// The alive parent of each alive retained node (NONE at the soma).
+    pub parent: Vec<u32>,
 }
 
-/// Replays the first `steps` collapses: O(retained nodes + steps), the regions read from the
-/// order's record.
+/// Replays the first `steps` steps (cherry collapses and splices): O(retained nodes + steps),
+/// the regions read from the order's record.
 pub(super) fn replay(sk: &Skeleton, steps: usize) -> Replayed {
     let n = sk.retained.len();
     let mut alive = sk.retained.clone();
@@ -45,13 +47,19 @@ pub(super) fn replay(sk: &Skeleton, steps: usize) -> Replayed {
     for &k in &sk.rnodes {
         leaf[k as usize] = sk.kids[k as usize].is_none();
     }
-    for &c in &sk.order[..steps] {
-        let c = c as usize;
-        if let Some([x, y]) = sk.kids[c] {
-            alive[x as usize] = false;
+    let mut parent = sk.rparent.clone();
+    for st in &sk.order[..steps] {
+        let c = st.node as usize;
+        let [x, y] = st.kids;
+        alive[x as usize] = false;
+        if st.splice {
+            // c leaves with its leaf child x; y hangs from c's parent
+            alive[c] = false;
+            parent[y as usize] = st.up;
+        } else {
             alive[y as usize] = false;
+            leaf[c] = true;
         }
-        leaf[c] = true;
     }
     let mut rep = vec![NONE; n];
     let mut leaves = Vec::new();
@@ -79,6 +87,7 @@ pub(super) fn replay(sk: &Skeleton, steps: usize) -> Replayed {
         leaf,
         rep,
         leaves,
+        parent,
     }
 }
 
@@ -104,7 +113,7 @@ pub(super) fn place_leaves(
     let groups = LeafSites::new(a, rp.leaves.len(), sites, |x| {
         lid[rep[sk.section_of[x] as usize] as usize]
     });
-    let target = leaf_targets(a, sk, &rp.leaves, &groups);
+    let target = leaf_targets(a, &rp.parent, &rp.leaves, &groups);
     let mut place = vec![NONE; n];
     for (i, &(l, _)) in rp.leaves.iter().enumerate() {
         let l = l as usize;
@@ -197,7 +206,7 @@ impl LeafSites {
 /// Each leaf iterates on its own sites only, until its level stops moving.
 fn leaf_targets(
     a: &[f64],
-    sk: &Skeleton,
+    parent: &[u32],
     leaves: &[(u32, Moments)],
     groups: &LeafSites,
 ) -> Vec<f64> {
@@ -205,7 +214,7 @@ fn leaf_targets(
         .iter()
         .enumerate()
         .map(|(i, &(l, region))| {
-            let p = sk.rparent[l as usize];
+            let p = parent[l as usize];
             let parent_level = if p == NONE { 0.0 } else { a[p as usize] };
             let (lna, ws) = (groups.leaf(&groups.lna, i), groups.leaf(&groups.w, i));
             let mut t = region.mean;

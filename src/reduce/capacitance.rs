@@ -16,8 +16,9 @@
 use super::Reducer;
 use super::build::Kept;
 use super::tree::slowest_mode_with;
-use crate::cable::C64;
 use crate::cable::solve::TreeFactor;
+use crate::cable::{C64, Params};
+use crate::morphology::Flat;
 
 /// Frequencies of the fit (Hz): from the membrane's corner (1/2πτ ≈ 8 Hz at τ = 20 ms) to where
 /// a 0.5 ms synaptic current has little left.
@@ -25,6 +26,9 @@ pub(super) const FIT_HZ: [f64; 6] = [5.0, 15.0, 40.0, 100.0, 250.0, 600.0];
 
 /// Which of [`FIT_HZ`] decide which end of a link serves a point (with the DC attenuation).
 pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
+
+/// Which of [`FIT_HZ`] gives the collapse order its timing coordinate (40 Hz).
+pub(super) const TIMING_HZ_INDEX: usize = 2;
 
 /// Largest tree whose capacitances are fitted; bigger trees (close to the cell already) keep
 /// C = τ·G, so any budget stays within a few milliseconds.
@@ -51,11 +55,12 @@ const SLOW_STEPS: usize = 24;
 
 /// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
 /// along the path from the soma (ln Z_k0 = ln Z_00 + Σ ln(g/(g + D)) over the path).
-pub(super) fn full_log_transfer(r: &Reducer) -> Vec<Vec<C64>> {
+pub(super) fn full_log_transfer(kept: &Flat, params: &Params) -> Vec<Vec<C64>> {
+    use rayon::prelude::*;
     FIT_HZ
-        .iter()
+        .par_iter()
         .map(|&f| {
-            let net = match crate::cable::Network::build(&r.kept, &r.params, f) {
+            let net = match crate::cable::Network::build(kept, params, f) {
                 Ok(n) => n,
                 Err(_) => return Vec::new(),
             };

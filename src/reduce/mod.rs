@@ -27,23 +27,24 @@
 //!    total leak is unchanged. This is the only inexact step; its effect on the soma's DC input
 //!    resistance is measured and reported ([`Report::junction_effect_relative`]).
 //!    The result is the *maximal tree*: 2·(tips) − 1 compartments, strict binary.
-//! 5. **Collapse order.** A *cherry* (compartment whose two children are leaves) collapses by
-//!    Kron-eliminating its two leaf children: for leaf x (shunt G_x) on c by g_x,
-//!    c's shunt += g_x·G_x/(g_x + G_x). This is exact at DC, so the subtree admittance D_k and
-//!    the admittance P_k seen at k's parent without k's branch are the same at every budget
-//!    for every compartment that remains. Hence a site moved from leaf x to its parent c changes
-//!    its log attenuation to the soma by exactly e_x = ln(1 + P_x/g_x) (A_x = A_c·(g_x + P_x)/g_x
-//!    at DC; the morphoelectrotonic transform, Zador, Agmon-Snir & Segev 1995), and errors only
-//!    add. The collapse cost is the increase in Σ_sites w·(ln A_site − ln A_compartment)², which
-//!    is known exactly from per-compartment sums (W, Σw·b, Σw·b²) once both children are
-//!    leaves and never changes afterwards, so one binary heap gives the whole greedy order in
-//!    O(N log N) with no re-keying.
+//! 5. **Collapse order** (`order`). Greedy steps, each removing two compartments: a *cherry*
+//!    (compartment whose two children are leaves) collapses by Kron-eliminating its leaves
+//!    (c's shunt += g_x·G_x/(g_x + G_x)), or a compartment with one leaf child is *spliced* out
+//!    with that leaf (its other child hangs from its parent through the Kron-reduced path). Both
+//!    are exact at DC, so the subtree admittance D_k and the admittance P_k seen at k's parent
+//!    without k's branch are the same at every budget for every compartment that remains, and a
+//!    site served one compartment up changes its log attenuation to the soma by exactly
+//!    ln(1 + P_x/g_x) (the morphoelectrotonic transform, Zador, Agmon-Snir & Segev 1995). The
+//!    cost of a step is the increase in Σ_sites w·‖f_site − f_served‖² over the DC log attenuation
+//!    and a timing coordinate (the log of each point's phase delay to the soma at 40 Hz, which
+//!    follows its soma-EPSP time to peak), from per-node sums; a heap with lazy invalidation
+//!    gives the whole order in O(N log N).
 //!
 //! # Budgets ([`Reducer::tree`])
 //! The budget is the number of compartments of the final tree, the soma included. A strict
 //! binary tree has an odd number of compartments, so an even request is rounded **down**
 //! (and at least 1; above the maximum it is the maximum); [`ReducedTree::rounded_down`] says
-//! so. Any budget replays the first (max − budget)/2 collapses from the maximal tree: O(N).
+//! so. Any budget replays the first (max − budget)/2 steps from the maximal tree: O(N).
 //!
 //! # Capacitance
 //! With a uniform membrane every compartment gets C_k = τ·G_k (τ = Rm·Cm): the uniform voltage
@@ -357,8 +358,8 @@ pub struct Reducer {
     junctions: usize,
     points_left_out: usize,
     z_full_freq: OnceLock<Result<C64, CableError>>,
-    /// The full cell's ln Z_0k at the capacitance fit's frequencies, computed once.
-    full_lz: OnceLock<Vec<Vec<C64>>>,
+    /// The full cell's ln Z_0k at the capacitance fit's frequencies (per kept-cell node).
+    full_lz: Vec<Vec<C64>>,
     /// `full_lz` at the serving frequencies, indexed by fine node.
     serve_lz: OnceLock<Vec<Vec<C64>>>,
     /// Per site, what the capacitance fit sums (ln|Z| and 1/phase at each fit frequency).
@@ -476,8 +477,14 @@ impl Reducer {
                 }
             })
             .collect();
-        let mut sk = order::skeleton(&fine, &site_fine);
-        order::collapse_order(&fine, &mut sk);
+        let full_lz = capacitance::full_log_transfer(&kept, params);
+        let lt = order::timing_coordinate(
+            &fine,
+            full_lz.get(capacitance::TIMING_HZ_INDEX),
+            capacitance::FIT_HZ[capacitance::TIMING_HZ_INDEX],
+        );
+        let mut sk = order::skeleton(&fine, &site_fine, &lt);
+        order::collapse_order(&fine, &mut sk, &lt);
         let max_compartments = sk.retained.iter().filter(|&&r| r).count();
         let junctions = fine
             .role
@@ -499,7 +506,7 @@ impl Reducer {
             junctions,
             points_left_out,
             z_full_freq: OnceLock::new(),
-            full_lz: OnceLock::new(),
+            full_lz,
             serve_lz: OnceLock::new(),
             site_lz: OnceLock::new(),
         })
@@ -663,10 +670,9 @@ impl Reducer {
         }
     }
 
-    /// The full cell's complex log transfer to the soma at the fit frequencies, computed once.
+    /// The full cell's complex log transfer to the soma at the fit frequencies.
     fn full_log_transfer(&self) -> &[Vec<C64>] {
-        self.full_lz
-            .get_or_init(|| capacitance::full_log_transfer(self))
+        &self.full_lz
     }
 
     /// Per site, ln|Z| and 1/phase lag at the fit frequencies (see

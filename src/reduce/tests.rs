@@ -154,6 +154,62 @@ fn every_budget_is_the_kron_reduction_of_its_compartments() {
     }
 }
 
+/// A trunk with three short side branches below a two-branch tuft (and one basal stem).
+/// Returns the cell and the last node of each branch.
+fn trunk_and_tuft() -> (Flat, Vec<u32>) {
+    flat_by_hand(
+        500.0,
+        &[
+            (0, 100.0, 1.0, 5),   // 1: basal stem
+            (0, 50.0, 1.5, 3),    // 2: trunk
+            (2, 20.0, 0.2, 2),    // 3: side branch
+            (2, 50.0, 1.5, 3),    // 4: trunk
+            (4, 20.0, 0.2, 2),    // 5: side branch
+            (4, 50.0, 1.5, 3),    // 6: trunk
+            (6, 20.0, 0.2, 2),    // 7: side branch
+            (6, 50.0, 1.5, 3),    // 8: trunk
+            (8, 600.0, 0.25, 12), // 9: thin tuft branch
+            (8, 400.0, 0.8, 10),  // 10: thick tuft branch
+        ],
+    )
+}
+
+#[test]
+fn small_side_branches_leave_the_tree_before_a_large_tuft_merges() {
+    // Strict binary form: the tuft's fork can only stay with its path to the soma, which runs
+    // through the three trunk forks. At 5 compartments the two tuft branches are the largest
+    // and most different groups of sites, so the tree should be soma, basal leaf, tuft fork
+    // and its two branches, with the trunk forks and side branches folded into the link
+    // (Kron reduction, exact). A greedy order of cherry collapses alone cannot give this tree:
+    // it must merge the tuft before any trunk fork goes.
+    let (f, ends) = trunk_and_tuft();
+    let p = Params::default();
+    let r = Reducer::new(&f, &p, &ReduceOptions::default()).unwrap();
+    assert_eq!(r.max_compartments(), 11);
+    let t = r.tree(5);
+    assert_eq!(t.len(), 5);
+    let serve = |node: u32| t.point_compartment[node as usize];
+    let (thin, thick, side) = (serve(ends[9]), serve(ends[10]), serve(ends[3]));
+    assert_ne!(thin, thick, "the tuft's branches share a compartment");
+    assert!(thin != 0 && thick != 0);
+    // the side branch's sites go to an end of the trunk link: the soma or the tuft fork
+    let fork = t.compartments[thin as usize].parent.unwrap();
+    assert_eq!(t.compartments[thick as usize].parent, Some(fork));
+    assert!(side == 0 || side == fork, "side branch served by {side}");
+    // and the tree is still the Schur complement of the cell's network (nalgebra)
+    let keep: Vec<usize> = t
+        .compartments
+        .iter()
+        .map(|c| f.line.iter().position(|&l| l == c.swc_line).unwrap())
+        .collect();
+    assert_close(
+        &schur(&full_matrix(&f, &p), &keep),
+        &tree_matrix(&t),
+        1e-10,
+        "budget 5",
+    );
+}
+
 #[test]
 fn predicted_curve_bounds_the_measured_error() {
     let f = binary_cell();
