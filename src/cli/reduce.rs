@@ -68,7 +68,8 @@ pub struct Args {
     pub junction_fraction: f64,
     /// How compartments get their capacitance: `timed` (default) fits them to the cell's
     /// transfer impedances to the soma, then polishes them on the sites' EPSP peaks and times to
-    /// peak in the time domain (slowest time constant within about 10 % of Rm·Cm; needs the
+    /// peak in the time domain and serves each site by its compartment or a neighbour, whichever
+    /// answers most like the cell (slowest time constant within about 10 % of Rm·Cm; needs the
     /// fidelity run, so with --no-fidelity the default falls back to `fitted` and says so);
     /// `fitted` stops after the fit (slowest time constant within 2 % of Rm·Cm); `uniform` sets
     /// C = Rm·Cm × leak, which keeps the slowest time constant exactly Rm·Cm. Conductances are

@@ -10,6 +10,7 @@
 //! costs one run of the (small) reduced tree.
 
 mod polish;
+mod serve;
 mod traces;
 pub use polish::{POLISH_ITERATIONS, POLISH_MAX_COMPARTMENTS, PolishSummary};
 
@@ -158,6 +159,8 @@ pub struct Fidelity {
     ln_from: Vec<f64>,
     /// Per site: morphology point and SWC line.
     point: Vec<u32>,
+    /// Per site: the membrane area its point carries in the reduction (µm²).
+    area: Vec<f64>,
     line: Vec<usize>,
     fine_nodes: usize,
     duration_ms: f64,
@@ -329,6 +332,7 @@ impl Fidelity {
             ln_to: sites.iter().map(|s| s.ln_attenuation_full).collect(),
             ln_from: kept_node.iter().map(|&k| from[k]).collect(),
             point: sites.iter().map(|s| s.point).collect(),
+            area: reducer.site_membrane_areas(),
             line: kept_node.iter().map(|&k| kept.line[k]).collect(),
             fine_nodes: fine.net.len(),
             duration_ms: end,

@@ -43,6 +43,8 @@ pub struct PolishSummary {
     pub steps: usize,
     pub objective_before: f64,
     pub objective_after: f64,
+    /// Sites then moved to a neighbouring compartment ([`Fidelity::serve_sites`]).
+    pub sites_moved: usize,
 }
 
 impl Fidelity {
@@ -53,7 +55,9 @@ impl Fidelity {
         tree: &mut ReducedTree,
     ) -> Result<Option<PolishSummary>, FidelityError> {
         if self.rule == CapacitanceRule::Timed {
-            self.polish(tree).map(Some)
+            let mut done = self.polish(tree)?;
+            done.sites_moved = self.serve_sites(tree)?;
+            Ok(Some(done))
         } else {
             Ok(None)
         }
@@ -80,6 +84,7 @@ impl Fidelity {
                 steps,
                 objective_before: before,
                 objective_after: f,
+                sites_moved: 0,
             });
         }
         let mut step = 0.3;
@@ -127,6 +132,7 @@ impl Fidelity {
             steps,
             objective_before: before,
             objective_after: f,
+            sites_moved: 0,
         })
     }
 

@@ -565,6 +565,15 @@ impl Reducer {
         self.r_in_full_ohm
     }
 
+    /// Per site: the membrane area its point carries in the reduction (µm²; a point with
+    /// junctions below it shares its segment's area with them).
+    pub fn site_membrane_areas(&self) -> Vec<f64> {
+        self.site_fine
+            .iter()
+            .map(|&(x, _)| self.fine.area[x as usize])
+            .collect()
+    }
+
     /// The kept cell as flat arrays (types filter applied).
     pub fn kept_flat(&self) -> &Flat {
         &self.kept

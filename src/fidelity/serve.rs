@@ -1,0 +1,147 @@
+//! Last step of `CapacitanceRule::Timed`: each site is served by its compartment or a neighbour
+//! of it (the parent or a child), whichever answers most like the cell at the site.
+//!
+//! The reducer sends a site to an end of the reduced link its point lies on, judged on the full
+//! cell's numbers before any capacitance exists. Once the tree is final its compartments' own
+//! soma responses are known (one run of the reduced tree), and a site whose neighbour's EPSP is
+//! closer to the site's own moves there: cost = |ln A_site − ln A_c| (DC, Np) +
+//! 3·|ln(ttp_c/ttp_site)| + |ln(peak_c/peak_site)|, the time weighted as in the polish. The
+//! point map follows for the sites' points, and their membrane area moves with them.
+//!
+//! What this step does not do: change any conductance or capacitance (the DC network and the
+//! dynamics stay as built), or move a site more than one link.
+
+use super::{Fidelity, FidelityError};
+use crate::morphology::NONE;
+use crate::reduce::ReducedTree;
+use crate::transient::{RcNetwork, simulate};
+
+/// Weight of the time-to-peak term (as in the polish).
+const TIME_WEIGHT: f64 = 3.0;
+
+impl Fidelity {
+    /// Serves each site by the compartment among its own, its parent and its children whose
+    /// response is most like the cell's at the site (see the module documentation). Returns how
+    /// many sites moved. A tree from another reducer (its site count differs) is refused.
+    pub fn serve_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
+        if tree.site_compartment.len() != self.peak.len() {
+            return Err(FidelityError::Mismatch {
+                what: "number of sites",
+            });
+        }
+        let net = RcNetwork::from_reduced(tree);
+        let run = simulate(&net, &self.opts.drive(), &[], &self.opts.run_options())?;
+        let peaks = run.peaks.expect("peaks tracked");
+        let ln_a = tree.ln_attenuation_dc();
+        let ln = |x: f64| x.max(1e-300).ln();
+        let cost = |i: usize, c: usize| -> f64 {
+            (self.ln_to[i] - ln_a[c]).abs()
+                + TIME_WEIGHT * (ln(peaks.time_ms[c]) - ln(self.ttp[i])).abs()
+                + (ln(peaks.value_mv[c]) - ln(self.peak[i])).abs()
+        };
+        // a point carrying several sites moves once, with its first site
+        let mut decided = vec![NONE; tree.point_compartment.len()];
+        let mut moved = 0;
+        for i in 0..tree.site_compartment.len() {
+            let c = tree.site_compartment[i] as usize;
+            let p = self.point[i] as usize;
+            let pick = if decided.get(p).is_some_and(|&d| d != NONE) {
+                decided[p] as usize
+            } else {
+                let comp = &tree.compartments[c];
+                let near = comp
+                    .parent
+                    .into_iter()
+                    .chain(comp.children.into_iter().flatten());
+                let mut best = (cost(i, c), c);
+                for k in near {
+                    let e = cost(i, k as usize);
+                    if e < best.0 {
+                        best = (e, k as usize);
+                    }
+                }
+                if let Some(d) = decided.get_mut(p) {
+                    *d = best.1 as u32;
+                    if tree.point_compartment[p] != NONE && best.1 != c {
+                        let was = tree.point_compartment[p] as usize;
+                        tree.compartments[was].membrane_area_um2 -= self.area[i];
+                        tree.compartments[best.1].membrane_area_um2 += self.area[i];
+                        tree.point_compartment[p] = best.1 as u32;
+                    }
+                }
+                best.1
+            };
+            if pick != c {
+                moved += 1;
+                tree.compartments[c].site_count -= 1;
+                tree.compartments[pick].site_count += 1;
+                tree.site_compartment[i] = pick as u32;
+            }
+        }
+        Ok(moved)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::cable::Params;
+    use crate::reduce::{ReduceOptions, Reducer};
+
+    #[test]
+    fn sites_move_one_link_at_most_and_the_maps_stay_one() {
+        let m = crate::samples::demo();
+        let red =
+            Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
+        let fid = Fidelity::new(&red, &Default::default()).unwrap();
+        let mut total_moved = 0;
+        for budget in [7, 15, 31] {
+            let before = red.tree(budget);
+            let mut after = before.clone();
+            let moved = fid.serve_sites(&mut after).unwrap();
+            total_moved += moved;
+            let changed = (0..before.site_compartment.len())
+                .filter(|&i| before.site_compartment[i] != after.site_compartment[i])
+                .count();
+            assert_eq!(moved, changed, "budget {budget}");
+            for (i, (&c0, &c1)) in before
+                .site_compartment
+                .iter()
+                .zip(&after.site_compartment)
+                .enumerate()
+            {
+                let comp = &before.compartments[c0 as usize];
+                let near = c1 == c0
+                    || comp.parent == Some(c1)
+                    || comp.children.is_some_and(|k| k.contains(&c1));
+                assert!(near, "site {i}: {c0} -> {c1} is not a neighbour");
+                assert_eq!(after.point_compartment[fid.point[i] as usize], c1);
+            }
+            // the network itself is untouched; areas and counts only move
+            for (a, b) in before.compartments.iter().zip(&after.compartments) {
+                assert_eq!(
+                    (a.g_axial_ns, a.g_leak_ns, a.capacitance_pf),
+                    (b.g_axial_ns, b.g_leak_ns, b.capacitance_pf)
+                );
+            }
+            let area = |t: &ReducedTree| {
+                t.compartments
+                    .iter()
+                    .map(|c| c.membrane_area_um2)
+                    .sum::<f64>()
+            };
+            assert!((area(&before) - area(&after)).abs() <= 1e-9 * area(&before));
+            let count = |t: &ReducedTree| t.compartments.iter().map(|c| c.site_count).sum::<u32>();
+            assert_eq!(count(&after), after.site_compartment.len() as u32);
+            let mut per = vec![0u32; after.len()];
+            after
+                .site_compartment
+                .iter()
+                .for_each(|&c| per[c as usize] += 1);
+            for (c, n) in after.compartments.iter().zip(per) {
+                assert_eq!(c.site_count, n);
+            }
+        }
+        assert!(total_moved > 0, "no site moved at any budget");
+    }
+}
