@@ -1,5 +1,6 @@
-//! Last step of `CapacitanceRule::Timed`: each site is served by its compartment or a neighbour
-//! of it (the parent or a child), whichever answers most like the cell at the site.
+//! Part of `CapacitanceRule::Timed` (before and after the polish): each site is served by its
+//! compartment or a neighbour of it (the parent or a child), whichever answers most like the
+//! cell at the site.
 //!
 //! The reducer sends a site to an end of the reduced link its point lies on, judged on the full
 //! cell's numbers before any capacitance exists. Once the tree is final its compartments' own
@@ -9,7 +10,7 @@
 //! point map follows for the sites' points, and their membrane area moves with them.
 //!
 //! What this step does not do: change any conductance or capacitance (the DC network and the
-//! dynamics stay as built), or move a site more than one link.
+//! dynamics stay as built), or move a site more than one link per call.
 
 use super::{Fidelity, FidelityError};
 use crate::morphology::NONE;
