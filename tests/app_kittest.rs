@@ -824,8 +824,8 @@ fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_fo
     use pollard::reduce::{CapacitanceRule, ReduceOptions, Reducer};
     let mut h = harness(app_with(vec![]));
     settle(&mut h);
-    // reference: the library's reducer with the fitted rule, and its tree polished as
-    // `pollard reduce` polishes (default fidelity options)
+    // reference: the library's reducer (default rule, timed), its tree as built (fitted) and
+    // finished as `pollard reduce` finishes it (default fidelity options)
     let (fitted, timed) = {
         let s = h.state().state.as_ref().unwrap();
         assert_eq!(
@@ -833,16 +833,12 @@ fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_fo
             CapacitanceRule::Timed,
             "timed is the default"
         );
-        let opts = ReduceOptions {
-            capacitance: CapacitanceRule::Fitted,
-            ..ReduceOptions::default()
-        };
-        let r = Reducer::new(&s.model.flat, &s.params, &opts).unwrap();
+        let r = Reducer::new(&s.model.flat, &s.params, &ReduceOptions::default()).unwrap();
         let fitted = r.tree(15);
         let mut timed = fitted.clone();
         Fidelity::new(&r, &FidelityOptions::default())
             .unwrap()
-            .polish(&mut timed)
+            .apply_capacitance_rule(&mut timed)
             .unwrap();
         (fitted, timed)
     };
@@ -856,6 +852,10 @@ fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_fo
             .collect()
     };
     assert_ne!(caps(&timed), caps(&fitted), "the polish moves capacitances");
+    assert_ne!(
+        timed.point_compartment, fitted.point_compartment,
+        "the timed rule serves some points by a neighbour here"
+    );
     h.get_by_role_and_label(egui::Role::Slider, "Compartments")
         .set_value_accesskit(15.0);
     h.run_steps(1);
@@ -890,6 +890,13 @@ fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_fo
     assert_eq!(conductances(shown), conductances(&fitted));
     assert_ne!(caps(shown), caps(&fitted));
     assert_eq!(caps(shown), caps(&timed));
+    assert_eq!(shown.point_compartment, timed.point_compartment);
+    // the drawing follows the finished tree's point map (the rule may serve points elsewhere)
+    let red = s.reduced.as_ref().unwrap();
+    for (k, &c) in red.extras.node_comp.iter().enumerate() {
+        let p = s.model.flat.node_point[k] as usize;
+        assert_eq!(c, shown.point_compartment[p], "model node {k}");
+    }
     // the traces shown are the polished tree's: the reduced half against the library's own run
     // of the reference timed tree (and not the fitted one's)
     let tr = h.state().traces.shown.as_ref().expect("traces are shown");

@@ -291,15 +291,19 @@ def test_fidelity_report_and_sites(tmp_path):
 
 
 def test_timed_capacitances_polish_the_fitted_tree_as_the_cli_does(tmp_path):
-    """capacitance="timed" (the default): the fitted tree's conductances bit for bit (the polish
-    touches only capacitances), other capacitances, and `to_json` writes `pollard reduce
-    --capacitance timed`'s bytes (reference: the command line on the same cell and budget)."""
+    """capacitance="timed" (the default): the fitted tree's conductances bit for bit (the rule
+    changes capacitances and which compartment serves some sites, never a conductance), other
+    capacitances, and `to_json` writes `pollard reduce --capacitance timed`'s bytes (reference:
+    the command line on the same cell and budget)."""
     cell = REPO / "sample_cells" / "practice_stellate.swc"
     path, doc = cli_tree(tmp_path, cell, 21, "--capacitance", "timed")
     fitted = pollard.reduce(cell, compartments=21, capacitance="fitted")
     timed = pollard.reduce(cell, compartments=21)
-    for name in ("g_axial_ns", "g_leak_ns", "membrane_area_um2", "parent", "children"):
+    for name in ("g_axial_ns", "g_leak_ns", "parent", "children"):
         np.testing.assert_array_equal(getattr(timed, name), getattr(fitted, name))
+    # sites served by a neighbour take their points' membrane area along: the total stays
+    assert timed.membrane_area_um2.sum() == pytest.approx(fitted.membrane_area_um2.sum(),
+                                                          rel=1e-12)
     assert np.all(timed.capacitance_pf > 0.0)
     assert not np.array_equal(timed.capacitance_pf, fitted.capacitance_pf)
     np.testing.assert_array_equal(timed.capacitance_pf,

@@ -9,7 +9,8 @@
 //! One job at a time; polished trees are kept per budget for the current reduction.
 
 use super::jobs::Job;
-use super::state::{CellState, Reduced, Reduction};
+use super::state::{CellState, DrawingExtras, Reduced, Reduction};
+use crate::morphology::NONE;
 use crate::reduce::{CapacitanceRule, ReducedTree};
 use eframe::egui;
 use std::sync::Arc;
@@ -136,9 +137,10 @@ impl CellState {
     }
 
     /// Shows `tree`, the polish of the shown tree, if the reduction and the budget are still
-    /// those it was made for (else nothing changes). The conductances, so the drawing's extras,
-    /// are the fitted tree's; the maps are solved again (they depend on the capacitances above
-    /// DC).
+    /// those it was made for (else nothing changes). The conductances are the fitted tree's,
+    /// but the rule may serve some sites (and their points) by a neighbouring compartment, so
+    /// the drawing's extras are made again, and the maps too (they depend on the capacitances
+    /// above DC).
     pub fn set_polished(
         &mut self,
         reduction: &Arc<Reduction>,
@@ -149,10 +151,16 @@ impl CellState {
             .reduction
             .as_ref()
             .is_some_and(|r| Arc::ptr_eq(r, reduction) && self.clamped_budget(r) == budget);
-        let Some(old) = self.reduced.as_ref().filter(|r| current && !r.finished) else {
+        if !(current && self.reduced.as_ref().is_some_and(|r| !r.finished)) {
+            return false;
+        }
+        let Some(mut extras) =
+            DrawingExtras::new(&tree, &self.model.flat, &self.model.path_distance)
+        else {
             return false;
         };
-        let mut red = Reduced::new(tree, old.extras.clone(), self.freq_hz, true);
+        extras.node_comp.resize(self.model.flat.len(), NONE);
+        let mut red = Reduced::new(tree, extras, self.freq_hz, true);
         red.set_site(self.site_model());
         self.reduced = Some(red);
         self.colour_version += 1;
