@@ -180,3 +180,35 @@ impl CellState {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::app::state::{Cell, build_reduction};
+    use crate::cable::Params;
+
+    #[test]
+    fn a_polish_is_shown_only_for_the_reduction_and_budget_it_was_made_for() {
+        let mut s = CellState::new(Arc::new(Cell::demo()), Params::default(), 0.0).unwrap();
+        s.set_reduction(build_reduction(&s.cell, None, &s.params));
+        s.set_budget(15);
+        let (r, b, fitted) = s.wants_polish().expect("a timed tree waits for its polish");
+        assert_eq!(b, 15);
+        let polished = Arc::new(r.finish(&fitted).unwrap());
+        // the user moved on: a stale polish is not shown
+        s.set_budget(7);
+        assert!(!s.set_polished(&r, 15, polished.clone()));
+        assert!(!s.reduced.as_ref().unwrap().finished);
+        assert_eq!(s.reduced.as_ref().unwrap().tree.len(), 7);
+        // another reduction (a new membrane) is not this one
+        let other = build_reduction(&s.cell, None, &s.params).unwrap();
+        s.set_budget(15);
+        assert!(!s.set_polished(&other, 15, polished.clone()));
+        // back at 15 on the same reduction: shown, finished, no longer waited for
+        assert!(s.set_polished(&r, 15, polished.clone()));
+        let shown = s.reduced.as_ref().unwrap();
+        assert!(shown.finished && Arc::ptr_eq(&shown.tree, &polished));
+        assert!(s.wants_polish().is_none());
+        assert!(Arc::ptr_eq(&s.finished_tree().unwrap(), &polished));
+    }
+}
