@@ -156,24 +156,29 @@ pub(super) fn slowest_mode_with(
     x: &mut Vec<f64>,
 ) -> (f64, f64) {
     let (n, parent, g) = (fac.len(), fac.parent(), fac.series());
-    let rayleigh = |x: &[f64]| {
-        let mut xgx: f64 = (0..n).map(|k| leak[k] * x[k] * x[k]).sum();
+    // scales x by 1/norm and returns the Rayleigh quotient and xᵀCx, in two passes (the sums
+    // are the plain ones, term by term in index order)
+    let scaled_rayleigh = |x: &mut [f64], norm: f64| {
+        let (mut xgx, mut xcx) = (-0.0, -0.0);
+        for ((v, &l), &c) in x.iter_mut().zip(leak).zip(cap) {
+            *v /= norm;
+            xgx += l * *v * *v;
+            xcx += c * *v * *v;
+        }
         for k in 1..n {
             let d = x[k] - x[parent[k] as usize];
             xgx += g[k] * d * d;
         }
-        let xcx: f64 = (0..n).map(|k| cap[k] * x[k] * x[k]).sum();
-        (xgx / xcx.max(1e-300), xcx)
+        (xgx / f64::max(xcx, 1e-300), xcx)
     };
     x.clear();
     x.resize(n, 1.0);
-    let (mut lam, mut xcx) = rayleigh(x);
+    let (mut lam, mut xcx) = scaled_rayleigh(x, 1.0);
     for _ in 0..steps {
         x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
         fac.solve_in_place(x);
         let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
-        x.iter_mut().for_each(|v| *v /= norm);
-        let (next, next_xcx) = rayleigh(x);
+        let (next, next_xcx) = scaled_rayleigh(x, norm);
         let moved = ((next - lam) / next).abs();
         (lam, xcx) = (next, next_xcx);
         if moved < tol {
