@@ -629,9 +629,14 @@ impl Reducer {
             count[c as usize] += 1;
         }
         let cap = capacitance::assign(self, &kron, &site_compartment);
-        let mut kids: Vec<Vec<u32>> = vec![Vec::new(); m];
+        // children per compartment, in id order (a count and the first two: strict binary)
+        let mut kids = vec![(0usize, [0u32; 2]); m];
         for c in 1..m {
-            kids[kron.parent[c] as usize].push(c as u32);
+            let (count, first) = &mut kids[kron.parent[c] as usize];
+            if *count < 2 {
+                first[*count] = c as u32;
+            }
+            *count += 1;
         }
         let mut comps: Vec<Compartment> = Vec::with_capacity(m);
         for c in 0..m {
@@ -643,7 +648,7 @@ impl Reducer {
             comps.push(Compartment {
                 id: c as u32,
                 parent,
-                children: (kids[c].len() == 2).then(|| [kids[c][0], kids[c][1]]),
+                children: (kids[c].0 == 2).then_some(kids[c].1),
                 g_axial_ns: kron.g[c] * 1e9,
                 g_leak_ns: kron.shunt[c] * 1e9,
                 capacitance_pf: cap[c] * 1e12,
