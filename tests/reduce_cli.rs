@@ -297,6 +297,19 @@ fn the_default_capacitances_are_timed_and_fall_back_to_fitted_without_the_fideli
     assert_eq!(timed["parameters"]["capacitance"], "timed");
     assert_eq!(report["capacitance"], "timed");
     assert!(report.get("capacitance_note").is_none());
+    // what the timed rule did is reported: polish steps, and how many sites a neighbour serves,
+    // which must be the number of sites whose compartment differs from the fitted tree's
+    let sites = |d: &serde_json::Value| -> Vec<u64> {
+        let ss = d["site_map"].as_array().unwrap();
+        ss.iter()
+            .map(|s| s["compartment"].as_u64().unwrap())
+            .collect()
+    };
+    let moved = report["timed"]["sites_moved"].as_u64().unwrap() as usize;
+    let (st, sf) = (sites(&timed), sites(&fitted));
+    assert!(report["timed"]["steps"].as_u64().unwrap() >= 1);
+    assert_eq!(moved, st.iter().zip(&sf).filter(|(a, b)| a != b).count());
+    assert!(moved > 0 && moved < st.len(), "{moved} of {}", st.len());
     assert_eq!(caps(&timed), caps(&explicit));
     assert_ne!(caps(&timed), caps(&fitted));
     // Rm·Cm = 20 ms is the full cell's slowest time constant (Rall 1969): the fit holds the
@@ -313,6 +326,7 @@ fn the_default_capacitances_are_timed_and_fall_back_to_fitted_without_the_fideli
         "{text_report}"
     );
     assert_eq!(json["capacitance"], "fitted");
+    assert!(json.get("timed").is_none());
     assert!(
         json["capacitance_note"]
             .as_str()

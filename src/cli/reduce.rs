@@ -130,11 +130,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
     let mut tree = reducer.tree(a.compartments);
+    let mut timed = None;
     let fidelity = if a.no_fidelity {
         None
     } else {
         let f = Fidelity::new(&reducer, &a.fidelity.options()).with_context(|| name.clone())?;
-        f.apply_capacitance_rule(&mut tree)?;
+        timed = f.apply_capacitance_rule(&mut tree)?;
         Some(f.report(&tree, Some(&m))?)
     };
     let report = reducer.report(&tree)?;
@@ -198,6 +199,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             report: &report,
             capacitance: reducer.options().capacitance,
             capacitance_note: fallback.then_some(FALLBACK_NOTE),
+            timed: timed.as_ref(),
             fidelity: fidelity.as_ref(),
         };
         serde_json::to_writer_pretty(&mut out, &doc).map_err(std::io::Error::from)?;
@@ -206,6 +208,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         write_report(&mut out, &name, &report, reducer.max_compartments())?;
         if fallback {
             writeln!(out, "  note: {FALLBACK_NOTE}")?;
+        }
+        if let Some(t) = &timed {
+            writeln!(
+                out,
+                "  timed: capacitances polished in {} steps; {} of {} sites served by a neighbour of the compartment their point's link gave them",
+                t.steps,
+                t.sites_moved,
+                tree.site_compartment.len()
+            )?;
         }
         if let (Some(s), Some(mp)) = (&snapped, &map) {
             super::synapses::write_summary(&mut out, s, mp)?;
@@ -305,6 +316,9 @@ struct ReportOut<'a> {
     /// Why it is not the one asked for (the default `timed` without the fidelity run).
     #[serde(skip_serializing_if = "Option::is_none")]
     capacitance_note: Option<&'static str>,
+    /// What the timed rule did (polish steps, sites served by a neighbour); absent otherwise.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    timed: Option<&'a pollard::fidelity::PolishSummary>,
     fidelity: Option<&'a FidelityReport>,
 }
 
