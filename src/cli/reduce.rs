@@ -112,18 +112,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             Some(super::synapses::load(p, &m, &flat, &o)?)
         }
     };
-    let sites = match (&a.sites, &snapped) {
-        (_, Some(s)) => s.sites(),
-        (None, None) => Sites::Default,
-        (Some(p), None) => {
-            let text = std::fs::read_to_string(p)
-                .with_context(|| format!("{}: cannot read the site list", p.display()))?;
-            Sites::List(parse_sites_csv(&text, &m, &flat).with_context(|| p.display().to_string())?)
-        }
-    };
     let opts = ReduceOptions {
         types: a.types.clone(),
-        sites,
+        sites: sites_of(&a, snapped.as_ref(), &m, &flat)?,
         freq_hz: a.impedance_freq,
         junction_length_fraction: a.junction_fraction,
         capacitance: Capacitance::rule(a.capacitance, !a.no_fidelity)?,
@@ -179,19 +170,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     for (p, t) in &csvs {
         write_atomic(p, t.as_bytes(), &inputs)?;
     }
-    if let Some(path) = &a.swc {
-        let header = vec![
-            format!("reduced tree of {name}: {} compartments", tree.len()),
-            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
-        ];
-        write_atomic(path, reduced_tree_swc(&tree, &header).as_bytes(), &inputs)?;
-    }
-    if let Some(path) = &a.neuroml {
-        let id = pollard::neuroml::cell_id_from(&name);
-        let nml = pollard::neuroml::reduced_tree_neuroml(&tree, &id, &name, a.neuroml_rest)
-            .with_context(|| path.display().to_string())?;
-        write_atomic(path, nml.as_bytes(), &inputs)?;
-    }
+    write_other_formats(&a, &tree, &name, &inputs)?;
     let mut out = std::io::stdout().lock();
     let fallback = a.capacitance.is_none() && a.no_fidelity;
     if a.json {
@@ -226,6 +205,47 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// The sites of the reduction: the synapse table's, the site list's, or the default.
+fn sites_of(
+    a: &Args,
+    snapped: Option<&pollard::synapses::Snapped>,
+    m: &Morphology,
+    flat: &pollard::Flat,
+) -> anyhow::Result<Sites> {
+    Ok(match (&a.sites, snapped) {
+        (_, Some(s)) => s.sites(),
+        (None, None) => Sites::Default,
+        (Some(p), None) => {
+            let text = std::fs::read_to_string(p)
+                .with_context(|| format!("{}: cannot read the site list", p.display()))?;
+            Sites::List(parse_sites_csv(&text, m, flat).with_context(|| p.display().to_string())?)
+        }
+    })
+}
+
+/// The optional SWC and NeuroML files of the tree.
+fn write_other_formats(
+    a: &Args,
+    tree: &pollard::reduce::ReducedTree,
+    name: &str,
+    inputs: &[&std::path::Path],
+) -> anyhow::Result<()> {
+    if let Some(path) = &a.swc {
+        let header = vec![
+            format!("reduced tree of {name}: {} compartments", tree.len()),
+            format!("made by pollard {}", env!("CARGO_PKG_VERSION")),
+        ];
+        write_atomic(path, reduced_tree_swc(tree, &header).as_bytes(), inputs)?;
+    }
+    if let Some(path) = &a.neuroml {
+        let id = pollard::neuroml::cell_id_from(name);
+        let nml = pollard::neuroml::reduced_tree_neuroml(tree, &id, name, a.neuroml_rest)
+            .with_context(|| path.display().to_string())?;
+        write_atomic(path, nml.as_bytes(), inputs)?;
+    }
+    Ok(())
 }
 
 fn write_report(w: &mut impl Write, name: &str, r: &Report, max: usize) -> std::io::Result<()> {
