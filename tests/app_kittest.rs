@@ -576,6 +576,15 @@ fn response_traces_follow_the_click_and_the_budget() {
     );
 }
 
+/// The first painted text that starts with `prefix` (fails the test if there is none).
+fn text_starting(texts: &[(String, egui::Rect)], prefix: &str) -> (String, egui::Rect) {
+    texts
+        .iter()
+        .find(|(t, _)| t.starts_with(prefix))
+        .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
+        .clone()
+}
+
 /// Every text the frame painted, with its screen rectangle (egui_plot paints tick labels and axis
 /// titles as text shapes, not widgets, so they are read from the frame's shapes).
 fn painted_texts(h: &Harness<'static, PollardApp>) -> Vec<(String, egui::Rect)> {
@@ -604,13 +613,7 @@ fn axis_ticks(
     neighbour: &str,
 ) -> (String, Vec<(f64, egui::Rect)>) {
     let texts = painted_texts(h);
-    let find = |prefix: &str| {
-        texts
-            .iter()
-            .find(|(t, _)| t.starts_with(prefix))
-            .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
-            .clone()
-    };
+    let find = |prefix: &str| text_starting(&texts, prefix);
     let (title, tr) = find(title);
     let (_, nr) = find(neighbour);
     let half = (nr.center().x - tr.center().x).abs() / 2.0;
@@ -731,13 +734,7 @@ fn path_distance_axis_has_readable_ticks_on_a_large_cell_in_a_narrow_plot() {
 /// traces panel, below its title, above the time axis's tick line).
 fn traces_y_axis(h: &Harness<'static, PollardApp>) -> (String, Vec<String>) {
     let texts = painted_texts(h);
-    let find = |prefix: &str| {
-        texts
-            .iter()
-            .find(|(t, _)| t.starts_with(prefix))
-            .unwrap_or_else(|| panic!("no text {prefix:?} painted"))
-            .clone()
-    };
+    let find = |prefix: &str| text_starting(&texts, prefix);
     let (_, panel) = find("Soma voltage for a brief");
     let (_, time) = find("time (ms)");
     let numeric = |t: &str| t.replace('\u{2212}', "-").parse::<f64>().is_ok();

@@ -464,3 +464,12 @@ pub struct ReducedRun {
     pub soma_ttp_ms: f64,
     pub not_peaked: usize,
 }
+
+/// The demo cell's reducer (default options and membrane) and its fidelity, for unit tests.
+#[cfg(test)]
+fn demo_reduction() -> (Reducer, Fidelity) {
+    let flat = crate::samples::demo().flatten();
+    let red = Reducer::new(&flat, &crate::cable::Params::default(), &Default::default()).unwrap();
+    let fid = Fidelity::new(&red, &Default::default()).unwrap();
+    (red, fid)
+}

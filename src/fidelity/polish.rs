@@ -175,7 +175,7 @@ impl Fidelity {
 }
 
 /// ln of a positive value, floored at 1e-300 (a zero peak stays finite).
-fn ln_floor(x: f64) -> f64 {
+pub(super) fn ln_floor(x: f64) -> f64 {
     x.max(1e-300).ln()
 }
 
@@ -238,16 +238,11 @@ fn slowest_ms(net: &RcNetwork) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cable::Params;
-    use crate::reduce::{ReduceOptions, Reducer};
 
     #[test]
     fn the_per_compartment_objective_is_the_sum_over_sites() {
         // reference: J written as the module documentation states it, one term per site
-        let m = crate::samples::demo();
-        let red =
-            Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
-        let fid = Fidelity::new(&red, &Default::default()).unwrap();
+        let (red, fid) = crate::fidelity::demo_reduction();
         for budget in [3, 15, 31] {
             let tree = red.tree(budget);
             let net = RcNetwork::from_reduced(&tree);

@@ -12,6 +12,7 @@
 //! What this step does not do: change any conductance or capacitance (the DC network and the
 //! dynamics stay as built), or move a site more than one link per call.
 
+use super::polish::ln_floor;
 use super::{Fidelity, FidelityError};
 use crate::morphology::NONE;
 use crate::reduce::ReducedTree;
@@ -29,7 +30,10 @@ impl Fidelity {
     /// response is most like the cell's at the site (see the module documentation). Returns how
     /// many sites moved. A tree from another reducer (its site count differs) is refused.
     pub fn serve_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
-        if tree.site_compartment.len() != self.peak.len() {
+        let points = tree.point_compartment.len();
+        if tree.site_compartment.len() != self.peak.len()
+            || self.point.iter().any(|&p| p as usize >= points)
+        {
             return Err(FidelityError::Mismatch {
                 what: "number of sites",
             });
@@ -38,44 +42,27 @@ impl Fidelity {
         let run = simulate(&net, &self.opts.drive(), &[], &self.opts.run_options())?;
         let peaks = run.peaks.expect("peaks tracked");
         let ln_a = tree.ln_attenuation_dc();
-        let ln = |x: f64| x.max(1e-300).ln();
         let cost = |i: usize, c: usize| -> f64 {
             DC_WEIGHT * (self.ln_to[i] - ln_a[c]).abs()
-                + TIME_WEIGHT * (ln(peaks.time_ms[c]) - ln(self.ttp[i])).abs()
-                + (ln(peaks.value_mv[c]) - ln(self.peak[i])).abs()
+                + TIME_WEIGHT * (ln_floor(peaks.time_ms[c]) - ln_floor(self.ttp[i])).abs()
+                + (ln_floor(peaks.value_mv[c]) - ln_floor(self.peak[i])).abs()
         };
         // a point carrying several sites moves once, with its first site
-        let mut decided = vec![NONE; tree.point_compartment.len()];
+        let mut decided = vec![NONE; points];
         let mut moved = 0;
         for i in 0..tree.site_compartment.len() {
-            let c = tree.site_compartment[i] as usize;
-            let p = self.point[i] as usize;
-            let pick = if decided.get(p).is_some_and(|&d| d != NONE) {
-                decided[p] as usize
-            } else {
-                let comp = &tree.compartments[c];
-                let near = comp
-                    .parent
-                    .into_iter()
-                    .chain(comp.children.into_iter().flatten());
-                let mut best = (cost(i, c), c);
-                for k in near {
-                    let e = cost(i, k as usize);
-                    if e < best.0 {
-                        best = (e, k as usize);
-                    }
+            let (c, p) = (tree.site_compartment[i] as usize, self.point[i] as usize);
+            if decided[p] == NONE {
+                let pick = cheapest(tree, c, |k| cost(i, k));
+                decided[p] = pick as u32;
+                let was = tree.point_compartment[p];
+                if was != NONE && pick != c {
+                    tree.compartments[was as usize].membrane_area_um2 -= self.area[i];
+                    tree.compartments[pick].membrane_area_um2 += self.area[i];
+                    tree.point_compartment[p] = pick as u32;
                 }
-                if let Some(d) = decided.get_mut(p) {
-                    *d = best.1 as u32;
-                    if tree.point_compartment[p] != NONE && best.1 != c {
-                        let was = tree.point_compartment[p] as usize;
-                        tree.compartments[was].membrane_area_um2 -= self.area[i];
-                        tree.compartments[best.1].membrane_area_um2 += self.area[i];
-                        tree.point_compartment[p] = best.1 as u32;
-                    }
-                }
-                best.1
-            };
+            }
+            let pick = decided[p] as usize;
             if pick != c {
                 moved += 1;
                 tree.compartments[c].site_count -= 1;
@@ -87,18 +74,30 @@ impl Fidelity {
     }
 }
 
+/// Of compartment c, its parent and its children, the one of least `cost` (c on ties).
+fn cheapest(tree: &ReducedTree, c: usize, cost: impl Fn(usize) -> f64) -> usize {
+    let comp = &tree.compartments[c];
+    let near = comp
+        .parent
+        .into_iter()
+        .chain(comp.children.into_iter().flatten());
+    let mut best = (cost(c), c);
+    for k in near.map(|k| k as usize) {
+        let e = cost(k);
+        if e < best.0 {
+            best = (e, k);
+        }
+    }
+    best.1
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cable::Params;
-    use crate::reduce::{ReduceOptions, Reducer};
 
     #[test]
     fn sites_move_one_link_at_most_and_the_maps_stay_one() {
-        let m = crate::samples::demo();
-        let red =
-            Reducer::new(&m.flatten(), &Params::default(), &ReduceOptions::default()).unwrap();
-        let fid = Fidelity::new(&red, &Default::default()).unwrap();
+        let (red, fid) = crate::fidelity::demo_reduction();
         let mut total_moved = 0;
         for budget in [7, 15, 31] {
             let before = red.tree(budget);

@@ -480,7 +480,7 @@ impl Reducer {
         let full_lz = capacitance::full_log_transfer(&kept, params);
         let lt = order::timing_coordinate(
             &fine,
-            full_lz.get(capacitance::TIMING_HZ_INDEX),
+            full_lz.get(capacitance::TIMING_HZ_INDEX).map(Vec::as_slice),
             capacitance::FIT_HZ[capacitance::TIMING_HZ_INDEX],
         );
         let mut sk = order::skeleton(&fine, &site_fine, &lt);

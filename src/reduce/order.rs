@@ -131,7 +131,7 @@ const TIME_REF_MS: f64 = 1.0;
 /// extra delay of a synaptic potential from there (phase delay). Its log tracks the log of the
 /// soma EPSP's time to peak with correlation 0.95–0.997 on the shared real cells (measured),
 /// where the DC log attenuation alone gives 0.41–0.97. All zero when `lz` is missing.
-pub(super) fn timing_coordinate(fine: &Fine, lz: Option<&Vec<C64>>, hz: f64) -> Vec<f64> {
+pub(super) fn timing_coordinate(fine: &Fine, lz: Option<&[C64]>, hz: f64) -> Vec<f64> {
     let Some(lz) = lz.filter(|v| !v.is_empty()) else {
         return vec![0.0; fine.len()];
     };

@@ -108,6 +108,17 @@ fn assert_close(a: &DMatrix<f64>, b: &DMatrix<f64>, tol: f64, what: &str) {
     );
 }
 
+/// `t`'s conductance matrix is the Schur complement of the cell's (`a`) onto its compartments,
+/// each found through the SWC line it is named after.
+fn assert_kron_reduction(f: &Flat, a: &DMatrix<f64>, t: &ReducedTree, what: &str) {
+    let keep: Vec<usize> = t
+        .compartments
+        .iter()
+        .map(|c| f.line.iter().position(|&l| l == c.swc_line).unwrap())
+        .collect();
+    assert_close(&schur(a, &keep), &tree_matrix(t), 1e-10, what);
+}
+
 /// A strictly binary cell (no junctions needed): soma with two stems, forks, long chains.
 fn binary_cell() -> Flat {
     flat_by_hand(
@@ -139,18 +150,7 @@ fn every_budget_is_the_kron_reduction_of_its_compartments() {
     for b in [1, 3, 5, 7, 9] {
         let t = r.tree(b);
         assert_eq!(t.len(), b);
-        // compartment → flat node through the SWC line it is named after
-        let keep: Vec<usize> = t
-            .compartments
-            .iter()
-            .map(|c| f.line.iter().position(|&l| l == c.swc_line).unwrap())
-            .collect();
-        assert_close(
-            &schur(&a, &keep),
-            &tree_matrix(&t),
-            1e-10,
-            &format!("budget {b}"),
-        );
+        assert_kron_reduction(&f, &a, &t, &format!("budget {b}"));
     }
 }
 
@@ -197,17 +197,7 @@ fn small_side_branches_leave_the_tree_before_a_large_tuft_merges() {
     assert_eq!(t.compartments[thick as usize].parent, Some(fork));
     assert!(side == 0 || side == fork, "side branch served by {side}");
     // and the tree is still the Schur complement of the cell's network (nalgebra)
-    let keep: Vec<usize> = t
-        .compartments
-        .iter()
-        .map(|c| f.line.iter().position(|&l| l == c.swc_line).unwrap())
-        .collect();
-    assert_close(
-        &schur(&full_matrix(&f, &p), &keep),
-        &tree_matrix(&t),
-        1e-10,
-        "budget 5",
-    );
+    assert_kron_reduction(&f, &full_matrix(&f, &p), &t, "budget 5");
 }
 
 #[test]
