@@ -43,25 +43,32 @@ fn capacitance_rule() -> CapacitanceRule {
     }
 }
 
-/// The smallest time-to-peak error p95 any reduced tree could reach with this site → compartment
-/// map, whatever its dynamics: each compartment has one soma response, so one time-to-peak t for
-/// all its sites; a site is within relative error e when its own time-to-peak lies in
-/// [t/(1 + e), t/(1 − e)]. Bisection on e, each compartment's best window by two pointers over
-/// its sites' sorted times.
-fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -> f64 {
+/// The smallest p95 of an error any reduced tree could reach with this site → compartment map,
+/// whatever its dynamics: each compartment has one soma response, so one value (time to peak,
+/// or EPSP peak) for all its sites; `width(e)` is the span of log values one response can serve
+/// within error e (time to peak: a site's own t within [t/(1 + e), t/(1 − e)]; peak: ln p within
+/// ±e). Bisection on e, each compartment's best window by two pointers over its sites' sorted
+/// log values.
+fn map_floor(
+    rows: &[pollard::fidelity::SiteFidelity],
+    comps: usize,
+    value: impl Fn(&pollard::fidelity::SiteFidelity) -> f64,
+    width: impl Fn(f64) -> f64,
+    hi: f64,
+) -> f64 {
     let mut by: Vec<Vec<f64>> = vec![Vec::new(); comps];
     for r in rows {
-        by[r.compartment as usize].push(r.time_to_peak_full_ms.max(1e-9).ln());
+        by[r.compartment as usize].push(value(r).max(1e-300).ln());
     }
     by.iter_mut().for_each(|v| v.sort_by(f64::total_cmp));
     let need = (0.95 * rows.len() as f64).ceil() as usize;
     let covered = |e: f64| -> usize {
-        let width = ((1.0 + e) / (1.0 - e).max(1e-12)).ln();
+        let w = width(e);
         by.iter()
             .map(|v| {
                 let (mut best, mut j) = (0, 0);
                 for i in 0..v.len() {
-                    while v[i] - v[j] > width {
+                    while v[i] - v[j] > w {
                         j += 1;
                     }
                     best = best.max(i + 1 - j);
@@ -70,7 +77,7 @@ fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -
             })
             .sum()
     };
-    let (mut lo, mut hi) = (0.0, 0.999);
+    let (mut lo, mut hi) = (0.0, hi);
     for _ in 0..40 {
         let mid = 0.5 * (lo + hi);
         if covered(mid) >= need {
@@ -80,6 +87,17 @@ fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -
         }
     }
     hi
+}
+
+/// [`map_floor`] of the time-to-peak error (relative).
+fn ttp_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -> f64 {
+    let width = |e: f64| ((1.0 + e) / (1.0 - e).max(1e-12)).ln();
+    map_floor(rows, comps, |r| r.time_to_peak_full_ms, width, 0.999)
+}
+
+/// [`map_floor`] of the EPSP peak error (Np).
+fn peak_partition_floor(rows: &[pollard::fidelity::SiteFidelity], comps: usize) -> f64 {
+    map_floor(rows, comps, |r| r.epsp_peak_full_mv, |e| 2.0 * e, 50.0)
 }
 
 fn flags(p: &PrepOptions) -> String {
@@ -118,6 +136,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
         let r = fid.report(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let (site_rows, _) = fid.sites(&tree, Some(&m)).map_err(|e| e.to_string())?;
         let floor = ttp_partition_floor(&site_rows, tree.len());
+        let peak_floor = peak_partition_floor(&site_rows, tree.len());
         let (e, pe) = (r.epsp_peak_error_np, r.epsp_peak_error_percent);
         let got = if tree.len() < b {
             format!("{b} (max {})", tree.len())
@@ -125,7 +144,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
             b.to_string()
         };
         rows.push(format!(
-            "| {name} | {} | {got} | {:.2} / {:.2} | {:.2} / {:.2} | {:.0} % / {:.0} % ({:.2} / {:.2} Np) | {:.0} % (floor {:.0} %) | {:.1} % ({:.3} Np) | {} | {} | {:.0} | {} | {:.1} |",
+            "| {name} | {} | {got} | {:.2} / {:.2} | {:.2} / {:.2} | {:.0} % / {:.0} % ({:.2} / {:.2} Np; floor {:.2} Np) | {:.0} % (floor {:.0} %) | {:.1} % ({:.3} Np) | {} | {} | {:.0} | {} | {:.1} |",
             flags(&prep),
             r.ln_attenuation_to_soma_error_np.median,
             r.ln_attenuation_to_soma_error_np.p95,
@@ -135,6 +154,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
             pe.p95,
             e.median,
             e.p95,
+            peak_floor,
             r.time_to_peak_error.p95 * 100.0,
             floor * 100.0,
             percent(r.soma_epsp_peak_error_np),
@@ -180,7 +200,7 @@ fn main() {
         Params::default()
     );
     println!(
-        "| cell | flags | budget | DC to soma (Np) median / p95 | DC from soma (Np) median / p95 | EPSP peak error median / p95 | time-to-peak error p95 | soma's own EPSP peak error | sites | fine nodes | run (ms) | not peaked | setup (s) |"
+        "| cell | flags | budget | DC to soma (Np) median / p95 | DC from soma (Np) median / p95 | EPSP peak error median / p95 (floor of the map) | time-to-peak error p95 (floor of the map) | soma's own EPSP peak error | sites | fine nodes | run (ms) | not peaked | setup (s) |"
     );
     println!("|---|---|---|---|---|---|---|---|---|---|---|---|---|");
     for f in files {
