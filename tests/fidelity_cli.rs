@@ -248,3 +248,77 @@ fn trace_and_fidelity_polish_the_default_tree_as_reduce_does() {
     );
     assert_eq!(sites["summary"], reduced["fidelity"]);
 }
+
+#[test]
+fn budgets_judges_every_budget_as_reduce_does_on_every_real_cell() {
+    let dir = tempfile::tempdir().unwrap();
+    for (cell, flags, _) in real_cells() {
+        let c = cell.to_str().unwrap();
+        let csv = dir.path().join("budgets.csv");
+        let json = dir.path().join("budgets.json");
+        let mut args = vec!["budgets", c, "--budgets", "15,3,16"];
+        args.extend(&flags);
+        args.extend(["--csv", csv.to_str().unwrap(), "-o", json.to_str().unwrap()]);
+        let o = pollard(&args);
+        assert!(o.status.success(), "{}", text(&o.stderr));
+        // one line per distinct tree (16 rounds down to 15), ascending
+        let out = text(&o.stdout);
+        assert_eq!(out.lines().count(), 2 + 2, "{out}");
+        let table = std::fs::read_to_string(&csv).unwrap();
+        let lines: Vec<&str> = table.lines().collect();
+        assert_eq!(lines.len(), 3, "{table}");
+        assert!(
+            lines[1].starts_with("3,3,") && lines[2].starts_with("15,15,"),
+            "{table}"
+        );
+        assert!(!table.contains("NaN") && !table.contains("inf"), "{table}");
+        let v: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+        assert_eq!(v["format"], "pollard.fidelity-budgets");
+        assert_eq!(v["capacitance"], "timed");
+        // reference: `pollard reduce`'s own fidelity summary of its 15-compartment tree
+        let tree = dir.path().join("tree.json");
+        let mut r = vec!["reduce", c, "-n", "15", "--out", tree.to_str().unwrap()];
+        r.extend(&flags);
+        let o = pollard(&r);
+        assert!(o.status.success(), "{}", text(&o.stderr));
+        let reduced: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&tree).unwrap()).unwrap();
+        assert_eq!(v["budgets"][1]["report"], reduced["fidelity"], "{c}");
+        // (serde_json's float parsing may differ in the last bit)
+        let p95: f64 = lines[2].split(',').nth(6).unwrap().parse().unwrap();
+        let want = reduced["fidelity"]["epsp_peak_error_np"]["p95"]
+            .as_f64()
+            .unwrap();
+        assert!((p95 - want).abs() <= 1e-12 * want, "{p95} vs {want}");
+    }
+}
+
+#[test]
+fn budgets_defaults_double_up_to_the_cells_maximum_and_errors_are_one_line() {
+    let cell = manifest("tests/data/real/interneuron_ca1_pv.swc");
+    let c = cell.to_str().unwrap();
+    let o = pollard(&["budgets", c]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let firsts: Vec<usize> = text(&o.stdout)
+        .lines()
+        .skip(2)
+        .map(|l| l.split('|').next().unwrap().trim().parse().unwrap())
+        .collect();
+    // this cell allows 37 compartments at most (docs/fidelity.md)
+    assert_eq!(firsts, vec![1, 3, 7, 15, 31, 37]);
+    // a malformed list is the argument parser's usage error (exit 2)
+    let r = pollard(&["budgets", c, "--budgets", "x"]);
+    assert_eq!(r.status.code(), Some(2));
+    assert!(text(&r.stderr).contains("invalid digit"));
+    for (args, needle) in [
+        (vec!["budgets", c, "--epsp-tau", "0"], "EPSP time constant"),
+        (vec!["budgets", "/no/such/file.swc"], "/no/such/file.swc"),
+    ] {
+        let r = pollard(&args);
+        assert_eq!(r.status.code(), Some(1), "{args:?}");
+        let e = text(&r.stderr);
+        assert!(e.contains(needle), "{args:?}: {e}");
+        assert_eq!(e.trim_end().lines().count(), 1, "{args:?}: {e}");
+    }
+}

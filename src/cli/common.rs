@@ -98,13 +98,19 @@ impl FidelityArgs {
     }
 }
 
-/// The reduction's own options, for the commands that reduce on the way (fidelity, trace).
+/// The budget of one reduced tree, for the commands that judge one (fidelity, trace).
 #[derive(clap::Args, Debug, Clone)]
-pub struct ReduceArgs {
+pub struct BudgetArg {
     /// Number of compartments of the reduced tree, soma included (an even number is rounded
     /// down; above the maximum gives the maximum).
     #[arg(long, short = 'n', value_name = "N")]
     pub compartments: usize,
+}
+
+/// The reduction's own options, for the commands that reduce on the way (fidelity, trace,
+/// budgets).
+#[derive(clap::Args, Debug, Clone)]
+pub struct ReduceArgs {
     /// Site list of the reduction: one SWC id, or one x,y,z position, per line. Default: every
     /// dendritic point, weighted by membrane area.
     #[arg(long = "sites", value_name = "FILE")]
@@ -135,7 +141,7 @@ pub fn parse_type(s: &str) -> Result<i32, String> {
 }
 
 /// The cell and what makes its reduction, for the commands that reduce on the way (fidelity,
-/// trace).
+/// trace, budgets).
 #[derive(clap::Args, Debug, Clone)]
 pub struct ReducedCellArgs {
     /// The SWC file to read.

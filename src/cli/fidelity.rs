@@ -19,6 +19,8 @@ pub struct Args {
     #[command(flatten)]
     pub from: super::common::ReducedCellArgs,
     #[command(flatten)]
+    pub budget: super::common::BudgetArg,
+    #[command(flatten)]
     pub fidelity: super::common::FidelityArgs,
     /// Write the per-site table as CSV to this file.
     #[arg(long, value_name = "SITES.csv")]
@@ -47,7 +49,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     opts.validate()?;
     let name = a.from.cell.display().to_string();
     let (m, reducer) = a.from.reducer()?;
-    let mut tree = reducer.tree(a.from.reduce.compartments);
+    let mut tree = reducer.tree(a.budget.compartments);
     let fid = Fidelity::new(&reducer, &opts)?;
     // `timed` (the default): the tree is polished on this run before it is judged
     fid.apply_capacitance_rule(&mut tree)?;

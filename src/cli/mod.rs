@@ -4,6 +4,7 @@ use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
 mod batch;
+mod budgets;
 mod cable;
 mod common;
 mod fidelity;
@@ -35,6 +36,9 @@ pub enum Command {
     /// How well a reduced tree behaves like the cell at every synapse site (EPSP peak and time
     /// to peak, DC attenuation to and from the soma): a per-site table, CSV and JSON.
     Fidelity(fidelity::Args),
+    /// The fidelity report at several budgets of one cell, one line each (DC attenuation, EPSP
+    /// peak and time to peak, the soma's own EPSP): which budget is good enough. Text, CSV, JSON.
+    Budgets(budgets::Args),
     /// Voltage over time at the soma and at one injection point, full cell and reduced tree, for
     /// a current or a conductance synapse there: CSV and JSON.
     Trace(trace::Args),
@@ -53,6 +57,7 @@ pub fn main() -> ExitCode {
         Some(Command::Cable(a)) => cable::run(a),
         Some(Command::Reduce(a)) => reduce::run(a),
         Some(Command::Fidelity(a)) => fidelity::run(a),
+        Some(Command::Budgets(a)) => budgets::run(a),
         Some(Command::Trace(a)) => trace::run(a),
         Some(Command::Batch(a)) => batch::run(a),
         Some(Command::View(a)) => view::run(a),

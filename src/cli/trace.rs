@@ -21,6 +21,8 @@ g(t)(E - V) whose g is a difference of exponentials peaking at --g-peak.")]
 pub struct Args {
     #[command(flatten)]
     pub from: super::common::ReducedCellArgs,
+    #[command(flatten)]
+    pub budget: super::common::BudgetArg,
     /// The injection point: an SWC id.
     #[arg(
         long = "injection-point",
@@ -175,7 +177,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         (None, None) => anyhow::bail!("give --injection-point ID or --at X,Y,Z"),
     };
     let point = resolve_site(&m, &reducer, site)?;
-    let mut tree = reducer.tree(a.from.reduce.compartments);
+    let mut tree = reducer.tree(a.budget.compartments);
     // `timed` (the default): polished on the full cell's EPSP run, as `pollard reduce` does
     if reducer.options().capacitance == CapacitanceRule::Timed {
         Fidelity::new(&reducer, &FidelityOptions::default())?.apply_capacitance_rule(&mut tree)?;

@@ -9,9 +9,11 @@
 //! the expensive part: [`Fidelity::new`] does it once per reducer; [`Fidelity::report`] then
 //! costs one run of the (small) reduced tree.
 
+mod budgets;
 mod polish;
 mod serve;
 mod traces;
+pub use budgets::{BudgetFidelity, budgets_csv, default_budgets};
 pub use polish::{POLISH_ITERATIONS, POLISH_MAX_COMPARTMENTS, PolishSummary};
 
 pub use traces::{
