@@ -415,9 +415,25 @@ def test_synapse_table_errors_and_scale(tmp_path):
             f[i] = repr(float(f[i]) * 1000)
         out.append(",".join(f))
     nm_table.write_text("\n".join(out) + "\n")
-    um = pollard.reduce(str(DEMO_CELL), compartments=15, synapses=str(DEMO_TABLE))
-    nm = pollard.reduce(str(nm_cell), compartments=15, synapses=str(nm_table), scale=0.001)
-    a, b = um.synapse_matrix(), nm.synapse_matrix()
+    # The fitted tree's map depends on the geometry alone: equal. The timed rule (default) also
+    # serves each synapse by its compartment's or a neighbour's polished response, a discrete
+    # choice that the last bits of the converted coordinates can flip for a synapse on a tie
+    # (3 of 355 entries here): nearly all equal.
+    def pair(**kw):
+        um = pollard.reduce(str(DEMO_CELL), compartments=15, synapses=str(DEMO_TABLE), **kw)
+        nm = pollard.reduce(str(nm_cell), compartments=15, synapses=str(nm_table), scale=0.001,
+                            **kw)
+        return um.synapse_matrix(), nm.synapse_matrix()
+    a, b = pair(capacitance="fitted")
     for k in ("row", "column", "count"):
         np.testing.assert_array_equal(a[k], b[k])
     np.testing.assert_allclose(a["weight"], b["weight"], rtol=1e-12)
+    a, b = pair()
+
+    def dense(m):
+        d = np.zeros((m["row"].max() + 1, 15))
+        np.add.at(d, (m["row"], m["column"]), m["count"])
+        return d
+    da, db = dense(a), dense(b)
+    assert da.shape == db.shape and da.sum() == db.sum()
+    assert np.minimum(da, db).sum() >= 0.98 * da.sum(), np.minimum(da, db).sum() / da.sum()
