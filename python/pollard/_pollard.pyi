@@ -116,6 +116,10 @@ class ReducedTree:
         max_duration_ms: float = 500.0,
     ) -> Dict[str, npt.NDArray[Any]]:
         """The per-site table behind `fidelity`: one numpy array per column."""
+    def budget_sweep(self, budgets: Optional[List[int]] = None) -> List[Dict[str, Any]]:
+        """The fidelity summary at several budgets of this tree's reduction (`pollard budgets`):
+        one dict per distinct tree, ascending (compartments, requested, slowest_time_constant_ms,
+        polish, report); default budgets 1, 3, 7, 15, ... and the cell's maximum."""
     def synapse_matrix(self) -> Dict[str, Any]:
         """The input × compartment matrix of the synapse table the tree was reduced for:
         'row', 'column', 'count' (int64 arrays), 'weight' (float64), 'shape' (inputs,

@@ -6,7 +6,7 @@ use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyArray2};
 use pollard::cable::Params;
 use pollard::export::{TreeExtras, TreeSource, reduced_tree_json_with, write_atomic};
-use pollard::fidelity::{Fidelity, FidelityOptions};
+use pollard::fidelity::{Fidelity, FidelityOptions, default_budgets};
 use pollard::morphology::NONE;
 use pollard::reduce::{
     CapacitanceRule, Compartment, ReduceOptions, Reducer, Report, Role, Sites, parse_sites_csv,
@@ -223,6 +223,35 @@ impl ReducedTree {
             let (f, m) = self.fidelity_of(&opts)?;
             let r = f.report(&self.tree, Some(&m)).map_err(|e| e.to_string())?;
             serde_json::to_string(&r).map_err(|e| e.to_string())
+        })?;
+        json_to_py(py, &text)
+    }
+    /// The fidelity summary at several budgets of this tree's reduction (the command `pollard
+    /// budgets`): a list of dicts, one per distinct tree, ascending by compartments
+    /// (`compartments`, `requested`, `slowest_time_constant_ms`, `polish`, `report` as
+    /// `fidelity()` gives it). Default budgets 1, 3, 7, 15, … below the cell's maximum, then the
+    /// maximum; each tree is finished by this reduction's capacitance rule on one run of the cell.
+    #[pyo3(signature = (budgets=None))]
+    fn budget_sweep<'py>(
+        &self,
+        py: Python<'py>,
+        budgets: Option<Vec<usize>>,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        let text = work(py, || {
+            let (f, m) = self.fidelity_of(&FidelityOptions::default())?;
+            let Origin::Made { reducer, .. } = &self.origin else {
+                return Err("budget_sweep: a tree read from JSON has no cell".into());
+            };
+            let b = budgets
+                .clone()
+                .unwrap_or_else(|| default_budgets(reducer.max_compartments()));
+            if b.is_empty() {
+                return Err("budget_sweep: give at least one budget".into());
+            }
+            let rows = f
+                .budget_sweep(reducer, &b, Some(&m))
+                .map_err(|e| e.to_string())?;
+            serde_json::to_string(&rows).map_err(|e| e.to_string())
         })?;
         json_to_py(py, &text)
     }

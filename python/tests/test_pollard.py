@@ -290,6 +290,23 @@ def test_fidelity_report_and_sites(tmp_path):
         loaded.fidelity()
 
 
+def test_budget_sweep_is_the_commands(tmp_path):
+    """tree.budget_sweep: one entry per distinct tree, ascending; the entry of the tree's own
+    budget is its `fidelity()`; the whole list is `pollard budgets -o`'s (reference: the command
+    line on the same cell)."""
+    cell = REPO / "sample_cells" / "practice_stellate.swc"
+    tree = pollard.reduce(cell, compartments=21)
+    rows = tree.budget_sweep([21, 7, 8])
+    assert [(r["compartments"], r["requested"]) for r in rows] == [(7, 7), (21, 21)]
+    assert rows[1]["report"] == tree.fidelity()
+    out = tmp_path / "budgets.json"
+    cli("budgets", cell, "--budgets", "21,7,8", "-o", out)
+    assert json.loads(out.read_text())["budgets"] == rows
+    assert [r["compartments"] for r in tree.budget_sweep()][:4] == [1, 3, 7, 15]
+    with pytest.raises(pollard.PollardError, match="at least one budget"):
+        tree.budget_sweep([])
+
+
 def test_timed_capacitances_polish_the_fitted_tree_as_the_cli_does(tmp_path):
     """capacitance="timed" (the default): the fitted tree's conductances bit for bit (the rule
     changes capacitances and which compartment serves some sites, never a conductance), other
