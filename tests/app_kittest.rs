@@ -924,3 +924,52 @@ fn a_budget_change_shows_the_fitted_tree_then_its_timed_polish_and_the_traces_fo
     assert_eq!(caps(&r.tree), caps(&fitted));
     assert!(h.state().error.is_none(), "{:?}", h.state().error);
 }
+
+#[test]
+fn the_epsp_curve_is_measured_on_request_and_drawn_in_the_error_plot() {
+    use pollard::fidelity::{Fidelity, FidelityOptions, default_budgets};
+    let mut h = harness(app_with(vec![]));
+    settle(&mut h);
+    let legend = |h: &Harness<'static, PollardApp>| {
+        painted_texts(h).iter().any(|(t, _)| t == "EPSP peak, p95")
+    };
+    assert!(!legend(&h), "not measured before it is asked for");
+    h.get_by_label("EPSP error too").click();
+    h.run_steps(2);
+    // background work the window does not wait for: poll until it arrives
+    let start = std::time::Instant::now();
+    loop {
+        let app = h.state();
+        if app.sweeper.curve(app.state.as_ref().unwrap()).is_some() {
+            break;
+        }
+        assert!(
+            start.elapsed().as_secs() < 600,
+            "no EPSP curve after 10 minutes"
+        );
+        h.state_mut().poll();
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    h.run_steps(3);
+    assert!(legend(&h), "the EPSP line is drawn once measured");
+    // reference: the library's sweep of the same reducer, from a run of its own
+    let app = h.state();
+    let s = app.state.as_ref().unwrap();
+    let curve = app.sweeper.curve(s).unwrap().to_vec();
+    let r = s.reduction.as_ref().unwrap().reducer();
+    let fid = Fidelity::new(r, &FidelityOptions::default()).unwrap();
+    let want = fid
+        .budget_sweep(r, &default_budgets(r.max_compartments()), None)
+        .unwrap();
+    let want: Vec<[f64; 2]> = want
+        .iter()
+        .map(|w| [w.compartments as f64, w.report.epsp_peak_error_np.p95])
+        .collect();
+    assert_eq!(curve, want);
+    assert_eq!(curve[0][0], 1.0);
+    assert_eq!(curve.last().unwrap()[0], r.max_compartments() as f64);
+    // unticked: the line goes
+    h.get_by_label_contains("EPSP error too").click();
+    h.run_steps(3);
+    assert!(!legend(&h));
+}

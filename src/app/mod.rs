@@ -19,6 +19,7 @@ pub mod polish;
 pub mod reduction;
 mod saving;
 pub mod state;
+pub mod sweep;
 pub mod synapses;
 pub mod terms;
 pub mod traces;
@@ -115,6 +116,8 @@ pub struct PollardApp {
     pub traces: traces::TracesView,
     /// The `timed` rule's background polish of the shown tree.
     pub polisher: polish::Polisher,
+    /// The EPSP error per budget of the shown reduction, measured in the background.
+    pub sweeper: sweep::Sweeper,
     pub scale: colour::Scale,
     colours: Option<colour::Colours>,
     colours_version: (u64, usize),
@@ -170,6 +173,7 @@ impl PollardApp {
             plots: PlotsPanel::default(),
             traces: traces::TracesView::default(),
             polisher: polish::Polisher::default(),
+            sweeper: sweep::Sweeper::default(),
             scale: colour::Scale::new(),
             colours: None,
             colours_version: (0, 0),
@@ -368,6 +372,10 @@ impl PollardApp {
             }
         }
         self.traces.poll();
+        let others = self.busy();
+        if let Some(s) = &self.state {
+            self.sweeper.update(s, others, self.ctx.clone());
+        }
         if let Some(lab_tree) = self.lab.take_send_to_main() {
             self.open_morphology(lab_tree.0, lab_tree.1);
             self.screen = Screen::Cell;
@@ -571,7 +579,7 @@ impl PollardApp {
                         .default_size(430.0f32.min(most))
                         .max_size(most)
                         .show(ui, |ui| self.traces.ui(ui, s));
-                    self.plots.ui(ui, s);
+                    self.plots.ui(ui, s, &mut self.sweeper);
                 }
                 None => {
                     ui.allocate_space(ui.available_size());

@@ -445,10 +445,10 @@ pub struct PlotsPanel {
 const PLOT_POINTS: usize = 10_000;
 
 impl PlotsPanel {
-    pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState) {
+    pub fn ui(&mut self, ui: &mut egui::Ui, s: &CellState, sweep: &mut super::sweep::Sweeper) {
         ui.columns(3, |cols| {
             self.attenuation(&mut cols[0], s);
-            error_plot(&mut cols[1], s);
+            error_plot(&mut cols[1], s, sweep);
             sholl_plot(&mut cols[2], s);
         });
     }
@@ -499,10 +499,28 @@ impl PlotsPanel {
     }
 }
 
-fn error_plot(ui: &mut egui::Ui, s: &CellState) {
-    plot_title(ui, "Reduction error vs number of compartments").on_hover_text(
-        "Weighted RMS over the sites of the error in DC attenuation to the soma, in Np",
+fn error_plot(ui: &mut egui::Ui, s: &CellState, sweep: &mut super::sweep::Sweeper) {
+    let note = match (sweep.curve(s), sweep.error(s)) {
+        (Some(_), _) => "measured on one tree per budget, each finished by the capacitance rule",
+        (None, Some(_)) => "could not be measured",
+        (None, None) if sweep.running() => "being measured in the background",
+        (None, None) => "tick the box to measure it (a few seconds, in the background)",
+    };
+    plot_title(ui, "Reduction error vs number of compartments").on_hover_text(format!(
+        "DC: the collapse order's estimate of the weighted RMS error, over the sites, of the \
+         DC attenuation to the soma (Np).\nEPSP: the 95th percentile over the sites of the \
+         soma EPSP's peak error |ln(reduced/cell)| for a brief current at the site (Np); {note}."
+    ));
+    let label = match (sweep.curve(s), sweep.error(s)) {
+        (_, Some(e)) => format!("EPSP error too ({e})"),
+        (None, None) if sweep.wanted => "EPSP error too (measuring…)".to_string(),
+        _ => "EPSP error too".to_string(),
+    };
+    ui.checkbox(&mut sweep.wanted, label).on_hover_text(
+        "Also measure the soma EPSP's peak error (95th percentile over the sites) at 1, 3, 7, \
+         15, … compartments: one reduced tree per budget, finished by the capacitance rule",
     );
+    let epsp = sweep.curve(s).filter(|_| sweep.wanted);
     match &s.reduction {
         Some(r) => {
             let curve: Vec<[f64; 2]> = r
@@ -514,9 +532,23 @@ fn error_plot(ui: &mut egui::Ui, s: &CellState) {
             let current = s.reduced.as_ref().map(|t| t.tree.len()).unwrap_or(s.budget);
             let plot = Plot::new("error").legend(Legend::default());
             axis::readable_x(plot, "compartments")
-                .y_axis_label("DC attenuation error, RMS (Np)")
+                .y_axis_label("error (Np)")
                 .show(ui, |pu| {
-                    pu.line(Line::new("error", curve).color(Color32::from_rgb(120, 200, 235)));
+                    pu.line(
+                        Line::new("DC attenuation, RMS", curve)
+                            .color(Color32::from_rgb(120, 200, 235)),
+                    );
+                    if let Some(e) = epsp {
+                        pu.line(
+                            Line::new("EPSP peak, p95", e.to_vec())
+                                .color(Color32::from_rgb(235, 120, 170)),
+                        );
+                        pu.points(
+                            Points::new("EPSP peak, p95", e.to_vec())
+                                .radius(2.5)
+                                .color(Color32::from_rgb(235, 120, 170)),
+                        );
+                    }
                     pu.vline(
                         VLine::new(format!("now: {current}"), current as f64)
                             .color(Color32::from_rgb(250, 170, 60)),

@@ -9,6 +9,7 @@ use crate::fidelity::{Fidelity, FidelityOptions};
 use crate::morphology::{Flat, NONE};
 use crate::reduce::{CapacitanceRule, ReducedTree, Reducer, Sites};
 use crate::synapses::{Snapped, SynapseJson, SynapseMap};
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, OnceLock};
 
 /// What drawing needs of one budget's [`ReducedTree`] besides the tree: which compartment each
@@ -192,6 +193,24 @@ impl Reduction {
 
     pub fn error_curve(&self) -> Vec<(usize, f64)> {
         self.reducer.error_curve()
+    }
+
+    /// The soma-EPSP peak error's 95th percentile over the sites (Np) at 1, 3, 7, 15, …
+    /// compartments and the largest, each tree finished by this reduction's rule (blocking:
+    /// seconds on a large cell; the app runs it in the background, [`super::sweep`]). Stops
+    /// between budgets once `cancel` is set.
+    pub fn epsp_curve(&self, cancel: &AtomicBool) -> anyhow::Result<Vec<(usize, f64)>> {
+        let fid = self.fidelity()?;
+        let mut curve = Vec::new();
+        for b in crate::fidelity::default_budgets(self.reducer.max_compartments()) {
+            if cancel.load(Ordering::Relaxed) {
+                anyhow::bail!("cancelled");
+            }
+            for r in fid.budget_sweep(&self.reducer, &[b], None)? {
+                curve.push((r.compartments, r.report.epsp_peak_error_np.p95));
+            }
+        }
+        Ok(curve)
     }
 
     /// A finished tree of this reduction ([`Reduction::finished_tree`]) as JSON text.
