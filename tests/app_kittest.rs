@@ -453,10 +453,12 @@ fn start_options_set_budget_injection_point_frequency_colouring_and_layout() {
         freq_hz: Some(50.0),
         colour_by: Some(pollard::app::state::ColourBy::ToSoma),
         dendrogram: true,
+        epsp_curve: true,
         save_png: None,
         ..Default::default()
     });
     app.wait_idle();
+    assert!(app.sweeper.wanted);
     let s = app.state.as_ref().unwrap();
     assert_eq!(s.cell.name, "y.swc");
     let site = s.site.unwrap();

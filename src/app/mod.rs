@@ -52,6 +52,8 @@ pub struct StartOptions {
     pub freq_hz: Option<f64>,
     pub colour_by: Option<state::ColourBy>,
     pub dendrogram: bool,
+    /// Measure the EPSP error per budget for the error plot (its checkbox ticked).
+    pub epsp_curve: bool,
     /// Save a PNG of the figure once the reduced tree is drawn.
     pub save_png: Option<PathBuf>,
     /// A synapse table to open for the cell, and the input to choose in it.
@@ -389,6 +391,7 @@ impl PollardApp {
         if o.dendrogram {
             self.layout = ReducedLayout::Dendrogram;
         }
+        self.sweeper.wanted |= o.epsp_curve;
         self.png_when_ready = o.save_png.map(|p| (p, 0));
         let Some(s) = &mut self.state else { return };
         if let Some(f) = o.freq_hz {

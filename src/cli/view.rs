@@ -42,6 +42,10 @@ pub struct Args {
     /// Draw the reduced tree as a dendrogram rather than in place.
     #[arg(long)]
     pub dendrogram: bool,
+    /// Also measure the soma EPSP's peak error per budget (in the background) and draw it in the
+    /// error plot, as its checkbox "EPSP error too" does.
+    #[arg(long)]
+    pub epsp_curve: bool,
     /// Once both drawings are ready, save them with the colour bar as a PNG picture (the
     /// window stays open).
     #[arg(long, value_name = "FIGURE.png")]
@@ -78,6 +82,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             ColourBy::Type => C::NeuriteType,
         }),
         dendrogram: a.dendrogram,
+        epsp_curve: a.epsp_curve,
         save_png: a.save_png,
         synapses: a.synapses,
         synapse_input: a.input,
