@@ -500,22 +500,26 @@ impl PlotsPanel {
 }
 
 fn error_plot(ui: &mut egui::Ui, s: &CellState, sweep: &mut super::sweep::Sweeper) {
-    let note = match (sweep.curve(s), sweep.error(s)) {
-        (Some(_), _) => "measured on one tree per budget, each finished by the capacitance rule",
-        (None, Some(_)) => "could not be measured",
-        (None, None) if sweep.running() => "being measured in the background",
-        (None, None) => "tick the box to measure it (a few seconds, in the background)",
+    let (note, label) = match sweep.result(s) {
+        Some(Ok(_)) => (
+            "measured on one tree per budget, each finished by the capacitance rule",
+            "EPSP error too".to_string(),
+        ),
+        Some(Err(e)) => ("could not be measured", format!("EPSP error too ({e})")),
+        None if sweep.wanted => (
+            "being measured in the background",
+            "EPSP error too (measuring…)".to_string(),
+        ),
+        None => (
+            "tick the box to measure it (a few seconds, in the background)",
+            "EPSP error too".to_string(),
+        ),
     };
     plot_title(ui, "Reduction error vs number of compartments").on_hover_text(format!(
         "DC: the collapse order's estimate of the weighted RMS error, over the sites, of the \
          DC attenuation to the soma (Np).\nEPSP: the 95th percentile over the sites of the \
          soma EPSP's peak error |ln(reduced/cell)| for a brief current at the site (Np); {note}."
     ));
-    let label = match (sweep.curve(s), sweep.error(s)) {
-        (_, Some(e)) => format!("EPSP error too ({e})"),
-        (None, None) if sweep.wanted => "EPSP error too (measuring…)".to_string(),
-        _ => "EPSP error too".to_string(),
-    };
     ui.checkbox(&mut sweep.wanted, label).on_hover_text(
         "Also measure the soma EPSP's peak error (95th percentile over the sites) at 1, 3, 7, \
          15, … compartments: one reduced tree per budget, finished by the capacitance rule",

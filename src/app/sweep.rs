@@ -42,11 +42,6 @@ impl Drop for Sweeper {
 }
 
 impl Sweeper {
-    /// True while a sweep runs.
-    pub fn running(&self) -> bool {
-        self.running.is_some()
-    }
-
     /// Takes a finished sweep, stops one no longer needed, and starts the one the shown
     /// reduction needs when it is wanted and nothing else runs (`others_busy`). Every frame.
     pub fn update(&mut self, s: &CellState, others_busy: bool, ctx: Option<egui::Context>) {
@@ -94,21 +89,17 @@ impl Sweeper {
         });
     }
 
-    /// The shown reduction's curve, once measured.
-    pub fn curve(&self, s: &CellState) -> Option<&[[f64; 2]]> {
+    /// The shown reduction's sweep, once it has ended: its curve, or why it failed.
+    pub fn result(&self, s: &CellState) -> Option<Result<&[[f64; 2]], &str>> {
         let r = s.reduction.as_ref()?;
         match &self.done {
-            Some((d, Ok(c))) if Arc::ptr_eq(d, r) => Some(c),
+            Some((d, m)) if Arc::ptr_eq(d, r) => Some(m.as_deref().map_err(String::as_str)),
             _ => None,
         }
     }
 
-    /// Why the shown reduction's sweep failed, if it did.
-    pub fn error(&self, s: &CellState) -> Option<&str> {
-        let r = s.reduction.as_ref()?;
-        match &self.done {
-            Some((d, Err(e))) if Arc::ptr_eq(d, r) => Some(e),
-            _ => None,
-        }
+    /// The shown reduction's curve, once measured.
+    pub fn curve(&self, s: &CellState) -> Option<&[[f64; 2]]> {
+        self.result(s)?.ok()
     }
 }
