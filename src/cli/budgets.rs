@@ -56,10 +56,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let fid = Fidelity::new(&reducer, &opts)?;
     let rows = fid.budget_sweep(&reducer, &budgets, Some(&m))?;
-    let mut inputs = vec![a.from.cell.as_path()];
-    if let Some(s) = &a.from.reduce.sites {
-        inputs.push(s.as_path());
-    }
+    let inputs = a.from.inputs();
     if let Some(p) = &a.csv {
         write_atomic(p, budgets_csv(&rows).as_bytes(), &inputs)?;
     }
@@ -79,11 +76,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         };
         write_atomic(p, serde_json::to_string_pretty(&doc)?.as_bytes(), &inputs)?;
     }
-    let mut out = std::io::stdout().lock();
-    match write_table(&mut out, &name, &reducer, &rows) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(ExitCode::SUCCESS),
-    }
+    // a closed pipe is not an error: cli::main decides that
+    write_table(&mut std::io::stdout().lock(), &name, &reducer, &rows)?;
+    Ok(ExitCode::SUCCESS)
 }
 
 /// A percentage for the table's narrow column (errors of several nepers are thousands of %).

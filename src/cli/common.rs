@@ -155,6 +155,13 @@ pub struct ReducedCellArgs {
 }
 
 impl ReducedCellArgs {
+    /// The files read (the cell, and the site list if one is given): outputs must not be these.
+    pub fn inputs(&self) -> Vec<&std::path::Path> {
+        let mut v = vec![self.cell.as_path()];
+        v.extend(self.reduce.sites.as_deref());
+        v
+    }
+
     /// Reads the cell, prepares it and builds the reducer (as `pollard reduce` does).
     pub fn reducer(&self) -> anyhow::Result<(Morphology, Reducer)> {
         let (cell, r) = (self.cell.as_path(), &self.reduce);

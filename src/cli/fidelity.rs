@@ -55,10 +55,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     fid.apply_capacitance_rule(&mut tree)?;
     let (rows, _) = fid.sites(&tree, Some(&m))?;
     let summary = fid.report(&tree, Some(&m))?;
-    let mut inputs = vec![a.from.cell.as_path()];
-    if let Some(s) = &a.from.reduce.sites {
-        inputs.push(s.as_path());
-    }
+    let inputs = a.from.inputs();
     if let Some(p) = &a.csv {
         write_atomic(p, sites_csv(&rows).as_bytes(), &inputs)?;
     }
@@ -86,8 +83,6 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         rows.len()
     )
     .and_then(|_| super::reduce::write_fidelity(&mut out, &summary));
-    match written {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(ExitCode::SUCCESS),
-    }
+    written?; // a closed pipe is not an error: cli::main decides that
+    Ok(ExitCode::SUCCESS)
 }

@@ -193,7 +193,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let mut tr = response_traces(&reducer, &tree, point, &input, &opts)?;
     tr.swc_id = m.points.get(point as usize).map(|p| p.id);
-    let inputs = [a.from.cell.as_path()];
+    let inputs = a.from.inputs();
     if let Some(p) = &a.csv {
         write_atomic(p, tr.to_csv().as_bytes(), &inputs)?;
     }
@@ -224,8 +224,6 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             "– (no response)".to_string()
         }
     );
-    match written {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(ExitCode::SUCCESS),
-    }
+    written?; // a closed pipe is not an error: cli::main decides that
+    Ok(ExitCode::SUCCESS)
 }
