@@ -5,9 +5,8 @@
 //! starts from that tree and minimises the per-site soma-EPSP errors themselves, in the time
 //! domain: J = mean over sites of (3·(ln ttp ratio)² + (ln peak ratio)²) + 30·(excess of the
 //! soma's own |ln peak ratio| beyond 0.01 Np)² + 300·(excess of ln τ_slow/τ beyond ±10 %)², by
-//! steepest descent on ln C with
-//! forward-difference gradients (one run of the reduced tree per compartment, in parallel) and
-//! a backtracking step (Armijo 1966). The sites' part is summed per compartment ([`Targets`]),
+//! steepest descent on ln C with forward-difference gradients (one run of the reduced tree per
+//! compartment, in parallel) and a backtracking step (Armijo 1966). The sites' part is summed per compartment ([`Targets`]),
 //! so a trial costs O(compartments) after its run, not O(sites). The conductances, and so
 //! everything at DC, do not change.
 //!
@@ -172,12 +171,21 @@ impl Fidelity {
                 sum += t.sites * (TIME_WEIGHT * et * et + ep * ep);
             }
         }
-        let es = ((ln_floor(peaks.value_mv[0]) - ln_floor(self.soma_peak)).abs() - SOMA_BAND_NP)
-            .max(0.0);
-        let d = ln_floor(slowest_ms(net)) - ln_floor(tau_ms);
-        let excess = (d.abs() - TAU_BAND.ln_1p()).max(0.0);
-        Ok(sum / targets.sites + SOMA_WEIGHT * es * es + TAU_WEIGHT * excess * excess)
+        let es = beyond(
+            ln_floor(peaks.value_mv[0]) - ln_floor(self.soma_peak),
+            SOMA_BAND_NP,
+        );
+        let et = beyond(
+            ln_floor(slowest_ms(net)) - ln_floor(tau_ms),
+            TAU_BAND.ln_1p(),
+        );
+        Ok(sum / targets.sites + SOMA_WEIGHT * es * es + TAU_WEIGHT * et * et)
     }
+}
+
+/// How far `x` lies outside the band ±`band` (0 inside it).
+fn beyond(x: f64, band: f64) -> f64 {
+    (x.abs() - band).max(0.0)
 }
 
 /// ln of a positive value, floored at 1e-300 (a zero peak stays finite).
