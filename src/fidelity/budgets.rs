@@ -23,6 +23,7 @@ pub struct BudgetFidelity {
     /// The tree's slowest time constant (ms).
     pub slowest_time_constant_ms: f64,
     /// What the `timed` rule did (absent for the other rules).
+    #[serde(skip_serializing_if = "Option::is_none")]
     pub polish: Option<PolishSummary>,
     pub report: FidelityReport,
 }
@@ -72,7 +73,7 @@ impl Fidelity {
 }
 
 /// A sweep as CSV: one row per budget (errors in Np unless named otherwise; time-to-peak errors
-/// as fractions).
+/// as fractions; polish steps and sites moved 0 for the rules without a polish).
 pub fn budgets_csv(rows: &[BudgetFidelity]) -> String {
     let mut s = String::from(
         "compartments,requested,attenuation_to_soma_error_median_np,attenuation_to_soma_error_p95_np,attenuation_from_soma_error_p95_np,epsp_peak_error_median_np,epsp_peak_error_p95_np,time_to_peak_error_median,time_to_peak_error_p95,soma_epsp_peak_error_np,slowest_time_constant_ms,polish_steps,sites_moved\n",
@@ -92,9 +93,8 @@ pub fn budgets_csv(rows: &[BudgetFidelity]) -> String {
             f.time_to_peak_error.p95,
             f.soma_epsp_peak_error_np,
             r.slowest_time_constant_ms,
-            r.polish.map_or(String::new(), |p| p.steps.to_string()),
-            r.polish
-                .map_or(String::new(), |p| p.sites_moved.to_string()),
+            r.polish.map_or(0, |p| p.steps),
+            r.polish.map_or(0, |p| p.sites_moved),
         ));
     }
     s

@@ -51,10 +51,12 @@ pub struct FidelityOptions {
     pub tau_ms: f64,
     /// Peak of the alpha current (pA); default 10 (everything is linear in it).
     pub peak_pa: f64,
-    /// Time step (ms); `None`: τ/20.
+    /// Time step (ms); `None` (absent in JSON): τ/20.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub dt_ms: Option<f64>,
-    /// Fixed duration (ms); `None`: each run lasts until every node has passed its peak (at
-    /// least 3τ), at most `max_duration_ms`.
+    /// Fixed duration (ms); `None` (absent in JSON): each run lasts until every node has passed
+    /// its peak (at least 3τ), at most `max_duration_ms`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub duration_ms: Option<f64>,
     /// Longest run when the duration is automatic (ms); default 500.
     pub max_duration_ms: f64,
