@@ -462,6 +462,8 @@ mod tests {
         ReducedTree {
             point_compartment: vec![],
             site_compartment: vec![],
+            site_share: vec![],
+            point_share: vec![],
             requested: cs.len(),
             rounded_down: false,
             clamped: false,

@@ -6,8 +6,8 @@ use super::{FidelityError, GROWTH_RATIO, SiteFidelity};
 use crate::morphology::{Morphology, NONE};
 use crate::reduce::{ReducedTree, Reducer};
 use crate::transient::{
-    Drive, Growth, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
-    simulate,
+    Drive, Growth, Method, NodeShare, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform,
+    fine_network, simulate,
 };
 
 /// What is injected at the injection point.
@@ -182,6 +182,7 @@ impl SideTraces {
 fn run(
     net: &RcNetwork,
     node: usize,
+    share: Option<NodeShare>,
     input: &Input,
     opts: &TraceOptions,
 ) -> Result<SideTraces, FidelityError> {
@@ -212,15 +213,33 @@ fn run(
         growth,
     };
     let drive = match *input {
-        Input::Current { waveform } => Drive::Current { node, waveform },
-        Input::Synapse { synapse } => Drive::Synapse { node, synapse },
+        Input::Current { waveform } => Drive::Current {
+            node,
+            waveform,
+            share,
+        },
+        Input::Synapse { synapse } => Drive::Synapse {
+            node,
+            synapse,
+            share,
+        },
     };
-    let r = simulate(net, &drive, &[0, node], &run_opts)?;
+    let other = share.map_or(node, |s| s.node);
+    let r = simulate(net, &drive, &[0, node, other], &run_opts)?;
     let mut t = r.traces.into_iter();
+    let soma_mv = t.next().unwrap_or_default();
+    let (own, second) = (t.next().unwrap_or_default(), t.next().unwrap_or_default());
+    // a shared input's point reads the same mix of the two nodes (see `reduce::Share`)
+    let w = share.map_or(0.0, |s| s.weight);
+    let injection_point_mv = own
+        .iter()
+        .zip(&second)
+        .map(|(a, b)| (1.0 - w) * a + w * b)
+        .collect();
     Ok(SideTraces {
         times_ms: r.times_ms,
-        soma_mv: t.next().unwrap_or_default(),
-        injection_point_mv: t.next().unwrap_or_default(),
+        soma_mv,
+        injection_point_mv,
     })
 }
 
@@ -240,11 +259,18 @@ pub fn full_cell_traces(
         });
     }
     let fine = fine_network(kept, reducer.params(), opts.pieces)?;
-    run(&fine.net, fine.node_of[k as usize] as usize, input, opts)
+    run(
+        &fine.net,
+        fine.node_of[k as usize] as usize,
+        None,
+        input,
+        opts,
+    )
 }
 
 /// The reduced tree's half of [`response_traces`]: `tree` driven at the compartment that
-/// serves morphology point `point`. Returns the compartment too.
+/// serves morphology point `point` (shared with a neighbour when the point's input is). Returns
+/// the compartment too.
 pub fn reduced_tree_traces(
     tree: &ReducedTree,
     point: u32,
@@ -262,7 +288,11 @@ pub fn reduced_tree_traces(
         });
     }
     let net = RcNetwork::from_reduced(tree);
-    Ok((c, run(&net, c as usize, input, opts)?))
+    let share = tree.point_share(point as usize).map(|s| NodeShare {
+        node: s.compartment as usize,
+        weight: s.weight,
+    });
+    Ok((c, run(&net, c as usize, share, input, opts)?))
 }
 
 /// Soma and injection-point traces for `input` at morphology point `point` (see [`resolve_site`]): the
@@ -288,18 +318,23 @@ pub fn response_traces(
     })
 }
 
-/// The per-site table as CSV (one row per site, the columns of [`SiteFidelity`]).
+/// The per-site table as CSV (one row per site, the columns of [`SiteFidelity`]; a site without
+/// a share has `shared_with` empty and `share` 0).
 pub fn sites_csv(rows: &[SiteFidelity]) -> String {
     let mut s = String::from(
-        "site,swc_id,swc_line,compartment,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,attenuation_to_soma_full_np,attenuation_to_soma_reduced_np,attenuation_from_soma_full_np,attenuation_from_soma_reduced_np\n",
+        "site,swc_id,swc_line,compartment,shared_with,share,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,attenuation_to_soma_full_np,attenuation_to_soma_reduced_np,attenuation_from_soma_full_np,attenuation_from_soma_reduced_np\n",
     );
     for r in rows {
         s.push_str(&format!(
-            "{},{},{},{},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?}\n",
+            "{},{},{},{},{},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?},{:?}\n",
             r.site,
             r.swc_id.map(|i| i.to_string()).unwrap_or_default(),
             r.swc_line,
             r.compartment,
+            r.share
+                .map(|s| s.compartment.to_string())
+                .unwrap_or_default(),
+            r.share.map_or(0.0, |s| s.weight),
             r.epsp_peak_full_mv,
             r.epsp_peak_reduced_mv,
             r.epsp_peak_error_np,

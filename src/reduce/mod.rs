@@ -66,7 +66,7 @@ mod fine;
 mod order;
 mod sites;
 mod tree;
-pub use tree::slowest_time_constant_ms;
+pub use tree::{DcMaps, slowest_time_constant_ms};
 
 pub use sites::{SiteSpec, parse_sites_csv};
 
@@ -240,6 +240,17 @@ pub struct SiteInfo {
     pub ln_attenuation_full: f64,
 }
 
+/// An input shared with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
+/// site's current goes to `compartment`, the rest to the site's own compartment, and the site's
+/// voltage is read as the same mix — a point between two nodes of a finite-element cable with
+/// linear elements (Galerkin; e.g. Hughes 1987, ch. 1), the weight fitted to the cell's response
+/// at the site instead of taken from the point's position (see `fidelity::share`).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Share {
+    pub compartment: u32,
+    pub weight: f64,
+}
+
 /// A reduced tree at one budget.
 #[derive(Debug, Clone)]
 pub struct ReducedTree {
@@ -247,8 +258,14 @@ pub struct ReducedTree {
     /// Per morphology point (index into `Morphology::points`): its compartment, or `NONE`
     /// (u32::MAX) for points of other trees and points left out by the type filter.
     pub point_compartment: Vec<u32>,
-    /// Per site of [`Reducer::sites`]: its compartment.
+    /// Per site of [`Reducer::sites`]: its compartment (with a share: the one taking the larger
+    /// part of its input).
     pub site_compartment: Vec<u32>,
+    /// Per site: the part of its input given to a neighbouring compartment, if any; empty when no
+    /// site shares (every rule but `timed`).
+    pub site_share: Vec<Option<Share>>,
+    /// Per morphology point: the same for the points that are sites; empty when no site shares.
+    pub point_share: Vec<Option<Share>>,
     /// The budget asked for.
     pub requested: usize,
     /// True when an even request was rounded down to the odd number below.
@@ -677,6 +694,8 @@ impl Reducer {
             compartments: comps,
             point_compartment,
             site_compartment,
+            site_share: Vec::new(),
+            point_share: Vec::new(),
             requested: budget,
             rounded_down: budget.is_multiple_of(2) && budget <= nm && budget >= 1,
             clamped: budget == 0 || budget > nm,
@@ -727,12 +746,12 @@ impl Reducer {
         let r_red = tree.soma_input_resistance_ohm();
         let z_full = self.full_input_impedance_at_freq()?;
         let z_red = tree.soma_input_impedance(self.opts.freq_hz);
-        let ln_red = tree.ln_attenuation_dc();
+        let ln_red = tree.site_ln_attenuations_dc();
         let mut errs: Vec<f64> = Vec::with_capacity(self.sites.len());
         let mut wsum = 0.0;
         let mut w2 = 0.0;
-        for (s, &c) in self.sites.iter().zip(&tree.site_compartment) {
-            let e = s.ln_attenuation_full - ln_red[c as usize];
+        for (s, &red) in self.sites.iter().zip(&ln_red) {
+            let e = s.ln_attenuation_full - red;
             errs.push(e.abs());
             wsum += s.weight;
             w2 += s.weight * e * e;

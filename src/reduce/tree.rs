@@ -5,7 +5,7 @@
 //! What this file does not do: build trees (that is `build`) or compare them with the cell (that
 //! is `Reducer::report` and `crate::fidelity`).
 
-use super::{Compartment, FeedForward, ReducedTree};
+use super::{Compartment, FeedForward, ReducedTree, Share};
 use crate::cable::solve::{TreeFactor, TreeMaps};
 use crate::cable::{C64, Network};
 use crate::morphology::NONE;
@@ -90,6 +90,36 @@ impl ReducedTree {
     pub fn ln_attenuation_dc(&self) -> Vec<f64> {
         let (p, g, s) = self.dc();
         TreeMaps::new(&p, &g, &s).ln_attenuations_to_soma()
+    }
+
+    /// The DC maps of the tree, for attenuations of inputs that may be shared (see [`DcMaps`]).
+    pub fn dc_maps(&self) -> DcMaps {
+        let (p, g, s) = self.dc();
+        DcMaps {
+            maps: TreeMaps::from_vecs(p, g, s),
+        }
+    }
+
+    /// Per site: the DC log attenuation to the soma of its input, ln(Z_ss/Z_s0), with its share
+    /// if it has one (see [`DcMaps::ln_attenuations`]).
+    pub fn site_ln_attenuations_dc(&self) -> Vec<f64> {
+        let m = self.dc_maps();
+        (0..self.site_compartment.len())
+            .map(|i| {
+                m.ln_attenuations(self.site_compartment[i] as usize, self.site_share(i))
+                    .0
+            })
+            .collect()
+    }
+
+    /// Site `i`'s share, if it has one.
+    pub fn site_share(&self, i: usize) -> Option<Share> {
+        self.site_share.get(i).copied().flatten()
+    }
+
+    /// Morphology point `p`'s share, if it has one.
+    pub fn point_share(&self, p: usize) -> Option<Share> {
+        self.point_share.get(p).copied().flatten()
     }
 
     /// V_k/V_c at DC on the reduced tree for a current injected at compartment `c`
@@ -198,4 +228,46 @@ pub fn slowest_time_constant_ms(
 ) -> f64 {
     let (lam, _, _) = slowest_mode(parent, g_ns, leak_ns, cap_pf, 2000, 1e-10);
     1.0 / lam
+}
+
+/// The reduced tree's DC maps (both sweeps, once), for inputs at one compartment or shared
+/// between two adjacent ones.
+pub struct DcMaps {
+    maps: TreeMaps<f64>,
+}
+
+impl DcMaps {
+    /// DC log attenuations (to the soma, from the soma; nepers) of an input at compartment `c`,
+    /// or shared between `c` (1 − w) and its neighbour `share.compartment` (w), the site's
+    /// voltage read as the same mix (Galerkin, see [`Share`]). With p the pair's parent end, q its
+    /// child end, weights w_p and w_q and d_q = V_q/V_p for current at p (Koch & Poggio 1985):
+    /// Z_ss = w_p²Z_pp + 2w_pw_qZ_ppd_q + w_q²Z_qq and Z_s0 = Z_p0(w_p + w_qd_q), so
+    /// ln A_to = ln(Z_ss/Z_pp) + ln A_to(p) − ln(w_p + w_qd_q) and
+    /// ln A_from = ln A_from(p) − ln(w_p + w_qd_q) (ratios only: no underflow far out).
+    /// A share whose compartment is not a neighbour of `c` is read as no share.
+    pub fn ln_attenuations(&self, c: usize, share: Option<Share>) -> (f64, f64) {
+        let m = &self.maps;
+        let own = || (m.ln_attenuation_to_soma(c), m.ln_attenuation_from_soma(c));
+        let Some(sh) = share else {
+            return own();
+        };
+        let k = sh.compartment as usize;
+        let parent = m.parent();
+        let (p, q, wq) = if parent.get(k) == Some(&(c as u32)) {
+            (c, k, sh.weight)
+        } else if parent.get(c) == Some(&(k as u32)) {
+            (k, c, 1.0 - sh.weight)
+        } else {
+            return own();
+        };
+        let wp = 1.0 - wq;
+        let d = m.down()[q];
+        let (zpp, zqq) = (m.input_impedance()[p], m.input_impedance()[q]);
+        let zss = wp * wp + 2.0 * wp * wq * d + wq * wq * zqq / zpp;
+        let mix = (wp + wq * d).ln();
+        (
+            zss.ln() + m.ln_attenuation_to_soma(p) - mix,
+            m.ln_attenuation_from_soma(p) - mix,
+        )
+    }
 }

@@ -8,7 +8,9 @@
 //! Crank–Nicolson), so M is factored once per dt in the parents-first order and every step is
 //! O(N) (Hines 1984); both are unconditionally stable. A synapse g(t)·(E − V_s) is implicit: its
 //! conductance only changes M's diagonal at s, a rank-one change solved with the
-//! Sherman–Morrison formula from one extra solve M⁻¹e_s made once (still O(N) per step).
+//! Sherman–Morrison formula from one extra solve M⁻¹e_s made once (still O(N) per step). An
+//! input shared between two nodes ([`NodeShare`]) puts u = (1 − w)e_s + w·e_k in place of e_s:
+//! current u·I(t), synapse g(t)·(E − uᵀV)·u, still rank one.
 //!
 //! Memory is O(N + recorded nodes × steps): chosen nodes' traces are recorded; for every node
 //! the running peak and its time are kept, the time refined by a parabola through the three
@@ -177,14 +179,35 @@ impl Synapse {
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 #[serde(tag = "drive", rename_all = "snake_case")]
 pub enum Drive {
-    Current { node: usize, waveform: Waveform },
-    Synapse { node: usize, synapse: Synapse },
+    Current {
+        node: usize,
+        waveform: Waveform,
+        #[serde(skip_serializing_if = "Option::is_none")]
+        share: Option<NodeShare>,
+    },
+    Synapse {
+        node: usize,
+        synapse: Synapse,
+        #[serde(skip_serializing_if = "Option::is_none")]
+        share: Option<NodeShare>,
+    },
+}
+
+/// Part `weight` (0 ≤ w ≤ 1) of a drive's input given to a second node; the drive's own node
+/// takes 1 − w, and a synapse sees the same mix of the two voltages.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct NodeShare {
+    pub node: usize,
+    pub weight: f64,
 }
 
 impl Drive {
-    fn node(&self) -> usize {
-        match *self {
-            Drive::Current { node, .. } | Drive::Synapse { node, .. } => node,
+    /// The input vector u as (node, weight) pairs: the drive's node alone, or with its share.
+    fn inputs(&self) -> [(usize, f64); 2] {
+        let (Drive::Current { node, share, .. } | Drive::Synapse { node, share, .. }) = *self;
+        match share {
+            Some(s) => [(node, 1.0 - s.weight), (s.node, s.weight)],
+            None => [(node, 1.0), (node, 0.0)],
         }
     }
 }
@@ -243,6 +266,24 @@ pub struct Response {
     /// One trace (mV) per recorded node, in the order asked.
     pub traces: Vec<Vec<f64>>,
     pub peaks: Option<Peaks>,
+}
+
+/// The peak of the parabola through samples `v` = (V_{i−1}, V_i, V_i+1) at `times` i−1, i, i+1
+/// (V_i the largest sample): (value, time). The sample itself at either end of the run or when
+/// the three are not concave.
+pub(crate) fn refine_peak(times: &[f64], i: usize, v: [f64; 3]) -> (f64, f64) {
+    let (mut dv, mut dt) = (0.0, 0.0);
+    if i > 0 && i + 1 < times.len() {
+        let (h1, h2) = (times[i] - times[i - 1], times[i + 1] - times[i]);
+        let (d1, d2) = ((v[1] - v[0]) / h1, (v[2] - v[1]) / h2);
+        let c = (d2 - d1) / (h1 + h2);
+        if c < 0.0 {
+            let slope = d1 + c * h1;
+            dt = (-slope / (2.0 * c)).clamp(-h1, h2);
+            dv = slope * dt + c * dt * dt;
+        }
+    }
+    (v[1] + dv, times[i] + dt)
 }
 
 /// Running peak of every node: value, step index, and the samples just before and after.
@@ -305,21 +346,12 @@ impl PeakTracker {
         let mut not_peaked = 0;
         for k in 0..n {
             let (i, p) = (self.idx[k], self.peak[k]);
-            let (mut dv, mut dtk) = (0.0, 0.0);
             if i == last && last > 0 {
                 not_peaked += 1;
-            } else if i > 0 {
-                let (h1, h2) = (times[i] - times[i - 1], times[i + 1] - times[i]);
-                let (d1, d2) = ((p - self.before[k]) / h1, (self.after[k] - p) / h2);
-                let c = (d2 - d1) / (h1 + h2);
-                if c < 0.0 {
-                    let slope = d1 + c * h1;
-                    dtk = (-slope / (2.0 * c)).clamp(-h1, h2);
-                    dv = slope * dtk + c * dtk * dtk;
-                }
             }
-            value[k] = self.sign * (p + dv);
-            time[k] = times[i] + dtk;
+            let (v, t) = refine_peak(times, i, [self.before[k], p, self.after[k]]);
+            value[k] = self.sign * v;
+            time[k] = t;
         }
         Peaks {
             value_mv: value,
@@ -337,11 +369,17 @@ fn validate_run(
 ) -> Result<(f64, f64), TransientError> {
     net.validate()?;
     let n = net.len();
-    for &k in record.iter().chain(std::iter::once(&drive.node())) {
+    for k in record.iter().copied().chain(drive.inputs().map(|i| i.0)) {
         if k >= n {
             return Err(TransientError::NodeOutOfRange { node: k, len: n });
         }
     }
+    check(
+        "share of the input at the second node",
+        drive.inputs()[1].1,
+        0.0,
+        1.0,
+    )?;
     match drive {
         Drive::Current { waveform, .. } => waveform.validate()?,
         Drive::Synapse { synapse, .. } => synapse.validate()?,
@@ -382,8 +420,8 @@ fn finish_step(v: &mut [f64], y: &mut [f64], c_h: &[f64], cn: bool) {
     }
 }
 
-/// M = C/h + A factored for one dt (h = dt, or dt/2 for Crank–Nicolson), with M⁻¹e_s for a
-/// synapse at s.
+/// M = C/h + A factored for one dt (h = dt, or dt/2 for Crank–Nicolson), with M⁻¹u for a
+/// synapse whose input vector is u.
 struct Stepper {
     dt: f64,
     c_h: Vec<f64>,
@@ -392,16 +430,18 @@ struct Stepper {
 }
 
 impl Stepper {
-    fn new(net: &RcNetwork, dt: f64, cn: bool, synapse_at: Option<usize>) -> Stepper {
+    fn new(net: &RcNetwork, dt: f64, cn: bool, synapse_at: Option<[(usize, f64); 2]>) -> Stepper {
         let h = if cn { 0.5 * dt } else { dt };
         let c_h: Vec<f64> = net.cap_pf.iter().map(|c| c / h).collect();
         let diag: Vec<f64> = c_h.iter().zip(&net.g_leak_ns).map(|(c, g)| c + g).collect();
         let lu = TreeFactor::new(&net.parent, &net.g_axial_ns, &diag);
-        // z = M⁻¹e_s for the synapse's rank-one update (Sherman & Morrison 1950)
+        // z = M⁻¹u for the synapse's rank-one update (Sherman & Morrison 1950)
         let z = match synapse_at {
-            Some(s) => {
+            Some(u) => {
                 let mut z = vec![0.0; net.len()];
-                z[s] = 1.0;
+                for (k, w) in u {
+                    z[k] += w;
+                }
                 lu.solve_in_place(&mut z);
                 z
             }
@@ -411,27 +451,34 @@ impl Stepper {
     }
 
     /// One step from t0 to t1: `x` holds C/h·v on entry and the solve of
-    /// (M + γ e_s e_sᵀ)x = C/h·v + input on return.
+    /// (M + γ u uᵀ)x = C/h·v + input on return (u: the drive's input vector).
     fn solve(&self, drive: &Drive, cn: bool, x: &mut [f64], t0: f64, t1: f64) {
+        let u = drive.inputs();
         match *drive {
-            Drive::Current { node, waveform } => {
-                x[node] += if cn {
+            Drive::Current { waveform, .. } => {
+                let i = if cn {
                     0.5 * (waveform.at(t0) + waveform.at(t1))
                 } else {
                     waveform.at(t1)
                 };
+                for (k, w) in u {
+                    x[k] += w * i;
+                }
                 self.lu.solve_in_place(x);
             }
-            Drive::Synapse { node, synapse } => {
+            Drive::Synapse { synapse, .. } => {
                 let gam = if cn {
                     0.5 * (synapse.conductance(t0) + synapse.conductance(t1))
                 } else {
                     synapse.conductance(t1)
                 };
-                x[node] += gam * synapse.e_rev_mv;
+                for (k, w) in u {
+                    x[k] += w * gam * synapse.e_rev_mv;
+                }
                 self.lu.solve_in_place(x);
-                // (M + γ e_s e_sᵀ)⁻¹b = y − γ·y_s/(1 + γ·z_s)·z
-                let f = gam * x[node] / (1.0 + gam * self.z[node]);
+                // (M + γ u uᵀ)⁻¹b = y − γ·uᵀy/(1 + γ·uᵀz)·z
+                let dot = |v: &[f64]| u.iter().map(|&(k, w)| w * v[k]).sum::<f64>();
+                let f = gam * dot(x) / (1.0 + gam * dot(&self.z));
                 for (xk, zk) in x.iter_mut().zip(&self.z) {
                     *xk -= f * zk;
                 }
@@ -453,7 +500,7 @@ pub fn simulate(
     let dt0 = opts.dt_ms;
     let cn = opts.method == Method::CrankNicolson;
     let syn = match drive {
-        Drive::Synapse { node, .. } => Some(*node),
+        Drive::Synapse { .. } => Some(drive.inputs()),
         Drive::Current { .. } => None,
     };
     let sign = match drive {
@@ -534,6 +581,7 @@ mod tests {
         let drive = Drive::Current {
             node: 0,
             waveform: Waveform::Step { amplitude_pa: 1.0 },
+            share: None,
         };
         let mut o = RunOptions {
             dt_ms: f64::NAN,

@@ -1,0 +1,216 @@
+//! Last step of `CapacitanceRule::Timed`: a site's input may be shared between two adjacent
+//! compartments ([`Share`]), the way a point between two nodes of a finite-element cable gives
+//! its current to both and reads its voltage as the same mix (linear elements, Galerkin), with
+//! the weight chosen to answer most like the cell at the site.
+//!
+//! A compartment is one lumped response; the sites it serves span a range of EPSP sizes and
+//! times (a collapsed region's distal and proximal points alike). A mix of two adjacent
+//! compartments' responses lies between them in size and time, so a site between them gets an
+//! answer between them. Each site takes the link and weight of least cost among the links of
+//! its compartment and of that compartment's parent, weights in steps of 1/40:
+//! cost = 1·|ln A_site − ln A_mix| (DC, Np) + 5·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
+//! The larger part names the site's compartment (its point, membrane area and site count move
+//! with it), the smaller is its share. Per link the 41 mixes are measured once on one run of the
+//! tree (every node recorded), so the step is O(links × 41 × window + sites × links near).
+//!
+//! What this step does not do: change any conductance or capacitance (the network stays exactly
+//! as built, DC exact), or share a site with a compartment more than two links from its own.
+
+use super::polish::ln_floor;
+use super::{Fidelity, FidelityError};
+use crate::morphology::NONE;
+use crate::reduce::{DcMaps, ReducedTree, Share};
+use crate::transient::{RcNetwork, refine_peak, simulate};
+
+/// Weights of the DC and time-to-peak terms against the peak's (all three |log ratios|).
+/// Measured on the eight shared real cells at 15/31/63 compartments (targets met of 120):
+/// time 5, DC 1: 113; time 3, DC 1: 113; time 5, DC 0.5: 112 (time-to-peak 24 of 24 in each).
+const TIME_WEIGHT: f64 = 5.0;
+const DC_WEIGHT: f64 = 1.0;
+/// Weights tried per link: 0, 1/STEPS, …, 1.
+const STEPS: usize = 40;
+
+/// One run of a reduced tree with every node recorded, for the soma's response to inputs at one
+/// compartment or shared between two adjacent ones (by linearity, the mix of their responses).
+pub(super) struct Mixes {
+    times: Vec<f64>,
+    traces: Vec<Vec<f64>>,
+    peak_index: Vec<usize>,
+    dc: DcMaps,
+}
+
+/// The soma's response to one input: EPSP peak (mV), time to peak (ms), DC log attenuations
+/// to and from the soma (Np).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(super) struct Answer {
+    pub peak_mv: f64,
+    pub ttp_ms: f64,
+    pub ln_to: f64,
+    pub ln_from: f64,
+}
+
+impl Mixes {
+    pub(super) fn new(fid: &Fidelity, tree: &ReducedTree) -> Result<Mixes, FidelityError> {
+        let net = RcNetwork::from_reduced(tree);
+        let all: Vec<usize> = (0..tree.len()).collect();
+        let run = simulate(&net, &fid.opts.drive(), &all, &fid.opts.run_options())?;
+        let peak_index = run.traces.iter().map(|v| largest(v, 0, v.len())).collect();
+        Ok(Mixes {
+            times: run.times_ms,
+            traces: run.traces,
+            peak_index,
+            dc: tree.dc_maps(),
+        })
+    }
+
+    /// The soma's answer to an input at compartment `c`, shared as `share` says. The peak of a
+    /// mix lies between its two nodes' peak times (both responses rise before and fall after),
+    /// so only that window is searched; refined by the parabola, as the engine's peaks are.
+    pub(super) fn answer(&self, c: usize, share: Option<Share>) -> Answer {
+        let (k, w) = share.map_or((c, 0.0), |s| (s.compartment as usize, s.weight));
+        let (a, b) = (&self.traces[c], &self.traces[k]);
+        let mix = |j: usize| (1.0 - w) * a[j] + w * b[j];
+        let (i0, i1) = (self.peak_index[c], self.peak_index[k]);
+        let lo = i0.min(i1).saturating_sub(1);
+        let hi = (i0.max(i1) + 2).min(a.len());
+        let mut i = lo;
+        for j in lo..hi {
+            if mix(j) > mix(i) {
+                i = j;
+            }
+        }
+        let before = if i > 0 { mix(i - 1) } else { mix(i) };
+        let after = if i + 1 < a.len() { mix(i + 1) } else { mix(i) };
+        let (peak_mv, ttp_ms) = refine_peak(&self.times, i, [before, mix(i), after]);
+        let (ln_to, ln_from) = self.dc.ln_attenuations(c, share);
+        Answer {
+            peak_mv,
+            ttp_ms,
+            ln_to,
+            ln_from,
+        }
+    }
+}
+
+/// Index of the first largest sample of v[lo..hi].
+fn largest(v: &[f64], lo: usize, hi: usize) -> usize {
+    (lo..hi).fold(lo, |b, j| if v[j] > v[b] { j } else { b })
+}
+
+/// The links a site of compartment `c` may be shared along: those of `c` and of its parent,
+/// each as (parent end, child end).
+fn links_near(tree: &ReducedTree, c: usize) -> Vec<(usize, usize)> {
+    let mut out = Vec::with_capacity(6);
+    let comp = &tree.compartments[c];
+    for j in std::iter::once(c).chain(comp.parent.map(|p| p as usize)) {
+        let cj = &tree.compartments[j];
+        if let Some(p) = cj.parent {
+            out.push((p as usize, j));
+        }
+        for k in cj.children.into_iter().flatten() {
+            out.push((j, k as usize));
+        }
+    }
+    out.sort_unstable();
+    out.dedup();
+    out
+}
+
+impl Fidelity {
+    /// Shares each site's input between the two ends of the link near it that answer most
+    /// like the cell at the site (see the module documentation). Returns how many sites share.
+    /// A tree from another reducer (its site count differs) is refused.
+    pub fn share_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
+        let points = tree.point_compartment.len();
+        if tree.site_compartment.len() != self.peak.len()
+            || self.point.iter().any(|&p| p as usize >= points)
+        {
+            return Err(FidelityError::Mismatch {
+                what: "number of sites",
+            });
+        }
+        tree.site_share = vec![None; self.peak.len()];
+        tree.point_share = vec![None; points];
+        if tree.len() < 2 {
+            return Ok(0);
+        }
+        let mixes = Mixes::new(self, tree)?;
+        // per link (indexed by its child end): the 41 mixes' ln peak, ln ttp, ln A to the soma
+        let table: Vec<Vec<[f64; 3]>> = (0..tree.len())
+            .map(|q| match tree.compartments[q].parent {
+                None => Vec::new(),
+                Some(p) => (0..=STEPS)
+                    .map(|s| {
+                        let weight = s as f64 / STEPS as f64;
+                        let share = Some(Share {
+                            compartment: q as u32,
+                            weight,
+                        });
+                        let a = mixes.answer(p as usize, share);
+                        [ln_floor(a.peak_mv), ln_floor(a.ttp_ms), a.ln_to]
+                    })
+                    .collect(),
+            })
+            .collect();
+        let mut decided: Vec<Option<(u32, Option<Share>)>> = vec![None; points];
+        let mut shared = 0;
+        for i in 0..self.peak.len() {
+            let p = self.point[i] as usize;
+            let c = tree.site_compartment[i] as usize;
+            let first = decided[p].is_none();
+            let (to, share) = *decided[p].get_or_insert_with(|| {
+                let target = [ln_floor(self.peak[i]), ln_floor(self.ttp[i]), self.ln_to[i]];
+                best_mix(&table, &links_near(tree, c), target).unwrap_or((c as u32, None))
+            });
+            if first {
+                tree.point_share[p] = share;
+                let was = tree.point_compartment[p];
+                if was != NONE && was != to {
+                    tree.compartments[was as usize].membrane_area_um2 -= self.area[i];
+                    tree.compartments[to as usize].membrane_area_um2 += self.area[i];
+                    tree.point_compartment[p] = to;
+                }
+            }
+            if to as usize != c {
+                tree.compartments[c].site_count -= 1;
+                tree.compartments[to as usize].site_count += 1;
+                tree.site_compartment[i] = to;
+            }
+            tree.site_share[i] = share;
+            shared += share.is_some() as usize;
+        }
+        Ok(shared)
+    }
+}
+
+/// The link and weight of least cost for a site with `target` (ln peak, ln ttp, ln A):
+/// (the compartment taking the larger part, the share of the other — none at weight 0).
+fn best_mix(
+    table: &[Vec<[f64; 3]>],
+    links: &[(usize, usize)],
+    target: [f64; 3],
+) -> Option<(u32, Option<Share>)> {
+    let mut best: Option<(f64, usize, usize, usize)> = None;
+    for &(p, q) in links {
+        for (s, m) in table[q].iter().enumerate() {
+            let cost = (m[0] - target[0]).abs()
+                + TIME_WEIGHT * (m[1] - target[1]).abs()
+                + DC_WEIGHT * (m[2] - target[2]).abs();
+            if best.is_none_or(|b| cost < b.0) {
+                best = Some((cost, p, q, s));
+            }
+        }
+    }
+    let (_, p, q, s) = best?;
+    let w = s as f64 / STEPS as f64;
+    let (own, other, weight) = if s * 2 <= STEPS {
+        (p, q, w)
+    } else {
+        (q, p, 1.0 - w)
+    };
+    let share = (s != 0 && s != STEPS).then_some(Share {
+        compartment: other as u32,
+        weight,
+    });
+    Some((own as u32, share))
+}
