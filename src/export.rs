@@ -108,7 +108,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
 
 /// Version of the reduced-tree JSON layout (`assets/reduced-tree.schema.json`). Raised when a
 /// field changes meaning or is removed; adding fields keeps it.
-pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 3;
+pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 4;
 
 /// The `format` value of a reduced-tree JSON file.
 pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";
@@ -152,6 +152,17 @@ struct Parameters<'a> {
 struct PointMap {
     swc_id: Vec<i64>,
     compartment: Vec<Option<u32>>,
+    /// The points whose input is split with a second compartment (absent when none is).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    splits: Vec<PointSplitOut>,
+}
+
+#[derive(serde::Serialize)]
+struct PointSplitOut {
+    /// Index into the point map's arrays.
+    point: usize,
+    compartment: u32,
+    weight: f64,
 }
 
 #[derive(serde::Serialize)]
@@ -160,6 +171,8 @@ struct SiteOut {
     position_um: [f64; 3],
     weight: f64,
     compartment: u32,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    split: Option<crate::reduce::Split>,
     attenuation_to_soma_full_np: f64,
     attenuation_to_soma_reduced_np: f64,
     attenuation_to_soma_error_np: f64,
@@ -274,19 +287,21 @@ fn tree_json<B: serde::Serialize>(
     use crate::morphology::NONE;
     let p = reducer.params();
     let o = reducer.options();
-    let ln_red = tree.ln_attenuation_dc();
+    let ln_red = tree.site_ln_attenuations_dc();
     let sites = reducer
         .sites()
         .iter()
         .zip(&tree.site_compartment)
-        .map(|(s, &c)| {
+        .enumerate()
+        .map(|(k, (s, &c))| {
             let i = s.point as usize;
-            let red = ln_red[c as usize];
+            let red = ln_red[k];
             SiteOut {
                 swc_id: src.point_ids.get(i).copied().unwrap_or(-1),
                 position_um: src.point_pos.get(i).copied().unwrap_or([f64::NAN; 3]),
                 weight: s.weight,
                 compartment: c,
+                split: tree.site_split(k),
                 attenuation_to_soma_full_np: s.ln_attenuation_full,
                 attenuation_to_soma_reduced_np: red,
                 attenuation_to_soma_error_np: s.ln_attenuation_full - red,
@@ -328,6 +343,15 @@ fn tree_json<B: serde::Serialize>(
                 .point_compartment
                 .iter()
                 .map(|&c| (c != NONE).then_some(c))
+                .collect(),
+            splits: (0..tree.point_split.len())
+                .filter_map(|point| {
+                    tree.point_split(point).map(|sh| PointSplitOut {
+                        point,
+                        compartment: sh.compartment,
+                        weight: sh.weight,
+                    })
+                })
                 .collect(),
         },
         site_map: sites,

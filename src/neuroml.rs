@@ -462,8 +462,8 @@ mod tests {
         ReducedTree {
             point_compartment: vec![],
             site_compartment: vec![],
-            site_share: vec![],
-            point_share: vec![],
+            site_split: vec![],
+            point_split: vec![],
             requested: cs.len(),
             rounded_down: false,
             clamped: false,

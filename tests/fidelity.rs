@@ -29,6 +29,7 @@ fn peak_of(net: &RcNetwork, at: usize, record: usize, o: &FidelityOptions) -> (f
                 tau_ms: o.tau_ms,
                 peak_pa: o.peak_pa,
             },
+            split: None,
         },
         &[record],
         &RunOptions {

@@ -6,8 +6,8 @@
 use pollard::cable::{CellMaps, Params};
 use pollard::morphology::{Flat, NONE};
 use pollard::transient::{
-    Drive, Growth, Method, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform, fine_network,
-    simulate,
+    Drive, Growth, Method, NodeSplit, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform,
+    fine_network, simulate,
 };
 use std::f64::consts::PI;
 
@@ -58,7 +58,11 @@ fn run(dt: f64, method: Method, ms: f64) -> RunOptions {
 }
 
 fn current(node: usize, waveform: Waveform) -> Drive {
-    Drive::Current { node, waveform }
+    Drive::Current {
+        node,
+        waveform,
+        split: None,
+    }
 }
 
 #[test]
@@ -348,8 +352,16 @@ fn reciprocity_on_a_random_tree() {
 }
 
 /// Dense RK4 integration (Runge–Kutta, classic fourth order; common practice) of a small
-/// network with a synapse at `s`, written out independently of the engine.
-fn rk4_synapse(net: &RcNetwork, s: usize, syn: &Synapse, dt: f64, t_end: f64) -> Vec<f64> {
+/// network with a synapse whose input vector is `u` ((node, weight) pairs: the synapse sees
+/// V_u = Σ w·V and injects g·(E − V_u)·w at each node; one node with weight 1 is a plain
+/// synapse), written out independently of the engine.
+fn rk4_synapse(
+    net: &RcNetwork,
+    u: &[(usize, f64)],
+    syn: &Synapse,
+    dt: f64,
+    t_end: f64,
+) -> Vec<f64> {
     let n = net.len();
     let deriv = |t: f64, v: &[f64]| -> Vec<f64> {
         let mut i: Vec<f64> = (0..n).map(|k| -net.g_leak_ns[k] * v[k]).collect();
@@ -359,7 +371,10 @@ fn rk4_synapse(net: &RcNetwork, s: usize, syn: &Synapse, dt: f64, t_end: f64) ->
             i[k] += cur;
             i[p] -= cur;
         }
-        i[s] += syn.conductance(t) * (syn.e_rev_mv - v[s]);
+        let vu: f64 = u.iter().map(|&(k, w)| w * v[k]).sum();
+        for &(k, w) in u {
+            i[k] += w * syn.conductance(t) * (syn.e_rev_mv - vu);
+        }
         (0..n).map(|k| i[k] / net.cap_pf[k]).collect()
     };
     let mut v = vec![0.0; n];
@@ -392,13 +407,14 @@ fn conductance_synapse_matches_an_independent_rk4() {
         tau_decay_ms: 2.0,
     };
     let s = 6;
-    let reference = rk4_synapse(&net, s, &syn, 1e-4, 20.0);
+    let reference = rk4_synapse(&net, &[(s, 1.0)], &syn, 1e-4, 20.0);
     let dt = 0.01;
     let r = simulate(
         &net,
         &Drive::Synapse {
             node: s,
             synapse: syn,
+            split: None,
         },
         &[0],
         &run(dt, Method::CrankNicolson, 20.0),
@@ -406,6 +422,44 @@ fn conductance_synapse_matches_an_independent_rk4() {
     .unwrap();
     let scale = reference.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     assert!(scale > 0.1, "{scale}");
+    for (st, v) in r.traces[0].iter().enumerate() {
+        let want = reference[st * 100];
+        assert!((v - want).abs() < 1e-4 * scale, "step {st}: {v} vs {want}");
+    }
+}
+
+#[test]
+fn split_synapse_matches_an_independent_rk4() {
+    // a synapse split 0.7 / 0.3 between node 6 and its parent: the engine's rank-one update
+    // against the dense RK4 of the same equations
+    let net = random_tree(8, 3);
+    let syn = Synapse {
+        e_rev_mv: 70.0,
+        g_peak_ns: 8.0,
+        tau_rise_ms: 0.2,
+        tau_decay_ms: 2.0,
+    };
+    let (s, k) = (6, net.parent[6] as usize);
+    let reference = rk4_synapse(&net, &[(s, 0.7), (k, 0.3)], &syn, 1e-4, 20.0);
+    let alone = rk4_synapse(&net, &[(s, 1.0)], &syn, 1e-4, 20.0);
+    let r = simulate(
+        &net,
+        &Drive::Synapse {
+            node: s,
+            synapse: syn,
+            split: Some(NodeSplit {
+                node: k,
+                weight: 0.3,
+            }),
+        },
+        &[0],
+        &run(0.01, Method::CrankNicolson, 20.0),
+    )
+    .unwrap();
+    let scale = reference.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    // the split changes the answer (else the check below could not fail)
+    let moved = (0..reference.len()).fold(0.0f64, |m, i| m.max((reference[i] - alone[i]).abs()));
+    assert!(moved > 0.01 * scale, "{moved} vs {scale}");
     for (st, v) in r.traces[0].iter().enumerate() {
         let want = reference[st * 100];
         assert!((v - want).abs() < 1e-4 * scale, "step {st}: {v} vs {want}");

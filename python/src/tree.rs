@@ -148,6 +148,22 @@ impl ReducedTree {
                 .collect(),
         )
     }
+    /// Per site: the compartment that takes the smaller part of its input when the input is
+    /// split between two adjacent compartments (capacitance "timed"), -1 when it is not.
+    #[getter]
+    fn site_split_compartment<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<i64>> {
+        let n = self.tree.site_compartment.len();
+        let v = (0..n).map(|i| self.tree.site_split(i).map_or(-1, |s| s.compartment as i64));
+        arr(py, v.collect())
+    }
+    /// Per site: that smaller part (0 < w <= 0.5; 0 when not split). The site's compartment
+    /// takes 1 - w of its input, and the site's voltage reads as the same mix.
+    #[getter]
+    fn site_split_weight<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        let n = self.tree.site_compartment.len();
+        let v = (0..n).map(|i| self.tree.site_split(i).map_or(0.0, |s| s.weight));
+        arr(py, v.collect())
+    }
     /// The exact DC feed-forward form: `current_ratio_to_parent` (w, NaN at the soma),
     /// `subtree_conductance_ns`, `root_input_conductance_ns` and `compartments_by_depth`. The
     /// soma voltage for injected currents I is
@@ -595,6 +611,24 @@ fn int(v: &Value, what: &str) -> Result<u64, String> {
         .ok_or_else(|| format!("{what} is not a whole number: {v}"))
 }
 
+/// A site's or point's split (absent or null: none); its weight must lie in (0, 0.5].
+fn split_of(v: &Value, what: &str) -> Result<Option<pollard::reduce::Split>, String> {
+    if v.is_null() {
+        return Ok(None);
+    }
+    let weight = num(&v["weight"], &format!("{what}.weight"))?;
+    if !(weight > 0.0 && weight <= 0.5) {
+        return Err(format!("{what}.weight = {weight} is outside (0, 0.5]"));
+    }
+    let compartment = int(&v["compartment"], &format!("{what}.compartment"))?;
+    let compartment =
+        u32::try_from(compartment).map_err(|_| format!("{what}.compartment is too large"))?;
+    Ok(Some(pollard::reduce::Split {
+        compartment,
+        weight,
+    }))
+}
+
 fn role_of(s: &str) -> Result<Role, String> {
     Ok(match s {
         "soma" => Role::Soma,
@@ -709,6 +743,21 @@ fn load(path: &Path) -> Result<ReducedTree, String> {
         .iter()
         .map(|s| int(&s["compartment"], "site_map[].compartment").map(|c| c as u32))
         .collect::<Result<Vec<_>, _>>()?;
+    let site_split = sites
+        .iter()
+        .map(|s| split_of(&s["split"], "site_map[].split"))
+        .collect::<Result<Vec<_>, _>>()?;
+    let mut point_split = Vec::new();
+    if let Some(list) = points.get("splits").and_then(Value::as_array) {
+        point_split = vec![None; point_ids.len()];
+        for e in list {
+            let i = int(&e["point"], "point_map.splits[].point")? as usize;
+            let slot = point_split
+                .get_mut(i)
+                .ok_or("point_map.splits[].point is beyond the point map")?;
+            *slot = split_of(e, "point_map.splits[]")?;
+        }
+    }
     let report = field("report")?.to_string();
     let matrix = Matrix::of_json(&doc)?;
     let tree = pollard::reduce::ReducedTree {
@@ -722,7 +771,16 @@ fn load(path: &Path) -> Result<ReducedTree, String> {
         compartments,
         point_compartment,
         site_compartment,
+        site_split: if site_split.iter().any(Option::is_some) {
+            site_split
+        } else {
+            Vec::new()
+        },
+        point_split,
     };
+    if let Some(e) = tree.bad_split() {
+        return Err(e);
+    }
     Ok(ReducedTree {
         tree,
         report_json: report,

@@ -75,6 +75,8 @@ pub struct Shown {
     /// The compartment serving the site, and how many the tree has.
     pub compartment: u32,
     pub compartments: usize,
+    /// The part of the site's input given to a neighbouring compartment, if any.
+    pub split: Option<crate::reduce::Split>,
 }
 
 impl Shown {
@@ -212,6 +214,7 @@ impl TracesView {
                 reduced,
                 compartment,
                 compartments: tree.len(),
+                split: tree.point_split(k.point as usize),
                 key: k,
             })
         });
@@ -228,7 +231,8 @@ impl TracesView {
             )
                 .on_hover_text(
                     "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the injection point; \
-                     the reduced tree gets it at the injection point's compartment. Voltage above rest; \
+                     the reduced tree gets it at the injection point's compartment (or split between two \
+                     adjacent compartments, as for a point between them). Voltage above rest; \
                      each run lasts until the whole cell has passed its peak (40 to 500 ms).",
                 );
             if let Some((_, job)) = &self.job {
@@ -302,10 +306,18 @@ fn peak_line(ui: &mut egui::Ui, sh: &Shown, unit: VoltageUnit) {
     })
     .response
     .on_hover_text(format!(
-        "cell {} at {tf:.1} ms; reduced tree {} at {tr:.1} ms, current at compartment {} of {}",
+        "cell {} at {tf:.1} ms; reduced tree {} at {tr:.1} ms, current at compartment {} of {}{}",
         unit.show(pf),
         unit.show(pr),
         sh.compartment,
-        sh.compartments
+        sh.compartments,
+        match sh.split {
+            Some(x) => format!(
+                " ({:.0} % of it at compartment {}: the point lies between them)",
+                100.0 * x.weight,
+                x.compartment
+            ),
+            None => String::new(),
+        }
     ));
 }

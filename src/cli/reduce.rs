@@ -191,10 +191,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         if let Some(t) = &timed {
             writeln!(
                 out,
-                "  timed: capacitances polished in {} steps; {} of {} sites served by a neighbour of the compartment their point's link gave them",
+                "  timed: capacitances polished in {} steps; {} of {} sites served by a neighbour of the compartment their point's link gave them; {} split between two adjacent compartments",
                 t.steps,
                 t.sites_moved,
-                tree.site_compartment.len()
+                tree.site_compartment.len(),
+                t.sites_split
             )?;
         }
         if let (Some(s), Some(mp)) = (&snapped, &map) {

@@ -214,10 +214,18 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let mut out = std::io::stdout().lock();
     let written = writeln!(
         out,
-        "{name}: injection point SWC id {} (compartment {} of {}); soma peak: full {pf:.4} mV at {tf:.2} ms, reduced {pr:.4} mV at {trd:.2} ms; peak error {}",
+        "{name}: injection point SWC id {} (compartment {} of {}{}); soma peak: full {pf:.4} mV at {tf:.2} ms, reduced {pr:.4} mV at {trd:.2} ms; peak error {}",
         tr.swc_id.unwrap_or(-1),
         tr.compartment,
         tree.len(),
+        match tr.split {
+            Some(x) => format!(
+                ", {:.1} % of the input at compartment {}",
+                100.0 * x.weight,
+                x.compartment
+            ),
+            None => String::new(),
+        },
         if err.is_finite() {
             format!("{:.1} % ({err:.3} Np)", percent(err))
         } else {

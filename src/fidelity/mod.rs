@@ -12,11 +12,11 @@
 mod budgets;
 mod polish;
 mod serve;
-mod share;
+mod split;
 mod traces;
 pub use budgets::{BudgetFidelity, budgets_csv, default_budgets};
 pub use polish::{
-    POLISH_ITERATIONS, POLISH_MAX_COMPARTMENTS, PolishSummary, SHARE_MAX_COMPARTMENTS,
+    POLISH_ITERATIONS, POLISH_MAX_COMPARTMENTS, PolishSummary, SPLIT_MAX_COMPARTMENTS,
 };
 
 pub use traces::{
@@ -122,7 +122,7 @@ impl FidelityOptions {
                 tau_ms: self.tau_ms,
                 peak_pa: self.peak_pa,
             },
-            share: None,
+            split: None,
         }
     }
 
@@ -188,11 +188,11 @@ pub struct SiteFidelity {
     /// SWC id of the point (when the morphology was given).
     pub swc_id: Option<i64>,
     pub swc_line: usize,
-    /// The compartment taking the site's input (the larger part of it when shared).
+    /// The compartment taking the site's input (the larger part of it when split).
     pub compartment: u32,
     /// The part of the site's input given to a neighbouring compartment, if any.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub share: Option<crate::reduce::Share>,
+    pub split: Option<crate::reduce::Split>,
     pub epsp_peak_full_mv: f64,
     pub epsp_peak_reduced_mv: f64,
     /// |ln(peak_reduced/peak_full)| (Np).
@@ -202,7 +202,7 @@ pub struct SiteFidelity {
     /// |ttp_reduced − ttp_full|/ttp_full.
     pub time_to_peak_error: f64,
     /// DC log attenuation to the soma ln(Z_kk/Z_k0) (Np), site in the full cell and its
-    /// compartment (or shared input) in the reduced tree.
+    /// compartment (or split input) in the reduced tree.
     #[serde(rename = "attenuation_to_soma_full_np")]
     pub ln_attenuation_to_soma_full: f64,
     #[serde(rename = "attenuation_to_soma_reduced_np")]
@@ -386,18 +386,18 @@ impl Fidelity {
         // a ratio of impedances: the network's own units (nS) will do
         let from = ln_from_soma(&net.parent, &net.g_axial_ns, &net.g_leak_ns);
         let to = tree.ln_attenuation_dc();
-        // shared inputs answer with the mix of their two compartments' responses
-        let mixes = match tree.site_share.iter().any(Option::is_some) {
-            true => Some(share::Mixes::new(self, tree)?),
+        // split inputs answer with the mix of their two compartments' responses
+        let mixes = match tree.site_split.iter().any(Option::is_some) {
+            true => Some(split::Mixes::new(self, tree)?),
             false => None,
         };
         let rows = (0..self.peak.len())
             .map(|i| {
                 let c = tree.site_compartment[i] as usize;
                 let (pf, tf) = (self.peak[i], self.ttp[i]);
-                let red = match (&mixes, tree.site_share(i)) {
+                let red = match (&mixes, tree.site_split(i)) {
                     (Some(mx), Some(sh)) => mx.answer(c, Some(sh)),
-                    _ => share::Answer {
+                    _ => split::Answer {
                         peak_mv: peaks.value_mv[c],
                         ttp_ms: peaks.time_ms[c],
                         ln_to: to[c],
@@ -411,7 +411,7 @@ impl Fidelity {
                     swc_id: m.and_then(|m| m.points.get(self.point[i] as usize).map(|p| p.id)),
                     swc_line: self.line[i],
                     compartment: c as u32,
-                    share: tree.site_share(i),
+                    split: tree.site_split(i),
                     epsp_peak_full_mv: pf,
                     epsp_peak_reduced_mv: pr,
                     epsp_peak_error_np: (pr / pf).ln().abs(),

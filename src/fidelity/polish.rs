@@ -48,20 +48,20 @@ pub struct PolishSummary {
     pub objective_before: f64,
     pub objective_after: f64,
     /// Sites served by a neighbour of the compartment the reducer gave them
-    /// ([`Fidelity::serve_sites`], [`Fidelity::share_sites`]).
+    /// ([`Fidelity::serve_sites`], [`Fidelity::split_sites`]).
     pub sites_moved: usize,
-    /// Sites whose input is shared between two compartments ([`Fidelity::share_sites`]).
-    pub sites_shared: usize,
+    /// Sites whose input is split between two compartments ([`Fidelity::split_sites`]).
+    pub sites_split: usize,
 }
 
-/// Largest tree whose sites are shared (the step records every node's trace once).
-pub const SHARE_MAX_COMPARTMENTS: usize = 1023;
+/// Largest tree whose sites' inputs are split (the step records every node's trace once).
+pub const SPLIT_MAX_COMPARTMENTS: usize = 1023;
 
 impl Fidelity {
     /// Finishes a tree of this fidelity's reducer by its capacitance rule: when the rule is
     /// `Timed`, serves the sites by the tree's responses ([`Fidelity::serve_sites`]), polishes
-    /// the capacitances, serves them again and shares their inputs ([`Fidelity::share_sites`],
-    /// trees up to [`SHARE_MAX_COMPARTMENTS`]), returning what was done; leaves the tree as
+    /// the capacitances, serves them again and splits their inputs ([`Fidelity::split_sites`],
+    /// trees up to [`SPLIT_MAX_COMPARTMENTS`]), returning what was done; leaves the tree as
     /// built otherwise.
     pub fn apply_capacitance_rule(
         &self,
@@ -75,8 +75,8 @@ impl Fidelity {
             self.serve_sites(tree)?;
             let mut done = self.polish(tree)?;
             self.serve_sites(tree)?;
-            if tree.len() <= SHARE_MAX_COMPARTMENTS {
-                done.sites_shared = self.share_sites(tree)?;
+            if tree.len() <= SPLIT_MAX_COMPARTMENTS {
+                done.sites_split = self.split_sites(tree)?;
             }
             done.sites_moved = built
                 .iter()
@@ -111,7 +111,7 @@ impl Fidelity {
                 objective_before: before,
                 objective_after: f,
                 sites_moved: 0,
-                sites_shared: 0,
+                sites_split: 0,
             });
         }
         let mut step = 0.3;
@@ -160,7 +160,7 @@ impl Fidelity {
             objective_before: before,
             objective_after: f,
             sites_moved: 0,
-            sites_shared: 0,
+            sites_split: 0,
         })
     }
 

@@ -6,7 +6,7 @@ use super::{FidelityError, GROWTH_RATIO, SiteFidelity};
 use crate::morphology::{Morphology, NONE};
 use crate::reduce::{ReducedTree, Reducer};
 use crate::transient::{
-    Drive, Growth, Method, NodeShare, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform,
+    Drive, Growth, Method, NodeSplit, PieceRule, RcNetwork, RunOptions, Stop, Synapse, Waveform,
     fine_network, simulate,
 };
 
@@ -70,8 +70,12 @@ pub struct Traces {
     /// Morphology point of the injection point.
     pub point: u32,
     pub swc_id: Option<i64>,
-    /// The injection point's compartment in the reduced tree.
+    /// The injection point's compartment in the reduced tree (the larger part of its input
+    /// when split).
     pub compartment: u32,
+    /// The part of the input the reduced tree gives a neighbouring compartment, if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub split: Option<crate::reduce::Split>,
     pub times_ms: Vec<f64>,
     pub soma_full_mv: Vec<f64>,
     pub injection_point_full_mv: Vec<f64>,
@@ -182,7 +186,7 @@ impl SideTraces {
 fn run(
     net: &RcNetwork,
     node: usize,
-    share: Option<NodeShare>,
+    split: Option<NodeSplit>,
     input: &Input,
     opts: &TraceOptions,
 ) -> Result<SideTraces, FidelityError> {
@@ -216,21 +220,21 @@ fn run(
         Input::Current { waveform } => Drive::Current {
             node,
             waveform,
-            share,
+            split,
         },
         Input::Synapse { synapse } => Drive::Synapse {
             node,
             synapse,
-            share,
+            split,
         },
     };
-    let other = share.map_or(node, |s| s.node);
+    let other = split.map_or(node, |s| s.node);
     let r = simulate(net, &drive, &[0, node, other], &run_opts)?;
     let mut t = r.traces.into_iter();
     let soma_mv = t.next().unwrap_or_default();
     let (own, second) = (t.next().unwrap_or_default(), t.next().unwrap_or_default());
-    // a shared input's point reads the same mix of the two nodes (see `reduce::Share`)
-    let w = share.map_or(0.0, |s| s.weight);
+    // a split input's point reads the same mix of the two nodes (see `reduce::Split`)
+    let w = split.map_or(0.0, |s| s.weight);
     let injection_point_mv = own
         .iter()
         .zip(&second)
@@ -269,7 +273,7 @@ pub fn full_cell_traces(
 }
 
 /// The reduced tree's half of [`response_traces`]: `tree` driven at the compartment that
-/// serves morphology point `point` (shared with a neighbour when the point's input is). Returns
+/// serves morphology point `point` (split with a neighbour when the point's input is). Returns
 /// the compartment too.
 pub fn reduced_tree_traces(
     tree: &ReducedTree,
@@ -288,11 +292,11 @@ pub fn reduced_tree_traces(
         });
     }
     let net = RcNetwork::from_reduced(tree);
-    let share = tree.point_share(point as usize).map(|s| NodeShare {
+    let split = tree.point_split(point as usize).map(|s| NodeSplit {
         node: s.compartment as usize,
         weight: s.weight,
     });
-    Ok((c, run(&net, c as usize, share, input, opts)?))
+    Ok((c, run(&net, c as usize, split, input, opts)?))
 }
 
 /// Soma and injection-point traces for `input` at morphology point `point` (see [`resolve_site`]): the
@@ -310,6 +314,7 @@ pub fn response_traces(
         point,
         swc_id: None,
         compartment: c,
+        split: tree.point_split(point as usize),
         times_ms: full.times_ms,
         soma_full_mv: full.soma_mv,
         injection_point_full_mv: full.injection_point_mv,
@@ -319,10 +324,10 @@ pub fn response_traces(
 }
 
 /// The per-site table as CSV (one row per site, the columns of [`SiteFidelity`]; a site without
-/// a share has `shared_with` empty and `share` 0).
+/// a split has `split_with` empty and `split_weight` 0).
 pub fn sites_csv(rows: &[SiteFidelity]) -> String {
     let mut s = String::from(
-        "site,swc_id,swc_line,compartment,shared_with,share,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,attenuation_to_soma_full_np,attenuation_to_soma_reduced_np,attenuation_from_soma_full_np,attenuation_from_soma_reduced_np\n",
+        "site,swc_id,swc_line,compartment,split_with,split_weight,epsp_peak_full_mv,epsp_peak_reduced_mv,epsp_peak_error_np,time_to_peak_full_ms,time_to_peak_reduced_ms,time_to_peak_error,attenuation_to_soma_full_np,attenuation_to_soma_reduced_np,attenuation_from_soma_full_np,attenuation_from_soma_reduced_np\n",
     );
     for r in rows {
         s.push_str(&format!(
@@ -331,10 +336,10 @@ pub fn sites_csv(rows: &[SiteFidelity]) -> String {
             r.swc_id.map(|i| i.to_string()).unwrap_or_default(),
             r.swc_line,
             r.compartment,
-            r.share
+            r.split
                 .map(|s| s.compartment.to_string())
                 .unwrap_or_default(),
-            r.share.map_or(0.0, |s| s.weight),
+            r.split.map_or(0.0, |s| s.weight),
             r.epsp_peak_full_mv,
             r.epsp_peak_reduced_mv,
             r.epsp_peak_error_np,

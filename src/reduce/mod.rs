@@ -240,13 +240,13 @@ pub struct SiteInfo {
     pub ln_attenuation_full: f64,
 }
 
-/// An input shared with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
+/// An input split with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
 /// site's current goes to `compartment`, the rest to the site's own compartment, and the site's
 /// voltage is read as the same mix — a point between two nodes of a finite-element cable with
 /// linear elements (Galerkin; e.g. Hughes 1987, ch. 1), the weight fitted to the cell's response
-/// at the site instead of taken from the point's position (see `fidelity::share`).
+/// at the site instead of taken from the point's position (see `fidelity::split`).
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
-pub struct Share {
+pub struct Split {
     pub compartment: u32,
     pub weight: f64,
 }
@@ -258,14 +258,14 @@ pub struct ReducedTree {
     /// Per morphology point (index into `Morphology::points`): its compartment, or `NONE`
     /// (u32::MAX) for points of other trees and points left out by the type filter.
     pub point_compartment: Vec<u32>,
-    /// Per site of [`Reducer::sites`]: its compartment (with a share: the one taking the larger
+    /// Per site of [`Reducer::sites`]: its compartment (when split: the one taking the larger
     /// part of its input).
     pub site_compartment: Vec<u32>,
     /// Per site: the part of its input given to a neighbouring compartment, if any; empty when no
-    /// site shares (every rule but `timed`).
-    pub site_share: Vec<Option<Share>>,
-    /// Per morphology point: the same for the points that are sites; empty when no site shares.
-    pub point_share: Vec<Option<Share>>,
+    /// site is split (every rule but `timed`).
+    pub site_split: Vec<Option<Split>>,
+    /// Per morphology point: the same for the points that are sites; empty when no site is split.
+    pub point_split: Vec<Option<Split>>,
     /// The budget asked for.
     pub requested: usize,
     /// True when an even request was rounded down to the odd number below.
@@ -694,8 +694,8 @@ impl Reducer {
             compartments: comps,
             point_compartment,
             site_compartment,
-            site_share: Vec::new(),
-            point_share: Vec::new(),
+            site_split: Vec::new(),
+            point_split: Vec::new(),
             requested: budget,
             rounded_down: budget.is_multiple_of(2) && budget <= nm && budget >= 1,
             clamped: budget == 0 || budget > nm,

@@ -5,7 +5,7 @@
 //! What this file does not do: build trees (that is `build`) or compare them with the cell (that
 //! is `Reducer::report` and `crate::fidelity`).
 
-use super::{Compartment, FeedForward, ReducedTree, Share};
+use super::{Compartment, FeedForward, ReducedTree, Split};
 use crate::cable::solve::{TreeFactor, TreeMaps};
 use crate::cable::{C64, Network};
 use crate::morphology::NONE;
@@ -92,7 +92,7 @@ impl ReducedTree {
         TreeMaps::new(&p, &g, &s).ln_attenuations_to_soma()
     }
 
-    /// The DC maps of the tree, for attenuations of inputs that may be shared (see [`DcMaps`]).
+    /// The DC maps of the tree, for attenuations of inputs that may be split (see [`DcMaps`]).
     pub fn dc_maps(&self) -> DcMaps {
         let (p, g, s) = self.dc();
         DcMaps {
@@ -100,26 +100,58 @@ impl ReducedTree {
         }
     }
 
-    /// Per site: the DC log attenuation to the soma of its input, ln(Z_ss/Z_s0), with its share
+    /// Per site: the DC log attenuation to the soma of its input, ln(Z_ss/Z_s0), with its split
     /// if it has one (see [`DcMaps::ln_attenuations`]).
     pub fn site_ln_attenuations_dc(&self) -> Vec<f64> {
         let m = self.dc_maps();
         (0..self.site_compartment.len())
             .map(|i| {
-                m.ln_attenuations(self.site_compartment[i] as usize, self.site_share(i))
+                m.ln_attenuations(self.site_compartment[i] as usize, self.site_split(i))
                     .0
             })
             .collect()
     }
 
-    /// Site `i`'s share, if it has one.
-    pub fn site_share(&self, i: usize) -> Option<Share> {
-        self.site_share.get(i).copied().flatten()
+    /// The first site or point whose split is not one this tree can hold (its compartments not
+    /// two adjacent compartments of the tree, or its weight outside (0, 0.5]), described.
+    pub fn bad_split(&self) -> Option<String> {
+        let n = self.len();
+        let adjacent = |a: u32, b: u32| {
+            let (a, b) = (a as usize, b as usize);
+            a < n
+                && b < n
+                && (self.compartments[a].parent == Some(b as u32)
+                    || self.compartments[b].parent == Some(a as u32))
+        };
+        let bad = |own: u32, s: &Split| {
+            !(adjacent(own, s.compartment) && s.weight > 0.0 && s.weight <= 0.5)
+        };
+        let sites = self.site_compartment.iter().zip(&self.site_split);
+        if let Some(i) = sites
+            .clone()
+            .position(|(&c, s)| s.as_ref().is_some_and(|s| bad(c, s)))
+        {
+            return Some(format!(
+                "site {i}: its split is not between two adjacent compartments with a weight in (0, 0.5]"
+            ));
+        }
+        let points = self.point_compartment.iter().zip(&self.point_split);
+        let p = points
+            .clone()
+            .position(|(&c, s)| s.as_ref().is_some_and(|s| bad(c, s)))?;
+        Some(format!(
+            "point {p}: its split is not between two adjacent compartments with a weight in (0, 0.5]"
+        ))
     }
 
-    /// Morphology point `p`'s share, if it has one.
-    pub fn point_share(&self, p: usize) -> Option<Share> {
-        self.point_share.get(p).copied().flatten()
+    /// Site `i`'s split, if it has one.
+    pub fn site_split(&self, i: usize) -> Option<Split> {
+        self.site_split.get(i).copied().flatten()
+    }
+
+    /// Morphology point `p`'s split, if it has one.
+    pub fn point_split(&self, p: usize) -> Option<Split> {
+        self.point_split.get(p).copied().flatten()
     }
 
     /// V_k/V_c at DC on the reduced tree for a current injected at compartment `c`
@@ -230,7 +262,7 @@ pub fn slowest_time_constant_ms(
     1.0 / lam
 }
 
-/// The reduced tree's DC maps (both sweeps, once), for inputs at one compartment or shared
+/// The reduced tree's DC maps (both sweeps, once), for inputs at one compartment or split
 /// between two adjacent ones.
 pub struct DcMaps {
     maps: TreeMaps<f64>,
@@ -238,17 +270,17 @@ pub struct DcMaps {
 
 impl DcMaps {
     /// DC log attenuations (to the soma, from the soma; nepers) of an input at compartment `c`,
-    /// or shared between `c` (1 − w) and its neighbour `share.compartment` (w), the site's
-    /// voltage read as the same mix (Galerkin, see [`Share`]). With p the pair's parent end, q its
+    /// or split between `c` (1 − w) and its neighbour `split.compartment` (w), the site's
+    /// voltage read as the same mix (Galerkin, see [`Split`]). With p the pair's parent end, q its
     /// child end, weights w_p and w_q and d_q = V_q/V_p for current at p (Koch & Poggio 1985):
     /// Z_ss = w_p²Z_pp + 2w_pw_qZ_ppd_q + w_q²Z_qq and Z_s0 = Z_p0(w_p + w_qd_q), so
     /// ln A_to = ln(Z_ss/Z_pp) + ln A_to(p) − ln(w_p + w_qd_q) and
     /// ln A_from = ln A_from(p) − ln(w_p + w_qd_q) (ratios only: no underflow far out).
-    /// A share whose compartment is not a neighbour of `c` is read as no share.
-    pub fn ln_attenuations(&self, c: usize, share: Option<Share>) -> (f64, f64) {
+    /// A split whose compartment is not a neighbour of `c` is read as none.
+    pub fn ln_attenuations(&self, c: usize, split: Option<Split>) -> (f64, f64) {
         let m = &self.maps;
         let own = || (m.ln_attenuation_to_soma(c), m.ln_attenuation_from_soma(c));
-        let Some(sh) = share else {
+        let Some(sh) = split else {
             return own();
         };
         let k = sh.compartment as usize;

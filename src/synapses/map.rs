@@ -12,9 +12,12 @@ pub struct MatrixEntry {
     pub input: u32,
     /// Column: compartment id.
     pub compartment: u32,
-    /// Synapses of this input on this compartment.
+    /// Synapses of this input on this compartment (for a split synapse: the compartment taking
+    /// the larger part of it).
     pub count: u32,
-    /// Their summed weight.
+    /// Their summed weight, with the parts of split synapses: a synapse split with weight w
+    /// gives (1 − w) of its weight here and w to its second compartment's entry (whose count may
+    /// then be 0).
     pub weight: f64,
 }
 
@@ -109,6 +112,42 @@ fn sorted_keys(snapped: &Snapped, comp: &[u32]) -> Vec<(u64, u32)> {
     keys
 }
 
+/// The matrix's entries, sorted by input, then compartment: each synapse counts on its
+/// compartment with its weight, less the part a split gives to its second compartment (which
+/// gets an entry of count 0 when the input has no synapse of its own there). Parts add in
+/// table order.
+fn matrix_entries(snapped: &Snapped, tree: &ReducedTree, comp: &[u32]) -> Vec<MatrixEntry> {
+    let mut parts: Vec<MatrixEntry> = Vec::with_capacity(snapped.synapses.len());
+    for (s, &c) in snapped.synapses.iter().zip(comp) {
+        let split = tree.point_split(s.point as usize);
+        let w = split.map_or(0.0, |sp| sp.weight);
+        parts.push(MatrixEntry {
+            input: s.input,
+            compartment: c,
+            count: 1,
+            weight: s.weight * (1.0 - w),
+        });
+        if let Some(sp) = split {
+            parts.push(MatrixEntry {
+                input: s.input,
+                compartment: sp.compartment,
+                count: 0,
+                weight: s.weight * w,
+            });
+        }
+    }
+    parts.sort_by_key(|e| (e.input, e.compartment)); // stable
+    parts
+        .chunk_by(|a, b| (a.input, a.compartment) == (b.input, b.compartment))
+        .map(|run| MatrixEntry {
+            input: run[0].input,
+            compartment: run[0].compartment,
+            count: run.iter().map(|e| e.count).sum(),
+            weight: run.iter().map(|e| e.weight).sum(),
+        })
+        .collect()
+}
+
 /// (pairs, sharing) of one assignment: one pass over the sorted keys.
 fn pairs_and_sharing(keys: &[(u64, u32)]) -> (usize, usize) {
     let (mut pairs, mut sharing) = (0, 0);
@@ -125,20 +164,7 @@ impl SynapseMap {
     /// Maps the synapses onto `tree` (any reduction of the cell they were snapped to).
     pub fn new(snapped: &Snapped, tree: &ReducedTree) -> Result<SynapseMap, SynapseError> {
         let comp = compartments(snapped, tree)?;
-        let keys = sorted_keys(snapped, &comp);
-        let mut matrix: Vec<MatrixEntry> = Vec::new();
-        for run in keys.chunk_by(|a, b| a.0 == b.0) {
-            let first = &snapped.synapses[run[0].1 as usize];
-            matrix.push(MatrixEntry {
-                input: first.input,
-                compartment: comp[run[0].1 as usize],
-                count: run.len() as u32,
-                weight: run
-                    .iter()
-                    .map(|&(_, i)| snapped.synapses[i as usize].weight)
-                    .sum(),
-            });
-        }
+        let matrix = matrix_entries(snapped, tree, &comp);
         let mut per_input = vec![InputStats::default(); snapped.inputs.len()];
         for e in &matrix {
             let s = &mut per_input[e.input as usize];

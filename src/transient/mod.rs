@@ -9,7 +9,7 @@
 //! O(N) (Hines 1984); both are unconditionally stable. A synapse g(t)·(E − V_s) is implicit: its
 //! conductance only changes M's diagonal at s, a rank-one change solved with the
 //! Sherman–Morrison formula from one extra solve M⁻¹e_s made once (still O(N) per step). An
-//! input shared between two nodes ([`NodeShare`]) puts u = (1 − w)e_s + w·e_k in place of e_s:
+//! input split between two nodes ([`NodeSplit`]) puts u = (1 − w)e_s + w·e_k in place of e_s:
 //! current u·I(t), synapse g(t)·(E − uᵀV)·u, still rank one.
 //!
 //! Memory is O(N + recorded nodes × steps): chosen nodes' traces are recorded; for every node
@@ -183,29 +183,29 @@ pub enum Drive {
         node: usize,
         waveform: Waveform,
         #[serde(skip_serializing_if = "Option::is_none")]
-        share: Option<NodeShare>,
+        split: Option<NodeSplit>,
     },
     Synapse {
         node: usize,
         synapse: Synapse,
         #[serde(skip_serializing_if = "Option::is_none")]
-        share: Option<NodeShare>,
+        split: Option<NodeSplit>,
     },
 }
 
 /// Part `weight` (0 ≤ w ≤ 1) of a drive's input given to a second node; the drive's own node
 /// takes 1 − w, and a synapse sees the same mix of the two voltages.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
-pub struct NodeShare {
+pub struct NodeSplit {
     pub node: usize,
     pub weight: f64,
 }
 
 impl Drive {
-    /// The input vector u as (node, weight) pairs: the drive's node alone, or with its share.
+    /// The input vector u as (node, weight) pairs: the drive's node alone, or with its split.
     fn inputs(&self) -> [(usize, f64); 2] {
-        let (Drive::Current { node, share, .. } | Drive::Synapse { node, share, .. }) = *self;
-        match share {
+        let (Drive::Current { node, split, .. } | Drive::Synapse { node, split, .. }) = *self;
+        match split {
             Some(s) => [(node, 1.0 - s.weight), (s.node, s.weight)],
             None => [(node, 1.0), (node, 0.0)],
         }
@@ -375,7 +375,7 @@ fn validate_run(
         }
     }
     check(
-        "share of the input at the second node",
+        "part of the input at the second node",
         drive.inputs()[1].1,
         0.0,
         1.0,
@@ -581,7 +581,7 @@ mod tests {
         let drive = Drive::Current {
             node: 0,
             waveform: Waveform::Step { amplitude_pa: 1.0 },
-            share: None,
+            split: None,
         };
         let mut o = RunOptions {
             dt_ms: f64::NAN,

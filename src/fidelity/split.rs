@@ -1,5 +1,5 @@
-//! Last step of `CapacitanceRule::Timed`: a site's input may be shared between two adjacent
-//! compartments ([`Share`]), the way a point between two nodes of a finite-element cable gives
+//! Last step of `CapacitanceRule::Timed`: a site's input may be split between two adjacent
+//! compartments ([`Split`]), the way a point between two nodes of a finite-element cable gives
 //! its current to both and reads its voltage as the same mix (linear elements, Galerkin), with
 //! the weight chosen to answer most like the cell at the site.
 //!
@@ -10,16 +10,16 @@
 //! its compartment and of that compartment's parent, weights in steps of 1/40:
 //! cost = 1·|ln A_site − ln A_mix| (DC, Np) + 5·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
 //! The larger part names the site's compartment (its point, membrane area and site count move
-//! with it), the smaller is its share. Per link the 41 mixes are measured once on one run of the
+//! with it), the smaller is its split. Per link the 41 mixes are measured once on one run of the
 //! tree (every node recorded), so the step is O(links × 41 × window + sites × links near).
 //!
 //! What this step does not do: change any conductance or capacitance (the network stays exactly
-//! as built, DC exact), or share a site with a compartment more than two links from its own.
+//! as built, DC exact), or split a site's input with a compartment more than two links from its own.
 
 use super::polish::ln_floor;
 use super::{Fidelity, FidelityError};
 use crate::morphology::NONE;
-use crate::reduce::{DcMaps, ReducedTree, Share};
+use crate::reduce::{DcMaps, ReducedTree, Split};
 use crate::transient::{RcNetwork, refine_peak, simulate};
 
 /// Weights of the DC and time-to-peak terms against the peak's (all three |log ratios|).
@@ -31,7 +31,7 @@ const DC_WEIGHT: f64 = 1.0;
 const STEPS: usize = 40;
 
 /// One run of a reduced tree with every node recorded, for the soma's response to inputs at one
-/// compartment or shared between two adjacent ones (by linearity, the mix of their responses).
+/// compartment or split between two adjacent ones (by linearity, the mix of their responses).
 pub(super) struct Mixes {
     times: Vec<f64>,
     traces: Vec<Vec<f64>>,
@@ -63,11 +63,11 @@ impl Mixes {
         })
     }
 
-    /// The soma's answer to an input at compartment `c`, shared as `share` says. The peak of a
+    /// The soma's answer to an input at compartment `c`, split as `split` says. The peak of a
     /// mix lies between its two nodes' peak times (both responses rise before and fall after),
     /// so only that window is searched; refined by the parabola, as the engine's peaks are.
-    pub(super) fn answer(&self, c: usize, share: Option<Share>) -> Answer {
-        let (k, w) = share.map_or((c, 0.0), |s| (s.compartment as usize, s.weight));
+    pub(super) fn answer(&self, c: usize, split: Option<Split>) -> Answer {
+        let (k, w) = split.map_or((c, 0.0), |s| (s.compartment as usize, s.weight));
         let (a, b) = (&self.traces[c], &self.traces[k]);
         let mix = |j: usize| (1.0 - w) * a[j] + w * b[j];
         let (i0, i1) = (self.peak_index[c], self.peak_index[k]);
@@ -82,7 +82,7 @@ impl Mixes {
         let before = if i > 0 { mix(i - 1) } else { mix(i) };
         let after = if i + 1 < a.len() { mix(i + 1) } else { mix(i) };
         let (peak_mv, ttp_ms) = refine_peak(&self.times, i, [before, mix(i), after]);
-        let (ln_to, ln_from) = self.dc.ln_attenuations(c, share);
+        let (ln_to, ln_from) = self.dc.ln_attenuations(c, split);
         Answer {
             peak_mv,
             ttp_ms,
@@ -97,7 +97,7 @@ fn largest(v: &[f64], lo: usize, hi: usize) -> usize {
     (lo..hi).fold(lo, |b, j| if v[j] > v[b] { j } else { b })
 }
 
-/// The links a site of compartment `c` may be shared along: those of `c` and of its parent,
+/// The links a site of compartment `c` may be split along: those of `c` and of its parent,
 /// each as (parent end, child end).
 fn links_near(tree: &ReducedTree, c: usize) -> Vec<(usize, usize)> {
     let mut out = Vec::with_capacity(6);
@@ -117,10 +117,10 @@ fn links_near(tree: &ReducedTree, c: usize) -> Vec<(usize, usize)> {
 }
 
 impl Fidelity {
-    /// Shares each site's input between the two ends of the link near it that answer most
-    /// like the cell at the site (see the module documentation). Returns how many sites share.
+    /// Splits each site's input between the two ends of the link near it that answer most
+    /// like the cell at the site (see the module documentation). Returns how many sites are split.
     /// A tree from another reducer (its site count differs) is refused.
-    pub fn share_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
+    pub fn split_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
         let points = tree.point_compartment.len();
         if tree.site_compartment.len() != self.peak.len()
             || self.point.iter().any(|&p| p as usize >= points)
@@ -129,8 +129,8 @@ impl Fidelity {
                 what: "number of sites",
             });
         }
-        tree.site_share = vec![None; self.peak.len()];
-        tree.point_share = vec![None; points];
+        tree.site_split = vec![None; self.peak.len()];
+        tree.point_split = vec![None; points];
         if tree.len() < 2 {
             return Ok(0);
         }
@@ -142,28 +142,28 @@ impl Fidelity {
                 Some(p) => (0..=STEPS)
                     .map(|s| {
                         let weight = s as f64 / STEPS as f64;
-                        let share = Some(Share {
+                        let split = Some(Split {
                             compartment: q as u32,
                             weight,
                         });
-                        let a = mixes.answer(p as usize, share);
+                        let a = mixes.answer(p as usize, split);
                         [ln_floor(a.peak_mv), ln_floor(a.ttp_ms), a.ln_to]
                     })
                     .collect(),
             })
             .collect();
-        let mut decided: Vec<Option<(u32, Option<Share>)>> = vec![None; points];
-        let mut shared = 0;
+        let mut decided: Vec<Option<(u32, Option<Split>)>> = vec![None; points];
+        let mut split = 0;
         for i in 0..self.peak.len() {
             let p = self.point[i] as usize;
             let c = tree.site_compartment[i] as usize;
             let first = decided[p].is_none();
-            let (to, share) = *decided[p].get_or_insert_with(|| {
+            let (to, part) = *decided[p].get_or_insert_with(|| {
                 let target = [ln_floor(self.peak[i]), ln_floor(self.ttp[i]), self.ln_to[i]];
                 best_mix(&table, &links_near(tree, c), target).unwrap_or((c as u32, None))
             });
             if first {
-                tree.point_share[p] = share;
+                tree.point_split[p] = part;
                 let was = tree.point_compartment[p];
                 if was != NONE && was != to {
                     tree.compartments[was as usize].membrane_area_um2 -= self.area[i];
@@ -176,20 +176,20 @@ impl Fidelity {
                 tree.compartments[to as usize].site_count += 1;
                 tree.site_compartment[i] = to;
             }
-            tree.site_share[i] = share;
-            shared += share.is_some() as usize;
+            tree.site_split[i] = part;
+            split += part.is_some() as usize;
         }
-        Ok(shared)
+        Ok(split)
     }
 }
 
 /// The link and weight of least cost for a site with `target` (ln peak, ln ttp, ln A):
-/// (the compartment taking the larger part, the share of the other — none at weight 0).
+/// (the compartment taking the larger part, the split to the other — none at weight 0).
 fn best_mix(
     table: &[Vec<[f64; 3]>],
     links: &[(usize, usize)],
     target: [f64; 3],
-) -> Option<(u32, Option<Share>)> {
+) -> Option<(u32, Option<Split>)> {
     let mut best: Option<(f64, usize, usize, usize)> = None;
     for &(p, q) in links {
         for (s, m) in table[q].iter().enumerate() {
@@ -206,11 +206,11 @@ fn best_mix(
     let (own, other, weight) = if s * 2 <= STEPS {
         (p, q, w)
     } else {
-        (q, p, 1.0 - w)
+        (q, p, (STEPS - s) as f64 / STEPS as f64)
     };
-    let share = (s != 0 && s != STEPS).then_some(Share {
+    let part = (s != 0 && s != STEPS).then_some(Split {
         compartment: other as u32,
         weight,
     });
-    Some((own as u32, share))
+    Some((own as u32, part))
 }
