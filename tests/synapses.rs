@@ -93,6 +93,49 @@ fn matrix_counts_and_weights_add_up_to_the_table() {
 }
 
 #[test]
+fn split_synapses_give_their_second_part_to_the_second_compartment() {
+    // timed trees split some sites' input between two adjacent compartments: the matrix must
+    // still add up to the table (counts and weights), and each (input, compartment) entry must
+    // hold what the site map says lands there, (1 − w) on a site's compartment and w on its
+    // split's (the site map is the reducer's route; the matrix is built from the point map)
+    let (_, flat, s) = demo_snapped(&SnapOptions::default());
+    let (rows, weight) = demo_rows_and_weight();
+    let r = reducer(&flat, s.sites(), None);
+    let fid = pollard::fidelity::Fidelity::new(&r, &Default::default()).unwrap();
+    for b in [7, 31] {
+        let mut tree = r.tree(b);
+        fid.apply_capacitance_rule(&mut tree).unwrap();
+        let splits = tree.site_split.iter().flatten().count();
+        assert!(splits > 0, "budget {b}: no split");
+        let map = SynapseMap::new(&s, &tree).unwrap();
+        let n: u32 = map.matrix.iter().map(|e| e.count).sum();
+        let w: f64 = map.matrix.iter().map(|e| e.weight).sum();
+        assert_eq!(n as usize, rows, "budget {b}");
+        assert!(
+            (w - weight).abs() <= 1e-9 * weight,
+            "budget {b}: {w} vs {weight}"
+        );
+        let mut want = std::collections::BTreeMap::<(u32, u32), f64>::new();
+        for (i, syn) in s.synapses.iter().enumerate() {
+            let c = tree.site_compartment[i];
+            let part = tree.site_split[i].map_or(0.0, |x| x.weight);
+            *want.entry((syn.input, c)).or_default() += syn.weight * (1.0 - part);
+            if let Some(x) = tree.site_split[i] {
+                *want.entry((syn.input, x.compartment)).or_default() += syn.weight * part;
+            }
+        }
+        assert_eq!(map.matrix.len(), want.len(), "budget {b}");
+        for (e, ((inp, c), wt)) in map.matrix.iter().zip(&want) {
+            assert_eq!((e.input, e.compartment), (*inp, *c));
+            assert!(
+                (e.weight - wt).abs() <= 1e-12 * wt.max(1.0),
+                "{e:?} vs {wt}"
+            );
+        }
+    }
+}
+
+#[test]
 fn each_synapse_is_in_the_compartment_holding_its_snapped_point() {
     let (_, flat, s) = demo_snapped(&SnapOptions::default());
     let r = reducer(&flat, s.sites(), None);

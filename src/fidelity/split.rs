@@ -214,3 +214,97 @@ fn best_mix(
     });
     Some((own as u32, part))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn splits_stay_near_and_the_maps_stay_one() {
+        let (red, fid) = crate::fidelity::demo_reduction();
+        for budget in [7, 15, 31] {
+            let before = red.tree(budget);
+            let mut after = before.clone();
+            let n = fid.split_sites(&mut after).unwrap();
+            assert_eq!(
+                n,
+                after.site_split.iter().flatten().count(),
+                "budget {budget}"
+            );
+            assert!(n > 0, "budget {budget}: no site split");
+            for i in 0..after.site_compartment.len() {
+                let (c0, c1) = (
+                    before.site_compartment[i],
+                    after.site_compartment[i] as usize,
+                );
+                // the site's compartment is its old one, a neighbour, or two links up at most
+                let mut up = vec![c0 as usize];
+                let parent = |c: usize| before.compartments[c].parent.map(|p| p as usize);
+                up.extend(parent(c0 as usize));
+                up.extend(parent(c0 as usize).and_then(parent));
+                let child_of_near = up[..2.min(up.len())]
+                    .iter()
+                    .any(|&j| before.compartments[c1].parent == Some(j as u32));
+                assert!(up.contains(&c1) || child_of_near, "site {i}: {c0} -> {c1}");
+                let p = fid.point[i] as usize;
+                assert_eq!(after.point_compartment[p] as usize, c1);
+                assert_eq!(after.point_split[p], after.site_split[i]);
+            }
+            assert!(after.bad_split().is_none(), "{:?}", after.bad_split());
+            for (a, b) in before.compartments.iter().zip(&after.compartments) {
+                assert_eq!(
+                    (a.g_axial_ns, a.g_leak_ns, a.capacitance_pf),
+                    (b.g_axial_ns, b.g_leak_ns, b.capacitance_pf)
+                );
+            }
+            let area = |t: &ReducedTree| -> f64 {
+                t.compartments.iter().map(|c| c.membrane_area_um2).sum()
+            };
+            assert!((area(&before) - area(&after)).abs() <= 1e-9 * area(&before));
+            let mut per = vec![0u32; after.len()];
+            after
+                .site_compartment
+                .iter()
+                .for_each(|&c| per[c as usize] += 1);
+            for (c, k) in after.compartments.iter().zip(per) {
+                assert_eq!(c.site_count, k);
+            }
+        }
+    }
+
+    #[test]
+    fn weights_are_whole_fortieths_and_the_larger_part_names_the_compartment() {
+        // a table of two links whose second mix matches the target: weight 3/40 on the child
+        let mut table = vec![Vec::new(), vec![[0.0; 3]; STEPS + 1]];
+        table[1][3] = [1.0, 1.0, 1.0];
+        table[1][37] = [2.0, 2.0, 2.0];
+        let (own, part) = best_mix(&table, &[(0, 1)], [1.0, 1.0, 1.0]).unwrap();
+        assert_eq!(
+            (own, part),
+            (
+                0,
+                Some(Split {
+                    compartment: 1,
+                    weight: 3.0 / 40.0
+                })
+            )
+        );
+        let (own, part) = best_mix(&table, &[(0, 1)], [2.0, 2.0, 2.0]).unwrap();
+        assert_eq!(
+            (own, part),
+            (
+                1,
+                Some(Split {
+                    compartment: 0,
+                    weight: 3.0 / 40.0
+                })
+            )
+        );
+        table[1][40] = [5.0, 5.0, 5.0];
+        assert_eq!(
+            best_mix(&table, &[(0, 1)], [5.0, 5.0, 5.0]).unwrap(),
+            (1, None)
+        );
+        assert_eq!(best_mix(&table, &[], [5.0, 5.0, 5.0]), None);
+    }
+}
