@@ -73,9 +73,12 @@ fn fidelity_writes_the_per_site_table_on_every_real_cell() {
             assert!(!l.contains("NaN") && !l.contains("inf"), "{l}");
         }
         // the CSV's peak error is the JSON's and the log of the two peaks' ratio
+        assert!(lines[0].starts_with(
+            "site,swc_id,swc_line,compartment,split_with,split_weight,epsp_peak_full_mv,"
+        ));
         let f: Vec<f64> = lines[1]
             .split(',')
-            .skip(4)
+            .skip(6)
             .take(3)
             .map(|x| x.parse().unwrap())
             .collect();

@@ -44,7 +44,7 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
     assert_eq!(v["format"], "pollard.reduced-tree");
-    assert_eq!(v["schema_version"], 3);
+    assert_eq!(v["schema_version"], 4);
     let comps = v["compartments"].as_array().unwrap();
     assert_eq!(comps.len(), 15);
     // the schema's required fields are present in every compartment
@@ -113,6 +113,70 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
     let leaves = m.n_children.iter().filter(|&&c| c == 0).count();
     assert_eq!(leaves, 8);
     assert!(m.n_children.iter().all(|&c| c == 0 || c == 2));
+    // split inputs (the default rule's last step): each between two adjacent compartments,
+    // weight in (0, 0.5], the point map's splits the same as the site map's for the same points
+    let split_of = |v: &serde_json::Value| -> Vec<(i64, u64, f64)> {
+        v["site_map"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|x| x.get("split").is_some())
+            .map(|x| {
+                let sp = &x["split"];
+                (
+                    x["swc_id"].as_i64().unwrap(),
+                    sp["compartment"].as_u64().unwrap(),
+                    sp["weight"].as_f64().unwrap(),
+                )
+            })
+            .collect()
+    };
+    let splits = split_of(&v);
+    assert!(splits.len() > 100, "{} splits", splits.len());
+    let parent = |c: u64| comps[c as usize]["parent"].as_u64();
+    let ids = v["point_map"]["swc_id"].as_array().unwrap();
+    let point_splits = v["point_map"]["splits"].as_array().unwrap();
+    assert_eq!(point_splits.len(), splits.len()); // default sites: one per point
+    for (x, p) in v["site_map"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|x| x.get("split").is_some())
+        .zip(point_splits)
+    {
+        let (c, k) = (
+            x["compartment"].as_u64().unwrap(),
+            x["split"]["compartment"].as_u64().unwrap(),
+        );
+        assert!(parent(c) == Some(k) || parent(k) == Some(c), "{x}");
+        let w = x["split"]["weight"].as_f64().unwrap();
+        assert!(w > 0.0 && w <= 0.5, "{x}");
+        assert_eq!(ids[p["point"].as_u64().unwrap() as usize], x["swc_id"]);
+        assert_eq!(p["compartment"], x["split"]["compartment"]);
+        assert_eq!(p["weight"], x["split"]["weight"]);
+    }
+    assert!(
+        stdout.contains("split between two adjacent compartments"),
+        "{stdout}"
+    );
+    // --one-compartment-per-site: no split anywhere, the same network
+    let o = pollard(&[
+        "reduce",
+        cell.to_str().unwrap(),
+        "-n",
+        "15",
+        "--one-compartment-per-site",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let whole: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    assert!(split_of(&whole).is_empty() && whole["point_map"].get("splits").is_none());
+    for (a, b) in comps.iter().zip(whole["compartments"].as_array().unwrap()) {
+        assert_eq!(a["g_axial_ns"], b["g_axial_ns"]);
+        assert_eq!(a["capacitance_pf"], b["capacitance_pf"]);
+    }
 }
 
 #[test]

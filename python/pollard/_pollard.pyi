@@ -83,7 +83,13 @@ class ReducedTree:
         """Compartment of every point, -1 for points left out."""
     @property
     def site_compartment(self) -> npt.NDArray[np.int64]:
-        """Compartment of every synapse site (order of report's sites)."""
+        """Compartment of every synapse site (order of report's sites); the larger part when split."""
+    @property
+    def site_split_compartment(self) -> npt.NDArray[np.int64]:
+        """Per site: the compartment taking the smaller part of a split input, -1 if not split."""
+    @property
+    def site_split_weight(self) -> npt.NDArray[np.float64]:
+        """Per site: that smaller part w (0 < w <= 0.5; 0 if not split)."""
     @property
     def feed_forward(self) -> Dict[str, Any]:
         """{'w': float64 array (NaN at the soma), 'subtree_conductance_ns': float64 array,
@@ -166,12 +172,15 @@ def reduce(
     synapses: Optional[PathLike] = None,
     snap_limit: float = 3.0,
     skip_far: bool = False,
+    split_inputs: bool = True,
 ) -> ReducedTree:
     """Reduces a cell to a strict binary tree of `compartments` compartments (odd; an even
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
     (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
     `capacitance`: "timed" (the default: fitted, then polished on the sites' EPSP peaks and
-    times to peak, as `pollard reduce`; runs the full cell once, which `fidelity` and `to_json`
+    times to peak, and each site's input possibly split between two adjacent compartments —
+    see `site_split_compartment`; `split_inputs=False` gives each site one compartment — as
+    `pollard reduce`; runs the full cell once, which `fidelity` and `to_json`
     then reuse; slowest time constant within about 10 % of Rm·Cm), "fitted" (to the cell's
     transfer impedances only; within 2 %) or "uniform" (C = Rm·Cm·G, exactly Rm·Cm);
     `synapses`: a synapse table (CSV: input, swc_id or x,y,z in the cell's units, weight),

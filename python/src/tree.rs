@@ -480,9 +480,9 @@ fn sites_text(sites: &Bound<'_, PyAny>) -> PyResult<(String, Option<PathBuf>)> {
 }
 
 /// Reduces a cell to a strict binary compartment tree of `compartments` compartments (the
-/// command `pollard reduce`).
+/// command `pollard reduce`; `split_inputs=False` is its `--one-compartment-per-site`).
 #[pyfunction]
-#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="timed", scale=None, default_diameter=None, synapses=None, snap_limit=pollard::synapses::DEFAULT_SNAP_LIMIT_UM, skip_far=false))]
+#[pyo3(signature = (cell, compartments, sites=None, types=None, rm=20000.0, ra=150.0, cm=1.0, impedance_freq=100.0, junction_fraction=1e-4, capacitance="timed", scale=None, default_diameter=None, synapses=None, snap_limit=pollard::synapses::DEFAULT_SNAP_LIMIT_UM, skip_far=false, split_inputs=true))]
 #[allow(clippy::too_many_arguments)]
 pub fn reduce(
     py: Python<'_>,
@@ -501,6 +501,7 @@ pub fn reduce(
     synapses: Option<PathBuf>,
     snap_limit: f64,
     skip_far: bool,
+    split_inputs: bool,
 ) -> PyResult<ReducedTree> {
     if sites.is_some() && synapses.is_some() {
         return Err(fail(
@@ -554,6 +555,7 @@ pub fn reduce(
             freq_hz: impedance_freq,
             junction_length_fraction: junction_fraction,
             capacitance,
+            split_inputs,
         };
         let reducer = Reducer::new(&flat, &params, &opts).map_err(|e| format!("{name}: {e}"))?;
         let mut tree = reducer.tree(compartments);

@@ -125,6 +125,12 @@ pub struct Settings {
     /// `Fitted` when absent (not as the library's default, `Timed`).
     #[serde(default = "fitted", skip_serializing_if = "is_fitted")]
     pub capacitance: CapacitanceRule,
+    /// With `Timed`: split sites' inputs between adjacent compartments (see
+    /// [`ReduceOptions::split_inputs`]). Stored only when true, and read back as false when
+    /// absent: records written before splits existed had none, and fitted records stay as
+    /// they were.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub split_inputs: bool,
 }
 
 fn is_fitted(c: &CapacitanceRule) -> bool {
@@ -150,6 +156,7 @@ impl Default for Settings {
             synapses: None,
             fidelity: Some(FidelityOptions::default()),
             capacitance: o.capacitance,
+            split_inputs: o.split_inputs,
         }
     }
 }
@@ -181,6 +188,7 @@ impl Settings {
             freq_hz: self.freq_hz,
             junction_length_fraction: self.junction_length_fraction,
             capacitance: self.capacitance,
+            split_inputs: self.split_inputs,
         }
     }
 

@@ -59,6 +59,10 @@ pub struct Args {
     /// (C = Rm·Cm × leak). Part of the settings a rerun compares.
     #[arg(long, value_enum, value_name = "RULE")]
     pub capacitance: Option<super::reduce::Capacitance>,
+    /// Give each site's input to one compartment: no split inputs (the `timed` rule's last
+    /// step), for codes that take one compartment per synapse.
+    #[arg(long)]
+    pub one_compartment_per_site: bool,
     /// Junction link length as a fraction of the branch point's radius.
     #[arg(long = "junction-fraction", value_name = "F",
           default_value_t = ReduceOptions::default().junction_length_fraction)]
@@ -208,7 +212,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         t.dedup();
         t
     });
-    let settings = Settings {
+    let mut settings = Settings {
         compartments,
         params: a.membrane.params(),
         default_diameter_um: a.geometry.default_diameter,
@@ -226,7 +230,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             Some(c) => c.into(),
             None => super::reduce::Capacitance::rule(None, !a.no_fidelity)?,
         },
+        split_inputs: false,
     };
+    // splits exist only with `timed`: false otherwise, so fitted records keep their key
+    settings.split_inputs = settings.capacitance == pollard::reduce::CapacitanceRule::Timed
+        && !a.one_compartment_per_site;
     if a.capacitance.is_none() && a.no_fidelity {
         eprintln!("note: {}", super::reduce::FALLBACK_NOTE);
     }

@@ -128,6 +128,10 @@ pub struct ReduceArgs {
     /// `uniform`.
     #[arg(long, value_enum, value_name = "RULE")]
     pub capacitance: Option<super::reduce::Capacitance>,
+    /// Give each site's input to one compartment: no split inputs (the `timed` rule's last
+    /// step), for codes that take one compartment per synapse.
+    #[arg(long)]
+    pub one_compartment_per_site: bool,
 }
 
 /// One entry of `--types`: an SWC type code or its name (soma, axon, basal, apical, …).
@@ -184,6 +188,7 @@ impl ReducedCellArgs {
             sites,
             junction_length_fraction: r.junction_fraction,
             capacitance: super::reduce::Capacitance::rule(r.capacitance, true)?,
+            split_inputs: !r.one_compartment_per_site,
             ..ReduceOptions::default()
         };
         let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;

@@ -68,14 +68,20 @@ pub struct Args {
     pub junction_fraction: f64,
     /// How compartments get their capacitance: `timed` (default) fits them to the cell's
     /// transfer impedances to the soma, then polishes them on the sites' EPSP peaks and times to
-    /// peak in the time domain and serves each site by its compartment or a neighbour, whichever
-    /// answers most like the cell (slowest time constant within about 10 % of Rm·Cm; needs the
+    /// peak in the time domain, serves each site by its compartment or a neighbour, whichever
+    /// answers most like the cell, and may split a site's input between two adjacent
+    /// compartments (see --one-compartment-per-site; slowest time constant within about 10 % of Rm·Cm; needs the
     /// fidelity run, so with --no-fidelity the default falls back to `fitted` and says so);
     /// `fitted` stops after the fit (slowest time constant within 2 % of Rm·Cm); `uniform` sets
     /// C = Rm·Cm × leak, which keeps the slowest time constant exactly Rm·Cm. Conductances are
     /// the same.
     #[arg(long, value_enum, value_name = "RULE")]
     pub capacitance: Option<Capacitance>,
+    /// Give each site's input to one compartment: no split inputs (the `timed` rule's last
+    /// step, which may split a site's input between two adjacent compartments), for codes that
+    /// take one compartment per synapse.
+    #[arg(long)]
+    pub one_compartment_per_site: bool,
     /// Where to write the reduced tree (JSON, see assets/reduced-tree.schema.json).
     #[arg(long, short = 'o', value_name = "TREE.json")]
     pub out: PathBuf,
@@ -118,6 +124,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         freq_hz: a.impedance_freq,
         junction_length_fraction: a.junction_fraction,
         capacitance: Capacitance::rule(a.capacitance, !a.no_fidelity)?,
+        split_inputs: !a.one_compartment_per_site,
     };
     let reducer = Reducer::new(&flat, &params, &opts).with_context(|| name.clone())?;
     let mut tree = reducer.tree(a.compartments);

@@ -176,6 +176,7 @@ pub struct Fidelity {
     max_compartments: usize,
     /// The reducer's capacitance rule (`Timed` trees are polished here).
     rule: crate::reduce::CapacitanceRule,
+    split_inputs: bool,
 }
 
 /// One site's numbers (a row of the per-site table).
@@ -351,6 +352,7 @@ impl Fidelity {
             not_peaked,
             max_compartments: reducer.max_compartments(),
             rule: reducer.options().capacitance,
+            split_inputs: reducer.options().split_inputs,
         })
     }
 

@@ -61,8 +61,8 @@ impl Fidelity {
     /// Finishes a tree of this fidelity's reducer by its capacitance rule: when the rule is
     /// `Timed`, serves the sites by the tree's responses ([`Fidelity::serve_sites`]), polishes
     /// the capacitances, serves them again and splits their inputs ([`Fidelity::split_sites`],
-    /// trees up to [`SPLIT_MAX_COMPARTMENTS`]), returning what was done; leaves the tree as
-    /// built otherwise.
+    /// trees up to [`SPLIT_MAX_COMPARTMENTS`], unless the reducer's options say
+    /// `split_inputs: false`), returning what was done; leaves the tree as built otherwise.
     pub fn apply_capacitance_rule(
         &self,
         tree: &mut ReducedTree,
@@ -75,7 +75,7 @@ impl Fidelity {
             self.serve_sites(tree)?;
             let mut done = self.polish(tree)?;
             self.serve_sites(tree)?;
-            if tree.len() <= SPLIT_MAX_COMPARTMENTS {
+            if self.split_inputs && tree.len() <= SPLIT_MAX_COMPARTMENTS {
                 done.sites_split = self.split_sites(tree)?;
             }
             done.sites_moved = built

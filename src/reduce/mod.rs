@@ -135,6 +135,9 @@ pub struct ReduceOptions {
     pub junction_length_fraction: f64,
     /// How compartments get their capacitance.
     pub capacitance: CapacitanceRule,
+    /// With `Timed`: split a site's input between two adjacent compartments where that answers
+    /// more like the cell (default true; false gives each site one compartment).
+    pub split_inputs: bool,
 }
 
 /// How the reduced tree's capacitances are chosen (the conductances are the same either way).
@@ -163,6 +166,7 @@ impl Default for ReduceOptions {
             freq_hz: 100.0,
             junction_length_fraction: 1e-4,
             capacitance: CapacitanceRule::default(),
+            split_inputs: true,
         }
     }
 }
