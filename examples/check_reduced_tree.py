@@ -14,7 +14,10 @@ Checks (exit status 1 if any fails):
   4. the slowest time constant (smallest eigenvalue of C^-1 G) equals tau = Rm*Cm (uniform
      capacitances), lies within 5 % of it (fitted: held within 2 % by the fit, up to 4.5 %
      measured) or within 12 % (timed, the default: held within ~10 %, 18.2-22.2 ms measured
-     for 20 ms on the real cells).
+     for 20 ms on the real cells);
+  5. every site's reduced DC log attenuation to the soma, its input at one compartment or split
+     between two adjacent ones (u = (1 - w) e_c + w e_k, read as a linear finite element):
+     ln(u^T G^-1 u / u^T G^-1 e_soma) from the dense solve equals the file's.
 
 Needs numpy only. Units in the file: nS, pF, um; 1/nS = 1 GOhm = 1000 MOhm; nS/pF = 1/ms.
 """
@@ -33,8 +36,8 @@ def fail(msg):
 def main(path):
     with open(path) as f:
         doc = json.load(f)
-    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 3:
-        print("not a version-3 pollard reduced tree:", path)
+    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 4:
+        print("not a version-4 pollard reduced tree:", path)
         return 1
     comps = doc["compartments"]
     n = len(comps)
@@ -161,6 +164,24 @@ def main(path):
     counted = sum(c["site_count"] for c in comps)
     if counted != len(doc["site_map"]):
         errors += fail("site counts do not add up to the number of sites")
+
+    # 5. sites' DC attenuation to the soma, split inputs included
+    z_soma = solve(np.eye(n)[:, 0])
+    worst = 0.0
+    for site in doc["site_map"]:
+        u = np.zeros(n)
+        c, split = site["compartment"], site.get("split")
+        w = split["weight"] if split else 0.0
+        if split:
+            k = split["compartment"]
+            if comps[k]["parent"] != c and comps[c]["parent"] != k:
+                errors += fail(f"site {site['swc_id']}: split between compartments not adjacent")
+            u[k] += w
+        u[c] += 1.0 - w
+        ln_a = np.log((u @ solve(u)) / (u @ z_soma))
+        worst = max(worst, abs(ln_a - site["attenuation_to_soma_reduced_np"]))
+    if worst > 1e-6:
+        errors += fail(f"site attenuations to the soma differ from the file's by up to {worst:.2e} Np")
 
     print("OK" if errors == 0 else f"{errors} check(s) failed")
     return 0 if errors == 0 else 1

@@ -8,7 +8,7 @@
 //! compartments' responses lies between them in size and time, so a site between them gets an
 //! answer between them. Each site takes the link and weight of least cost among the links of
 //! its compartment and of that compartment's parent, weights in steps of 1/40:
-//! cost = 1·|ln A_site − ln A_mix| (DC, Np) + 5·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
+//! cost = 2·|ln A_site − ln A_mix| (DC, Np) + 8·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
 //! The larger part names the site's compartment (its point, membrane area and site count move
 //! with it), the smaller is its split. Per link the 41 mixes are measured once on one run of the
 //! tree (every node recorded), so the step is O(links × 41 × window + sites × links near).
@@ -24,9 +24,10 @@ use crate::transient::{RcNetwork, refine_peak, simulate};
 
 /// Weights of the DC and time-to-peak terms against the peak's (all three |log ratios|).
 /// Measured on the eight shared real cells at 15/31/63 compartments (targets met of 120):
-/// time 5, DC 1: 113; time 3, DC 1: 113; time 5, DC 0.5: 112 (time-to-peak 24 of 24 in each).
-const TIME_WEIGHT: f64 = 5.0;
-const DC_WEIGHT: f64 = 1.0;
+/// time 8, DC 2: 114; time 5 / 8 / 10 / 12, DC 1 / 1 / 2 / 2.5: 113; time 5, DC 1.5 or 2: 113;
+/// time 5, DC 3: 110 (time-to-peak 20 of 24).
+const TIME_WEIGHT: f64 = 8.0;
+const DC_WEIGHT: f64 = 2.0;
 /// Weights tried per link: 0, 1/STEPS, …, 1.
 const STEPS: usize = 40;
 
