@@ -44,8 +44,9 @@ fn capacitance_rule() -> CapacitanceRule {
 }
 
 /// The smallest p95 of an error any reduced tree could reach with this site → compartment map,
-/// whatever its dynamics: each compartment has one soma response, so one value (time to peak,
-/// or EPSP peak) for all its sites; `width(e)` is the span of log values one response can serve
+/// whatever its dynamics, if every site took its compartment's own response (no split inputs):
+/// each compartment has one soma response, so one value (time to peak, or EPSP peak) for all
+/// its sites (split inputs are not bound by it: a mix of two responses lies between them); `width(e)` is the span of log values one response can serve
 /// within error e (time to peak: a site's own t within [t/(1 + e), t/(1 − e)]; peak: ln p within
 /// ±e). Bisection on e, each compartment's best window by two pointers over its sites' sorted
 /// log values.
@@ -200,7 +201,7 @@ fn main() {
         Params::default()
     );
     println!(
-        "| cell | flags | budget | DC to soma (Np) median / p95 | DC from soma (Np) median / p95 | EPSP peak error median / p95 (floor of the map) | time-to-peak error p95 (floor of the map) | soma's own EPSP peak error | sites | fine nodes | run (ms) | not peaked | setup (s) |"
+        "| cell | flags | budget | DC to soma (Np) median / p95 | DC from soma (Np) median / p95 | EPSP peak error median / p95 (floor of one response per compartment) | time-to-peak error p95 (floor of one response per compartment) | soma's own EPSP peak error | sites | fine nodes | run (ms) | not peaked | setup (s) |"
     );
     println!("|---|---|---|---|---|---|---|---|---|---|---|---|---|");
     for f in files {

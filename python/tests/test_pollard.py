@@ -379,10 +379,23 @@ def test_synapse_matrix_adds_up_to_the_table_and_matches_the_cli(tmp_path):
         per_input[name] = per_input.get(name, 0) + 1
     assert sorted(m["inputs"]) == sorted(per_input)
     np.testing.assert_array_equal(dense_n.sum(axis=1), [per_input[i] for i in m["inputs"]])
-    # one entry per non-zero pair, sorted by row then column
-    assert np.all(count > 0)
+    # one entry per non-zero pair, sorted by row then column (a pair reached only by the smaller
+    # part of split synapses has count 0 and its weight)
+    assert np.all((count > 0) | (weight > 0))
     key = row * m["shape"][1] + col
     assert np.all(np.diff(key) > 0)
+    # each synapse's weight lands (1 - w) on its site's compartment and w on its split's, the
+    # split read from the tree's site arrays (numpy alone)
+    split_c, split_w = tree.site_split_compartment, tree.site_split_weight
+    assert np.any(split_c >= 0)
+    assert np.all((split_w > 0) == (split_c >= 0)) and np.all(split_w <= 0.5)
+    want = np.zeros(m["shape"])
+    index = {name: k for k, name in enumerate(m["inputs"])}
+    for i, (name, w) in enumerate(rows):
+        want[index[name], tree.site_compartment[i]] += w * (1.0 - split_w[i])
+        if split_c[i] >= 0:
+            want[index[name], split_c[i]] += w * split_w[i]
+    np.testing.assert_allclose(dense_w, want, rtol=1e-12, atol=1e-12)
     # the sites are the synapses: one site per row, on the compartments of the matrix
     assert len(tree.site_compartment) == len(rows)
     np.testing.assert_array_equal(np.bincount(tree.site_compartment, minlength=len(tree)),
@@ -396,10 +409,18 @@ def test_synapse_matrix_adds_up_to_the_table_and_matches_the_cli(tmp_path):
     mine = tmp_path / "py.json"
     tree.to_json(mine)
     assert json.loads(mine.read_text())["synapses"] == doc["synapses"]
-    back = pollard.ReducedTree.from_json(mine).synapse_matrix()
+    loaded = pollard.ReducedTree.from_json(mine)
+    back = loaded.synapse_matrix()
     for k in ("row", "column", "count", "weight"):
         np.testing.assert_array_equal(back[k], m[k])
     assert back["shape"] == m["shape"] and back["inputs"] == m["inputs"]
+    np.testing.assert_array_equal(loaded.site_split_compartment, split_c)
+    np.testing.assert_array_equal(loaded.site_split_weight, split_w)
+    # split_inputs=False: one compartment per synapse, every count positive, the same network
+    whole = pollard.reduce(str(DEMO_CELL), compartments=31, synapses=str(DEMO_TABLE),
+                           split_inputs=False)
+    assert np.all(whole.site_split_compartment == -1) and np.all(whole.synapse_matrix()["count"] > 0)
+    np.testing.assert_array_equal(whole.g_axial_ns, tree.g_axial_ns)
 
 
 def test_synapse_table_errors_and_scale(tmp_path):
