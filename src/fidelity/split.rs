@@ -31,12 +31,52 @@ const DC_WEIGHT: f64 = 2.0;
 /// Weights tried per link: 0, 1/STEPS, …, 1.
 const STEPS: usize = 40;
 
-/// One run of a reduced tree with every node recorded, for the soma's response to inputs at one
-/// compartment or split between two adjacent ones (by linearity, the mix of their responses).
-pub(super) struct Mixes {
+/// One run of a network with every node recorded: the soma's response to an input at one node
+/// or split between two (by linearity, the mix of their responses).
+pub(super) struct Responses {
     times: Vec<f64>,
     traces: Vec<Vec<f64>>,
     peak_index: Vec<usize>,
+}
+
+impl Responses {
+    pub(super) fn run(fid: &Fidelity, net: &RcNetwork) -> Result<Responses, FidelityError> {
+        let all: Vec<usize> = (0..net.len()).collect();
+        let run = simulate(net, &fid.opts.drive(), &all, &fid.opts.run_options())?;
+        let peak_index = run.traces.iter().map(|v| largest(v, 0, v.len())).collect();
+        Ok(Responses {
+            times: run.times_ms,
+            traces: run.traces,
+            peak_index,
+        })
+    }
+
+    /// EPSP peak (mV) and time to peak (ms) at the soma for an input at node `c`, split as
+    /// `split` says. The peak of a mix lies between its two nodes' peak times (both responses
+    /// rise before and fall after), so only that window is searched; refined by the parabola,
+    /// as the engine's peaks are.
+    pub(super) fn peak(&self, c: usize, split: Option<Split>) -> (f64, f64) {
+        let (k, w) = split.map_or((c, 0.0), |s| (s.compartment as usize, s.weight));
+        let (a, b) = (&self.traces[c], &self.traces[k]);
+        let mix = |j: usize| (1.0 - w) * a[j] + w * b[j];
+        let (i0, i1) = (self.peak_index[c], self.peak_index[k]);
+        let lo = i0.min(i1).saturating_sub(1);
+        let hi = (i0.max(i1) + 2).min(a.len());
+        let mut i = lo;
+        for j in lo..hi {
+            if mix(j) > mix(i) {
+                i = j;
+            }
+        }
+        let before = if i > 0 { mix(i - 1) } else { mix(i) };
+        let after = if i + 1 < a.len() { mix(i + 1) } else { mix(i) };
+        refine_peak(&self.times, i, [before, mix(i), after])
+    }
+}
+
+/// A reduced tree's [`Responses`] and DC maps: the whole answer to any input, split or not.
+pub(super) struct Mixes {
+    responses: Responses,
     dc: DcMaps,
 }
 
@@ -52,37 +92,15 @@ pub(super) struct Answer {
 
 impl Mixes {
     pub(super) fn new(fid: &Fidelity, tree: &ReducedTree) -> Result<Mixes, FidelityError> {
-        let net = RcNetwork::from_reduced(tree);
-        let all: Vec<usize> = (0..tree.len()).collect();
-        let run = simulate(&net, &fid.opts.drive(), &all, &fid.opts.run_options())?;
-        let peak_index = run.traces.iter().map(|v| largest(v, 0, v.len())).collect();
         Ok(Mixes {
-            times: run.times_ms,
-            traces: run.traces,
-            peak_index,
+            responses: Responses::run(fid, &RcNetwork::from_reduced(tree))?,
             dc: tree.dc_maps(),
         })
     }
 
-    /// The soma's answer to an input at compartment `c`, split as `split` says. The peak of a
-    /// mix lies between its two nodes' peak times (both responses rise before and fall after),
-    /// so only that window is searched; refined by the parabola, as the engine's peaks are.
+    /// The soma's answer to an input at compartment `c`, split as `split` says.
     pub(super) fn answer(&self, c: usize, split: Option<Split>) -> Answer {
-        let (k, w) = split.map_or((c, 0.0), |s| (s.compartment as usize, s.weight));
-        let (a, b) = (&self.traces[c], &self.traces[k]);
-        let mix = |j: usize| (1.0 - w) * a[j] + w * b[j];
-        let (i0, i1) = (self.peak_index[c], self.peak_index[k]);
-        let lo = i0.min(i1).saturating_sub(1);
-        let hi = (i0.max(i1) + 2).min(a.len());
-        let mut i = lo;
-        for j in lo..hi {
-            if mix(j) > mix(i) {
-                i = j;
-            }
-        }
-        let before = if i > 0 { mix(i - 1) } else { mix(i) };
-        let after = if i + 1 < a.len() { mix(i + 1) } else { mix(i) };
-        let (peak_mv, ttp_ms) = refine_peak(&self.times, i, [before, mix(i), after]);
+        let (peak_mv, ttp_ms) = self.responses.peak(c, split);
         let (ln_to, ln_from) = self.dc.ln_attenuations(c, split);
         Answer {
             peak_mv,
