@@ -522,8 +522,26 @@ fn the_csv_files_hold_the_same_map_as_the_json() {
     let lines: Vec<&str> = syn.lines().collect();
     assert_eq!(
         lines[0],
-        "line,row,compartment,snap_distance_um,swc_id,left_out"
+        "line,row,compartment,split_compartment,split_weight,snap_distance_um,swc_id,left_out"
     );
+    // the split columns are the JSON's (−1 / 0 there when a synapse is not split)
+    let js = &v["synapses"]["synapses"];
+    for (k, l) in lines[1..3].iter().enumerate() {
+        let f: Vec<&str> = l.split(',').collect();
+        let sc = js["split_compartment"][k].as_i64().unwrap();
+        assert_eq!(
+            f[3],
+            if sc < 0 {
+                String::new()
+            } else {
+                sc.to_string()
+            }
+        );
+        assert_eq!(
+            f[4].parse::<f64>().unwrap(),
+            js["split_weight"][k].as_f64().unwrap()
+        );
+    }
     assert_eq!(lines.len(), 4);
     assert!(
         lines[3].starts_with("4,1,,") && lines[3].ends_with(",,1"),

@@ -63,8 +63,12 @@ pub struct CurveEntry {
 /// A snapped synapse table mapped onto one reduced tree.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct SynapseMap {
-    /// Per synapse (in [`Snapped::synapses`] order): its compartment.
+    /// Per synapse (in [`Snapped::synapses`] order): its compartment (the larger part when
+    /// split).
     pub compartment: Vec<u32>,
+    /// Per synapse: the part of it given to a second compartment, if split (from the tree's
+    /// point map).
+    pub split: Vec<Option<crate::reduce::Split>>,
     /// Non-zero entries, sorted by input, then compartment.
     pub matrix: Vec<MatrixEntry>,
     /// Per input (index = row).
@@ -187,6 +191,11 @@ impl SynapseMap {
             inputs_sharing: per_input.iter().filter(|s| s.sharing > 0).count(),
         };
         Ok(SynapseMap {
+            split: snapped
+                .synapses
+                .iter()
+                .map(|s| tree.point_split(s.point as usize))
+                .collect(),
             compartment: comp,
             matrix,
             per_input,

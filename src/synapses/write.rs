@@ -20,6 +20,10 @@ struct SynapsesJson {
     line: Vec<usize>,
     input: Vec<u32>,
     compartment: Vec<u32>,
+    /// The compartment taking the smaller part of a split synapse, −1 when not split.
+    split_compartment: Vec<i64>,
+    /// That smaller part (0 < w ≤ 0.5), 0 when not split.
+    split_weight: Vec<f64>,
     snap_distance_um: Vec<f64>,
 }
 
@@ -76,6 +80,14 @@ impl<'a> SynapseJson<'a> {
                 line: s.iter().map(|x| x.line).collect(),
                 input: s.iter().map(|x| x.input).collect(),
                 compartment: map.compartment.clone(),
+                split_compartment: (map.split.iter())
+                    .map(|x| x.map_or(-1, |sp| sp.compartment as i64))
+                    .collect(),
+                split_weight: map
+                    .split
+                    .iter()
+                    .map(|x| x.map_or(0.0, |sp| sp.weight))
+                    .collect(),
                 snap_distance_um: s.iter().map(|x| x.distance_um).collect(),
             },
             left_out: LeftOutJson {
@@ -99,8 +111,9 @@ fn csv_text(header: &[&str], rows: impl Iterator<Item = Vec<String>>) -> String 
 }
 
 /// The three CSV files: inputs (`row` = matrix row, name, statistics), matrix (row, column,
-/// count, weight) and synapses (table line, row, compartment, snap distance, SWC id of the
-/// snapped point; left-out synapses have an empty compartment and `left_out` = 1).
+/// count, weight) and synapses (table line, row, compartment, split compartment and weight —
+/// empty and 0 when not split —, snap distance, SWC id of the snapped point; left-out synapses
+/// have an empty compartment and `left_out` = 1).
 /// `point_ids`: the SWC id of every morphology point.
 pub fn synapse_csvs(snapped: &Snapped, map: &SynapseMap, point_ids: &[i64]) -> [String; 3] {
     let inputs = csv_text(
@@ -137,8 +150,9 @@ pub fn synapse_csvs(snapped: &Snapped, map: &SynapseMap, point_ids: &[i64]) -> [
         }),
     );
     // kept and left-out synapses merged back into table order
-    let mut rows: Vec<(usize, Vec<String>)> = (snapped.synapses.iter().zip(&map.compartment))
-        .map(|(s, c)| {
+    let kept = snapped.synapses.iter().zip(&map.compartment);
+    let mut rows: Vec<(usize, Vec<String>)> = (kept.zip(&map.split))
+        .map(|((s, c), sp)| {
             let id = point_ids
                 .get(s.point as usize)
                 .map_or(String::new(), i64::to_string);
@@ -148,6 +162,8 @@ pub fn synapse_csvs(snapped: &Snapped, map: &SynapseMap, point_ids: &[i64]) -> [
                     s.line.to_string(),
                     s.input.to_string(),
                     c.to_string(),
+                    sp.map_or(String::new(), |x| x.compartment.to_string()),
+                    sp.map_or(0.0, |x| x.weight).to_string(),
                     s.distance_um.to_string(),
                     id,
                     "0".into(),
@@ -160,6 +176,8 @@ pub fn synapse_csvs(snapped: &Snapped, map: &SynapseMap, point_ids: &[i64]) -> [
             s.line.to_string(),
             s.input.to_string(),
             String::new(),
+            String::new(),
+            "0".into(),
             s.distance_um.to_string(),
             String::new(),
             "1".into(),
@@ -172,6 +190,8 @@ pub fn synapse_csvs(snapped: &Snapped, map: &SynapseMap, point_ids: &[i64]) -> [
             "line",
             "row",
             "compartment",
+            "split_compartment",
+            "split_weight",
             "snap_distance_um",
             "swc_id",
             "left_out",
