@@ -20,6 +20,8 @@ use std::sync::{Arc, OnceLock};
 pub struct DrawingExtras {
     /// Model node (see [`super::state::CellState::model`]) → compartment (`NONE`: none).
     pub node_comp: Vec<u32>,
+    /// Model node → the split of its point's input, if any (empty when the tree has none).
+    pub node_split: Vec<Option<crate::reduce::Split>>,
     /// Number of model nodes each compartment stands for.
     pub n_points: Vec<usize>,
     /// Mean path distance (µm) of the points each compartment stands for.
@@ -67,8 +69,18 @@ impl DrawingExtras {
                 }
             })
             .collect();
+        let node_split = match t.point_split.is_empty() {
+            true => Vec::new(),
+            false => (model.node_point.iter())
+                .map(|&p| {
+                    t.point_split(p as usize)
+                        .filter(|x| (x.compartment as usize) < n)
+                })
+                .collect(),
+        };
         Some(DrawingExtras {
             node_comp,
+            node_split,
             n_points,
             path_distance,
             strahler: crate::morphology::strahler(&t.parents(), |_| false),

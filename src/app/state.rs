@@ -321,6 +321,25 @@ impl Electrical {
         }
     }
 
+    /// ln|V_k / V_site| for a current split between node `c` (1 − w) and `split.compartment`
+    /// (w), the site's voltage read as the same mix (see `reduce::Split`):
+    /// V = (1 − w)·Z_cc·r_c + w·Z_kk·r_k with r_j = V/V_j for a current at j (Koch & Poggio
+    /// 1985). Near 0 at the two ends (one of them may lie a little above the site). NaN
+    /// everywhere if a node is missing.
+    pub fn ln_from_split(&self, c: usize, split: crate::reduce::Split) -> Vec<f64> {
+        let (k, w) = (split.compartment as usize, split.weight);
+        let n = self.maps.len();
+        let (Some(rc), Some(rk)) = (self.maps.site_ratio(c), self.maps.site_ratio(k)) else {
+            return vec![f64::NAN; n];
+        };
+        let z = self.maps.input_impedance();
+        let v: Vec<C64> = (0..n)
+            .map(|m| rc[m] * z[c] * (1.0 - w) + rk[m] * z[k] * w)
+            .collect();
+        let at_site = v[c] * (1.0 - w) + v[k] * w;
+        v.iter().map(|x| (x / at_site).norm().ln()).collect()
+    }
+
     /// ln|V_k / V_site| for a current at `site` (model node; ≤ 0): −ln A_{site→k}. NaN
     /// everywhere if `site` is not a node.
     pub fn ln_from_site(&self, site: usize) -> Vec<f64> {
@@ -339,7 +358,8 @@ pub struct Reduced {
     /// What drawing needs besides the tree.
     pub extras: DrawingExtras,
     pub elec: Electrical,
-    /// ln|V_c / V_site| for the current site (injected at the site's compartment; ≤ 0).
+    /// ln|V_c / V_site| for the current site (injected at the site's compartment, or split as
+    /// its point's input is; ≤ 0 but near the split's two ends).
     pub ln_from_site: Vec<f64>,
     /// The compartment the site maps to.
     pub site_comp: Option<usize>,
@@ -371,9 +391,11 @@ impl Reduced {
             .and_then(|k| self.extras.node_comp.get(k).copied())
             .filter(|&c| c != NONE)
             .map(|c| c as usize);
-        self.ln_from_site = match self.site_comp {
-            Some(c) => self.elec.ln_from_site(c),
-            None => vec![f64::NAN; self.tree.len()],
+        let split = site_model_node.and_then(|k| self.extras.node_split.get(k).copied().flatten());
+        self.ln_from_site = match (self.site_comp, split) {
+            (Some(c), Some(sp)) => self.elec.ln_from_split(c, sp),
+            (Some(c), None) => self.elec.ln_from_site(c),
+            (None, _) => vec![f64::NAN; self.tree.len()],
         };
     }
 }
@@ -844,6 +866,54 @@ mod tests {
         assert_eq!(t.n_points.iter().sum::<usize>(), s.model.flat.len());
         // a root with two leaves: orders 2, 1, 1 (Strahler 1957, counted by hand)
         assert_eq!(t.strahler, vec![2, 1, 1]);
+    }
+
+    #[test]
+    fn a_split_injection_point_maps_as_a_dense_solve_says() {
+        // reference: V = G⁻¹u with u = (1 − w)e_c + w·e_k (nalgebra dense inverse), read at the
+        // site as uᵀV
+        let flat = Cell::demo().flat;
+        let red =
+            crate::reduce::Reducer::new(&flat, &Params::default(), &Default::default()).unwrap();
+        let fid = crate::fidelity::Fidelity::new(&red, &Default::default()).unwrap();
+        let mut t = red.tree(15);
+        assert!(fid.split_sites(&mut t).unwrap() > 0);
+        let elec = Electrical::from_maps(t.network(0.0).maps());
+        let n = t.len();
+        let mut g = nalgebra::DMatrix::<f64>::zeros(n, n);
+        for (j, c) in t.compartments.iter().enumerate() {
+            g[(j, j)] += c.g_leak_ns;
+            if let Some(p) = c.parent {
+                let p = p as usize;
+                g[(j, j)] += c.g_axial_ns;
+                g[(p, p)] += c.g_axial_ns;
+                g[(j, p)] -= c.g_axial_ns;
+                g[(p, j)] -= c.g_axial_ns;
+            }
+        }
+        let z = g.try_inverse().unwrap();
+        let mut checked = 0;
+        for i in (0..t.site_compartment.len()).step_by(97) {
+            let (c, Some(sp)) = (t.site_compartment[i] as usize, t.site_split(i)) else {
+                continue;
+            };
+            let mut u = nalgebra::DVector::<f64>::zeros(n);
+            u[c] += 1.0 - sp.weight;
+            u[sp.compartment as usize] += sp.weight;
+            let v = &z * &u;
+            let at_site = u.dot(&v);
+            let mine = elec.ln_from_split(c, sp);
+            for m in 0..n {
+                let want = (v[m] / at_site).abs().ln();
+                assert!(
+                    (mine[m] - want).abs() < 1e-7,
+                    "site {i} node {m}: {} vs {want}",
+                    mine[m]
+                );
+            }
+            checked += 1;
+        }
+        assert!(checked > 3, "{checked}");
     }
 
     #[test]
