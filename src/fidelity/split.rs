@@ -30,6 +30,10 @@ const TIME_WEIGHT: f64 = 8.0;
 const DC_WEIGHT: f64 = 2.0;
 /// Weights tried per link: 0, 1/STEPS, …, 1.
 const STEPS: usize = 40;
+/// Passes over the tails after the first choice ([`improve_tails`]). Measured on the eight
+/// shared real cells (targets met of 120): 0: 114; 1: 115; 2: 115, with lower p95s (summed
+/// over the 24 rows: EPSP 7.96 → 7.78 Np, time to peak 374 → 367 %); 3: 115.
+const TAIL_ROUNDS: usize = 2;
 
 /// One run of a network with every node recorded: the soma's response to an input at one node
 /// or split between two (by linearity, the mix of their responses).
@@ -135,6 +139,10 @@ fn links_near(tree: &ReducedTree, c: usize) -> Vec<(usize, usize)> {
     out
 }
 
+/// A candidate input of a site: the link by its child end `q`, and the step s of the weight
+/// s/STEPS on that child end (0: the parent end alone, STEPS: the child end alone).
+type Mix = (usize, usize);
+
 impl Fidelity {
     /// Splits each site's input between the two ends of the link near it that answer most
     /// like the cell at the site (see the module documentation). Returns how many sites are split.
@@ -160,10 +168,9 @@ impl Fidelity {
                 None => Vec::new(),
                 Some(p) => (0..=STEPS)
                     .map(|s| {
-                        let weight = s as f64 / STEPS as f64;
                         let split = Some(Split {
                             compartment: q as u32,
-                            weight,
+                            weight: s as f64 / STEPS as f64,
                         });
                         let a = mixes.answer(p as usize, split);
                         [ln_floor(a.peak_mv), ln_floor(a.ttp_ms), a.ln_to]
@@ -171,16 +178,37 @@ impl Fidelity {
                     .collect(),
             })
             .collect();
-        let mut decided: Vec<Option<(u32, Option<Split>)>> = vec![None; points];
+        let targets: Vec<[f64; 3]> = (0..self.peak.len())
+            .map(|i| [ln_floor(self.peak[i]), ln_floor(self.ttp[i]), self.ln_to[i]])
+            .collect();
+        let near: Vec<Vec<Mix>> = (tree.site_compartment.iter())
+            .map(|&c| {
+                links_near(tree, c as usize)
+                    .into_iter()
+                    .map(|l| (l.1, 0))
+                    .collect()
+            })
+            .collect();
+        let mut pick: Vec<Option<Mix>> = (0..targets.len())
+            .map(|i| best_mix(&table, &near[i], targets[i]))
+            .collect();
+        for _ in 0..TAIL_ROUNDS {
+            improve_tails(&table, &near, &targets, &mut pick);
+        }
+        Ok(self.apply_mixes(tree, &pick))
+    }
+
+    /// Moves each site (and its point, with its membrane area, decided by the point's first
+    /// site) to the larger part of its mix, and records the split. Returns how many are split.
+    fn apply_mixes(&self, tree: &mut ReducedTree, pick: &[Option<Mix>]) -> usize {
+        let mut decided: Vec<Option<(u32, Option<Split>)>> = vec![None; tree.point_split.len()];
         let mut split = 0;
-        for i in 0..self.peak.len() {
+        for (i, mix) in pick.iter().enumerate() {
             let p = self.point[i] as usize;
             let c = tree.site_compartment[i] as usize;
             let first = decided[p].is_none();
-            let (to, part) = *decided[p].get_or_insert_with(|| {
-                let target = [ln_floor(self.peak[i]), ln_floor(self.ttp[i]), self.ln_to[i]];
-                best_mix(&table, &links_near(tree, c), target).unwrap_or((c as u32, None))
-            });
+            let (to, part) = *decided[p]
+                .get_or_insert_with(|| mix.map_or((c as u32, None), |m| as_split(tree, m)));
             if first {
                 tree.point_split[p] = part;
                 let was = tree.point_compartment[p];
@@ -198,40 +226,89 @@ impl Fidelity {
             tree.site_split[i] = part;
             split += part.is_some() as usize;
         }
-        Ok(split)
+        split
     }
 }
 
-/// The link and weight of least cost for a site with `target` (ln peak, ln ttp, ln A):
-/// (the compartment taking the larger part, the split to the other — none at weight 0).
-fn best_mix(
-    table: &[Vec<[f64; 3]>],
-    links: &[(usize, usize)],
-    target: [f64; 3],
-) -> Option<(u32, Option<Split>)> {
-    let mut best: Option<(f64, usize, usize, usize)> = None;
-    for &(p, q) in links {
+/// A mix as (the compartment taking the larger part, the split to the other — none when one
+/// end takes it all).
+fn as_split(tree: &ReducedTree, (q, s): Mix) -> (u32, Option<Split>) {
+    let p = tree.compartments[q].parent.map_or(q, |p| p as usize);
+    let (own, other, steps) = if s * 2 <= STEPS {
+        (p, q, s)
+    } else {
+        (q, p, STEPS - s)
+    };
+    let part = (steps != 0).then_some(Split {
+        compartment: other as u32,
+        weight: steps as f64 / STEPS as f64,
+    });
+    (own as u32, part)
+}
+
+/// The mix of least cost for a site with `target` (ln peak, ln ttp, ln A) among the links
+/// `near` (child ends), none if there is no link.
+fn best_mix(table: &[Vec<[f64; 3]>], near: &[Mix], target: [f64; 3]) -> Option<Mix> {
+    let mut best: Option<(f64, Mix)> = None;
+    for &(q, _) in near {
         for (s, m) in table[q].iter().enumerate() {
             let cost = (m[0] - target[0]).abs()
                 + TIME_WEIGHT * (m[1] - target[1]).abs()
                 + DC_WEIGHT * (m[2] - target[2]).abs();
             if best.is_none_or(|b| cost < b.0) {
-                best = Some((cost, p, q, s));
+                best = Some((cost, (q, s)));
             }
         }
     }
-    let (_, p, q, s) = best?;
-    let w = s as f64 / STEPS as f64;
-    let (own, other, weight) = if s * 2 <= STEPS {
-        (p, q, w)
-    } else {
-        (q, p, (STEPS - s) as f64 / STEPS as f64)
-    };
-    let part = (s != 0 && s != STEPS).then_some(Split {
-        compartment: other as u32,
-        weight,
+    best.map(|b| b.1)
+}
+
+/// A site's three errors as the report counts them: EPSP peak |Δ ln| (Np), time to peak
+/// |ratio − 1|, DC |Δ ln A| (Np).
+fn errors(m: &[f64; 3], t: &[f64; 3]) -> [f64; 3] {
+    [
+        (m[0] - t[0]).abs(),
+        ((m[1] - t[1]).exp() - 1.0).abs(),
+        (m[2] - t[2]).abs(),
+    ]
+}
+
+/// One pass over the tails: a site whose error of one kind lies beyond that kind's 95th
+/// percentile over the sites (nearest rank) takes the mix that lowers it most while keeping
+/// each of its other two errors within that kind's 95th percentile (or its own value, if
+/// larger).
+fn improve_tails(
+    table: &[Vec<[f64; 3]>],
+    near: &[Vec<Mix>],
+    targets: &[[f64; 3]],
+    pick: &mut [Option<Mix>],
+) {
+    let mut err: Vec<[f64; 3]> = (0..pick.len())
+        .map(|i| pick[i].map_or([0.0; 3], |(q, s)| errors(&table[q][s], &targets[i])))
+        .collect();
+    let lim: [f64; 3] = std::array::from_fn(|k| {
+        let mut v: Vec<f64> = err.iter().map(|e| e[k]).collect();
+        v.sort_by(f64::total_cmp);
+        v.get(((0.95 * v.len() as f64).ceil() as usize).max(1) - 1)
+            .copied()
+            .unwrap_or(0.0)
     });
-    Some((own as u32, part))
+    for i in 0..pick.len() {
+        for k in 0..3 {
+            if pick[i].is_none() || err[i][k] <= lim[k] {
+                continue;
+            }
+            for &(q, _) in &near[i] {
+                for (s, m) in table[q].iter().enumerate() {
+                    let e = errors(m, &targets[i]);
+                    let fits = (0..3).all(|j| j == k || e[j] <= lim[j].max(err[i][j]));
+                    if fits && e[k] < err[i][k] {
+                        (pick[i], err[i]) = (Some((q, s)), e);
+                    }
+                }
+            }
+        }
+    }
 }
 
 #[cfg(test)]
@@ -293,37 +370,54 @@ mod tests {
 
     #[test]
     fn weights_are_whole_fortieths_and_the_larger_part_names_the_compartment() {
-        // a table of two links whose second mix matches the target: weight 3/40 on the child
-        let mut table = vec![Vec::new(), vec![[0.0; 3]; STEPS + 1]];
+        let (red, _) = crate::fidelity::demo_reduction();
+        let tree = red.tree(3);
+        assert_eq!(tree.compartments[1].parent, Some(0));
+        let split = |c, w: f64| {
+            Some(Split {
+                compartment: c,
+                weight: w,
+            })
+        };
+        assert_eq!(as_split(&tree, (1, 3)), (0, split(1, 3.0 / 40.0)));
+        assert_eq!(as_split(&tree, (1, 37)), (1, split(0, 3.0 / 40.0)));
+        assert_eq!(as_split(&tree, (1, 20)), (0, split(1, 0.5)));
+        assert_eq!(as_split(&tree, (1, 40)), (1, None));
+        assert_eq!(as_split(&tree, (1, 0)), (0, None));
+        // the least cost: EPSP error + 8 × time error + 2 × DC error (all |Δ ln|)
+        let mut table = vec![Vec::new(), vec![[5.0; 3]; STEPS + 1]];
         table[1][3] = [1.0, 1.0, 1.0];
-        table[1][37] = [2.0, 2.0, 2.0];
-        let (own, part) = best_mix(&table, &[(0, 1)], [1.0, 1.0, 1.0]).unwrap();
-        assert_eq!(
-            (own, part),
-            (
-                0,
-                Some(Split {
-                    compartment: 1,
-                    weight: 3.0 / 40.0
-                })
-            )
-        );
-        let (own, part) = best_mix(&table, &[(0, 1)], [2.0, 2.0, 2.0]).unwrap();
-        assert_eq!(
-            (own, part),
-            (
-                1,
-                Some(Split {
-                    compartment: 0,
-                    weight: 3.0 / 40.0
-                })
-            )
-        );
-        table[1][40] = [5.0, 5.0, 5.0];
-        assert_eq!(
-            best_mix(&table, &[(0, 1)], [5.0, 5.0, 5.0]).unwrap(),
-            (1, None)
-        );
-        assert_eq!(best_mix(&table, &[], [5.0, 5.0, 5.0]), None);
+        table[1][9] = [1.0, 1.1, 1.0]; // costs 0.8 more
+        assert_eq!(best_mix(&table, &[(1, 0)], [1.0, 1.0, 1.0]), Some((1, 3)));
+        assert_eq!(best_mix(&table, &[], [1.0, 1.0, 1.0]), None);
+    }
+
+    #[test]
+    fn a_tail_site_takes_a_mix_that_keeps_its_other_errors_within_their_p95() {
+        // 19 sites on link 1 with a time error of 20 % and nothing else; one site on link 2
+        // whose least-cost mix (entry 5) has an EPSP error of 0.5 Np, beyond the EPSP p95 (0);
+        // entry 7 has 0.1 Np and a 10 % time error, within the time p95 (20 %): it is taken
+        let mut table = vec![Vec::new(), vec![[0.0, 1.2f64.ln(), 0.0]; STEPS + 1]];
+        table.push(vec![[9.0; 3]; STEPS + 1]);
+        table[2][5] = [0.5, 0.0, 0.0];
+        table[2][7] = [0.1, 1.1f64.ln(), 0.0];
+        let mut near = vec![vec![(1, 0)]; 19];
+        near.push(vec![(2, 0)]);
+        let targets = vec![[0.0; 3]; 20];
+        let mut pick: Vec<Option<Mix>> = (0..20)
+            .map(|i| best_mix(&table, &near[i], targets[i]))
+            .collect();
+        assert_eq!(pick[19], Some((2, 5)));
+        improve_tails(&table, &near, &targets, &mut pick);
+        assert_eq!(pick[19], Some((2, 7)));
+        assert!(pick[..19].iter().all(|&p| p == Some((1, 0))));
+        // were the time p95 below 10 %, entry 7 would not fit
+        let mut table2 = table.clone();
+        table2[1] = vec![[0.0, 1.05f64.ln(), 0.0]; STEPS + 1];
+        let mut pick2: Vec<Option<Mix>> = (0..20)
+            .map(|i| best_mix(&table2, &near[i], targets[i]))
+            .collect();
+        improve_tails(&table2, &near, &targets, &mut pick2);
+        assert_eq!(pick2[19], Some((2, 5)));
     }
 }
