@@ -9,9 +9,12 @@
 //! answer between them. Each site takes the link and weight of least cost among the links of
 //! its compartment and of that compartment's parent, weights in steps of 1/40:
 //! cost = 2·|ln A_site − ln A_mix| (DC, Np) + 8·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
-//! The larger part names the site's compartment (its point, membrane area and site count move
-//! with it), the smaller is its split. Per link the 41 mixes are measured once on one run of the
-//! tree (every node recorded), so the step is O(links × 41 × window + sites × links near).
+//! Then two passes over the tails ([`improve_tails`]): a site whose error of one kind (EPSP
+//! peak, time to peak, DC — as the report counts them) lies beyond that kind's 95th percentile
+//! takes the mix that lowers it most while its other two stay within theirs. The larger part
+//! names the site's compartment (its point, membrane area and site count move with it), the
+//! smaller is its split. Per link the 41 mixes are measured once on one run of the tree (every
+//! node recorded), so the step is O(links × 41 × window + sites × links near).
 //!
 //! What this step does not do: change any conductance or capacitance (the network stays exactly
 //! as built, DC exact), or split a site's input with a compartment more than two links from its own.
