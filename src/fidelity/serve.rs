@@ -28,7 +28,8 @@ const DC_WEIGHT: f64 = 0.5;
 impl Fidelity {
     /// Serves each site by the compartment among its own, its parent and its children whose
     /// response is most like the cell's at the site (see the module documentation). Returns how
-    /// many sites moved. A tree from another reducer (its site count differs) is refused.
+    /// many sites moved. A tree from another reducer (its site count differs) is refused. Split
+    /// inputs ([`Fidelity::split_sites`]) are dropped first: serving decides whole compartments.
     pub fn serve_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
         let points = tree.point_compartment.len();
         if tree.site_compartment.len() != self.peak.len()
@@ -38,6 +39,8 @@ impl Fidelity {
                 what: "number of sites",
             });
         }
+        tree.site_split.clear();
+        tree.point_split.clear();
         let net = RcNetwork::from_reduced(tree);
         let run = simulate(&net, &self.opts.drive(), &[], &self.opts.run_options())?;
         let peaks = run.peaks.expect("peaks tracked");
