@@ -151,4 +151,19 @@ mod tests {
         }
         assert!(total_moved > 0, "no site moved at any budget");
     }
+
+    #[test]
+    fn serving_a_split_tree_drops_its_splits() {
+        let (red, fid) = crate::fidelity::demo_reduction();
+        let mut t = red.tree(15);
+        assert!(fid.split_sites(&mut t).unwrap() > 0);
+        fid.serve_sites(&mut t).unwrap();
+        assert!(
+            t.site_split
+                .iter()
+                .chain(&t.point_split)
+                .all(Option::is_none)
+        );
+        assert!(t.bad_split().is_none());
+    }
 }
