@@ -9,6 +9,7 @@
 pub mod axis;
 pub mod canvas;
 pub mod colour;
+pub mod electrical;
 pub mod files;
 pub mod jobs;
 pub mod lab;

@@ -2,8 +2,9 @@
 //! parameters and frequency, the synapse site, the reduced tree at the current budget, and the
 //! values that colour both drawings. Tests and benchmarks drive this directly.
 
+pub use super::electrical::Electrical;
 pub use super::reduction::{DrawingExtras, Reduction, build_reduction, build_reduction_for};
-use crate::cable::{C64, Network, Params, TreeMaps};
+use crate::cable::Params;
 use crate::morphology::{Flat, Morphology, NONE, kind};
 use crate::reduce::ReducedTree;
 use std::collections::BTreeMap;
@@ -281,71 +282,6 @@ impl Model {
             of_full,
             full,
             path_distance,
-        }
-    }
-}
-
-/// A voltage level from a log attenuation: ln|V_far/V_near| = −ln A (≤ 0 at DC). The app shows
-/// levels (0 at the source, falling away from it); the library's convention is ln A ≥ 0.
-fn levels(ln_attenuation: Vec<f64>) -> Vec<f64> {
-    ln_attenuation.into_iter().map(|a| -a).collect()
-}
-
-/// Per-node electrical maps of the model at one parameter set and frequency.
-#[derive(Debug, Clone)]
-pub struct Electrical {
-    pub maps: TreeMaps<C64>,
-    /// |Z_kk| (MΩ) per model node.
-    pub input_mohm: Vec<f64>,
-    /// ln|V_soma / V_k| for a current at k, per model node (≤ 0): −ln A_{k→s}.
-    pub ln_to_soma: Vec<f64>,
-}
-
-impl Electrical {
-    pub fn new(flat: &Flat, params: &Params, freq_hz: f64) -> anyhow::Result<Electrical> {
-        let maps = Network::build(flat, params, freq_hz)?.maps();
-        Ok(Electrical::from_maps(maps))
-    }
-
-    fn from_maps(maps: TreeMaps<C64>) -> Electrical {
-        let input_mohm = maps
-            .input_impedance()
-            .iter()
-            .map(|z| z.norm() * 1e-6)
-            .collect();
-        let ln_to_soma = levels(maps.ln_attenuations_to_soma());
-        Electrical {
-            maps,
-            input_mohm,
-            ln_to_soma,
-        }
-    }
-
-    /// ln|V_k / V_site| for a current split between node `c` (1 − w) and `split.compartment`
-    /// (w), the site's voltage read as the same mix (see `reduce::Split`):
-    /// V = (1 − w)·Z_cc·r_c + w·Z_kk·r_k with r_j = V/V_j for a current at j (Koch & Poggio
-    /// 1985). Near 0 at the two ends (one of them may lie a little above the site). NaN
-    /// everywhere if a node is missing.
-    pub fn ln_from_split(&self, c: usize, split: crate::reduce::Split) -> Vec<f64> {
-        let (k, w) = (split.compartment as usize, split.weight);
-        let n = self.maps.len();
-        let (Some(rc), Some(rk)) = (self.maps.site_ratio(c), self.maps.site_ratio(k)) else {
-            return vec![f64::NAN; n];
-        };
-        let z = self.maps.input_impedance();
-        let v: Vec<C64> = (0..n)
-            .map(|m| rc[m] * z[c] * (1.0 - w) + rk[m] * z[k] * w)
-            .collect();
-        let at_site = v[c] * (1.0 - w) + v[k] * w;
-        v.iter().map(|x| (x / at_site).norm().ln()).collect()
-    }
-
-    /// ln|V_k / V_site| for a current at `site` (model node; ≤ 0): −ln A_{site→k}. NaN
-    /// everywhere if `site` is not a node.
-    pub fn ln_from_site(&self, site: usize) -> Vec<f64> {
-        match self.maps.ln_attenuations_from_site(site) {
-            Some(a) => levels(a),
-            None => vec![f64::NAN; self.maps.len()],
         }
     }
 }

@@ -66,7 +66,7 @@ mod fine;
 mod order;
 mod sites;
 mod tree;
-pub use tree::{DcMaps, slowest_time_constant_ms};
+pub use tree::{DcMaps, Split, slowest_time_constant_ms};
 
 pub use sites::{SiteSpec, parse_sites_csv};
 
@@ -242,17 +242,6 @@ pub struct SiteInfo {
     pub weight: f64,
     /// DC log attenuation to the soma in the full (kept) cell, ln(Z_kk/Z_ks) (nepers).
     pub ln_attenuation_full: f64,
-}
-
-/// An input split with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
-/// site's current goes to `compartment`, the rest to the site's own compartment, and the site's
-/// voltage is read as the same mix — a point between two nodes of a finite-element cable with
-/// linear elements (Galerkin; e.g. Hughes 1987, ch. 1), the weight fitted to the cell's response
-/// at the site instead of taken from the point's position (see `fidelity::split`).
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
-pub struct Split {
-    pub compartment: u32,
-    pub weight: f64,
 }
 
 /// A reduced tree at one budget.

@@ -1,14 +1,26 @@
 //! The reduced tree's own analyses: its DC and frequency networks, input resistance and
-//! impedance, log attenuations, the voltage map from a compartment and the feed-forward form, all
-//! on the shared tree kernel (`cable::solve`).
+//! impedance, log attenuations (of inputs at a compartment or split between two: [`Split`],
+//! [`DcMaps`]), the voltage map from a compartment and the feed-forward form, all on the shared
+//! tree kernel (`cable::solve`).
 //!
 //! What this file does not do: build trees (that is `build`) or compare them with the cell (that
 //! is `Reducer::report` and `crate::fidelity`).
 
-use super::{Compartment, FeedForward, ReducedTree, Split};
+use super::{Compartment, FeedForward, ReducedTree};
 use crate::cable::solve::{TreeFactor, TreeMaps};
 use crate::cable::{C64, Network};
 use crate::morphology::NONE;
+
+/// An input split with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
+/// site's current goes to `compartment`, the rest to the site's own compartment, and the site's
+/// voltage is read as the same mix — a point between two nodes of a finite-element cable with
+/// linear elements (Galerkin; e.g. Hughes 1987, ch. 1), the weight fitted to the cell's response
+/// at the site instead of taken from the point's position (see `fidelity::split`).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Split {
+    pub compartment: u32,
+    pub weight: f64,
+}
 
 impl ReducedTree {
     pub fn len(&self) -> usize {
