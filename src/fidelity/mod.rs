@@ -383,16 +383,22 @@ impl Fidelity {
             });
         }
         let net = RcNetwork::from_reduced(tree);
-        let run = simulate(&net, &self.opts.drive(), &[], &self.opts.run_options())?;
-        let peaks = run.peaks.expect("peaks tracked");
+        // split inputs answer with the mix of their two compartments' responses: one run with
+        // every node recorded gives those and the engine's per-node peaks alike
+        let (mixes, run_peaks) = match tree.site_split.iter().any(Option::is_some) {
+            true => (Some(split::Mixes::new(self, tree)?), None),
+            false => {
+                let run = simulate(&net, &self.opts.drive(), &[], &self.opts.run_options())?;
+                (None, run.peaks)
+            }
+        };
+        let peaks = match (&mixes, &run_peaks) {
+            (Some(m), _) => &m.responses.peaks,
+            (None, p) => p.as_ref().expect("peaks tracked"),
+        };
         // a ratio of impedances: the network's own units (nS) will do
         let from = ln_from_soma(&net.parent, &net.g_axial_ns, &net.g_leak_ns);
         let to = tree.ln_attenuation_dc();
-        // split inputs answer with the mix of their two compartments' responses
-        let mixes = match tree.site_split.iter().any(Option::is_some) {
-            true => Some(split::Mixes::new(self, tree)?),
-            false => None,
-        };
         let rows = (0..self.peak.len())
             .map(|i| {
                 let c = tree.site_compartment[i] as usize;

@@ -177,12 +177,18 @@ impl Fidelity {
         net: &RcNetwork,
         tau_ms: f64,
     ) -> Result<f64, FidelityError> {
-        let run = simulate(net, &self.opts.drive(), &[], &self.opts.run_options())?;
-        let peaks = run.peaks.expect("peaks tracked");
-        // split inputs answer with mixes of two nodes' responses: every node recorded
-        let mixes = match targets.groups.iter().any(|g| g.split.is_some()) {
-            true => Some(super::split::Responses::run(self, net)?),
-            false => None,
+        // split inputs answer with mixes of two nodes' responses: then one run records every
+        // node (and tracks the peaks too)
+        let (mixes, run_peaks) = match targets.groups.iter().any(|g| g.split.is_some()) {
+            true => (Some(super::split::Responses::run(self, net)?), None),
+            false => {
+                let run = simulate(net, &self.opts.drive(), &[], &self.opts.run_options())?;
+                (None, run.peaks)
+            }
+        };
+        let peaks = match (&mixes, &run_peaks) {
+            (Some(m), _) => &m.peaks,
+            (None, p) => p.as_ref().expect("peaks tracked"),
         };
         let mut sum = targets.spread;
         for g in &targets.groups {

@@ -31,14 +31,8 @@ impl Fidelity {
     /// many sites moved. A tree from another reducer (its site count differs) is refused. Split
     /// inputs ([`Fidelity::split_sites`]) are dropped first: serving decides whole compartments.
     pub fn serve_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
+        self.check_site_maps(tree)?;
         let points = tree.point_compartment.len();
-        if tree.site_compartment.len() != self.peak.len()
-            || self.point.iter().any(|&p| p as usize >= points)
-        {
-            return Err(FidelityError::Mismatch {
-                what: "number of sites",
-            });
-        }
         tree.site_split.clear();
         tree.point_split.clear();
         let net = RcNetwork::from_reduced(tree);
@@ -74,6 +68,22 @@ impl Fidelity {
             }
         }
         Ok(moved)
+    }
+}
+
+impl Fidelity {
+    /// Refuses a tree from another reducer: its site count differs, or a site's point is not
+    /// in its point map (the steps that move sites and points need both maps to be this cell's).
+    pub(super) fn check_site_maps(&self, tree: &ReducedTree) -> Result<(), FidelityError> {
+        let points = tree.point_compartment.len();
+        if tree.site_compartment.len() != self.peak.len()
+            || self.point.iter().any(|&p| p as usize >= points)
+        {
+            return Err(FidelityError::Mismatch {
+                what: "number of sites",
+            });
+        }
+        Ok(())
     }
 }
 

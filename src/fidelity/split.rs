@@ -25,7 +25,7 @@ use super::polish::ln_floor;
 use super::{Fidelity, FidelityError};
 use crate::morphology::NONE;
 use crate::reduce::{DcMaps, ReducedTree, Split};
-use crate::transient::{RcNetwork, refine_peak, simulate};
+use crate::transient::{Peaks, RcNetwork, refine_peak, simulate};
 
 /// Weights of the DC and time-to-peak terms against the peak's (all three |log ratios|).
 /// Measured on the eight shared real cells at 15/31/63 compartments (targets met of 120):
@@ -50,6 +50,8 @@ pub(super) struct Responses {
     times: Vec<f64>,
     traces: Vec<Vec<f64>>,
     peak_index: Vec<usize>,
+    /// The engine's own per-node peaks of the same run (inputs at one node).
+    pub(super) peaks: Peaks,
 }
 
 impl Responses {
@@ -61,6 +63,7 @@ impl Responses {
             times: run.times_ms,
             traces: run.traces,
             peak_index,
+            peaks: run.peaks.expect("peaks tracked"),
         })
     }
 
@@ -89,7 +92,7 @@ impl Responses {
 
 /// A reduced tree's [`Responses`] and DC maps: the whole answer to any input, split or not.
 pub(super) struct Mixes {
-    responses: Responses,
+    pub(super) responses: Responses,
     dc: DcMaps,
 }
 
@@ -156,14 +159,8 @@ impl Fidelity {
     /// like the cell at the site (see the module documentation). Returns how many sites are split.
     /// A tree from another reducer (its site count differs) is refused.
     pub fn split_sites(&self, tree: &mut ReducedTree) -> Result<usize, FidelityError> {
+        self.check_site_maps(tree)?;
         let points = tree.point_compartment.len();
-        if tree.site_compartment.len() != self.peak.len()
-            || self.point.iter().any(|&p| p as usize >= points)
-        {
-            return Err(FidelityError::Mismatch {
-                what: "number of sites",
-            });
-        }
         tree.site_split = vec![None; self.peak.len()];
         tree.point_split = vec![None; points];
         if tree.len() < 2 {
