@@ -15,9 +15,11 @@ Checks (exit status 1 if any fails):
      capacitances), lies within 5 % of it (fitted: held within 2 % by the fit, up to 4.5 %
      measured) or within 12 % (timed, the default: held within ~10 %, 18.2-22.2 ms measured
      for 20 ms on the real cells);
-  5. every site's reduced DC log attenuation to the soma, its input at one compartment or split
-     between two adjacent ones (u = (1 - w) e_c + w e_k, read as a linear finite element):
-     ln(u^T G^-1 u / u^T G^-1 e_soma) from the dense solve equals the file's.
+  5. every site's reduced DC log attenuation to the soma, its input at one compartment or at a
+     point on the link between two adjacent ones (fraction w of the link's resistance from its
+     compartment): the point added to G as a node of its own (the link's g cut into g/w and
+     g/(1 - w)), ln(V_point / V_soma) for a current at the point, from a dense solve, equals
+     the file's.
 
 Needs numpy only. Units in the file: nS, pF, um; 1/nS = 1 GOhm = 1000 MOhm; nS/pF = 1/ms.
 """
@@ -36,8 +38,8 @@ def fail(msg):
 def main(path):
     with open(path) as f:
         doc = json.load(f)
-    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 4:
-        print("not a version-4 pollard reduced tree:", path)
+    if doc.get("format") != "pollard.reduced-tree" or doc.get("schema_version") != 5:
+        print("not a version-5 pollard reduced tree:", path)
         return 1
     comps = doc["compartments"]
     n = len(comps)
@@ -165,20 +167,44 @@ def main(path):
     if counted != len(doc["site_map"]):
         errors += fail("site counts do not add up to the number of sites")
 
-    # 5. sites' DC attenuation to the soma, split inputs included
-    z_soma = solve(np.eye(n)[:, 0])
+    # 5. sites' DC attenuation to the soma, inputs on links included
+    def on_link(c, k, w):
+        """Voltages for a unit current at a point x on the link c-k (fraction w of its
+        resistance from c): x is node n of a network whose link c-k is cut into c-x (g/w) and
+        x-k (g/(1 - w)), solved through the QR factor of its incidence form, as above."""
+        child = k if comps[k]["parent"] == c else c
+        mx = np.zeros((2 * n + 1, n + 1))
+        r = 0
+        for cc in comps:
+            j = cc["id"]
+            if cc["parent"] is not None and j != child:
+                g = cc["g_axial_ns"]
+                mx[r, j], mx[r, cc["parent"]] = np.sqrt(g), -np.sqrt(g)
+                r += 1
+            mx[r, j] = np.sqrt(cc["g_leak_ns"])
+            r += 1
+        g = comps[child]["g_axial_ns"]
+        mx[r, c], mx[r, n] = np.sqrt(g / w), -np.sqrt(g / w)
+        mx[r + 1, k], mx[r + 1, n] = np.sqrt(g / (1.0 - w)), -np.sqrt(g / (1.0 - w))
+        rx = np.linalg.qr(mx, mode="r")
+        return np.linalg.solve(rx, np.linalg.solve(rx.T, np.eye(n + 1)[:, n]))
+
     worst = 0.0
+    seen = {}
     for site in doc["site_map"]:
-        u = np.zeros(n)
         c, split = site["compartment"], site.get("split")
-        w = split["weight"] if split else 0.0
-        if split:
-            k = split["compartment"]
+        if not split:
+            v = solve(np.eye(n)[:, c])
+            ln_a = np.log(v[c] / v[0])
+        else:
+            k, w = split["compartment"], split["weight"]
             if comps[k]["parent"] != c and comps[c]["parent"] != k:
                 errors += fail(f"site {site['swc_id']}: split between compartments not adjacent")
-            u[k] += w
-        u[c] += 1.0 - w
-        ln_a = np.log((u @ solve(u)) / (u @ z_soma))
+                continue
+            if (c, k, w) not in seen:
+                v = on_link(c, k, w)
+                seen[(c, k, w)] = np.log(v[n] / v[0])
+            ln_a = seen[(c, k, w)]
         worst = max(worst, abs(ln_a - site["attenuation_to_soma_reduced_np"]))
     if worst > 1e-6:
         errors += fail(f"site attenuations to the soma differ from the file's by up to {worst:.2e} Np")

@@ -108,7 +108,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[&Path]) -> Result<(), W
 
 /// Version of the reduced-tree JSON layout (`assets/reduced-tree.schema.json`). Raised when a
 /// field changes meaning or is removed; adding fields keeps it.
-pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 4;
+pub const REDUCED_TREE_SCHEMA_VERSION: u32 = 5;
 
 /// The `format` value of a reduced-tree JSON file.
 pub const REDUCED_TREE_FORMAT: &str = "pollard.reduced-tree";

@@ -301,33 +301,41 @@ fn dense_split_attenuations(
     k: usize,
     w: f64,
 ) -> (f64, f64) {
+    // the injection point as an extra node x on the link c–k: the link's g cut into g/w towards
+    // c and g/(1 − w) towards k (a resistor divided at fraction w), nalgebra's dense inverse
     let n = t.len();
-    let mut g = nalgebra::DMatrix::<f64>::zeros(n, n);
+    let mut g = nalgebra::DMatrix::<f64>::zeros(n + 1, n + 1);
+    let mut link = |a: usize, b: usize, y: f64| {
+        g[(a, a)] += y;
+        g[(b, b)] += y;
+        g[(a, b)] -= y;
+        g[(b, a)] -= y;
+    };
     for (j, comp) in t.compartments.iter().enumerate() {
-        g[(j, j)] += comp.g_leak_ns;
-        if let Some(p) = comp.parent {
-            let p = p as usize;
-            g[(j, j)] += comp.g_axial_ns;
-            g[(p, p)] += comp.g_axial_ns;
-            g[(j, p)] -= comp.g_axial_ns;
-            g[(p, j)] -= comp.g_axial_ns;
+        let Some(p) = comp.parent.map(|p| p as usize) else {
+            continue;
+        };
+        if (j, p) == (c, k) || (j, p) == (k, c) {
+            link(n, c, comp.g_axial_ns / w);
+            link(n, k, comp.g_axial_ns / (1.0 - w));
+        } else {
+            link(j, p, comp.g_axial_ns);
         }
     }
+    for (j, comp) in t.compartments.iter().enumerate() {
+        g[(j, j)] += comp.g_leak_ns;
+    }
     let z = g.try_inverse().unwrap();
-    let mut u = nalgebra::DVector::<f64>::zeros(n);
-    u[c] += 1.0 - w;
-    u[k] += w;
-    let zs = (u.transpose() * &z * &u)[(0, 0)];
-    let zs0 = (u.transpose() * z.column(0))[(0, 0)];
-    ((zs / zs0).ln(), (z[(0, 0)] / zs0).ln())
+    // to the soma: current at x, V_x/V_0; from the soma: current at 0, V_0/V_x
+    ((z[(n, n)] / z[(0, n)]).ln(), (z[(0, 0)] / z[(n, 0)]).ln())
 }
 
 #[test]
 fn split_sites_answer_as_a_split_injection_and_bring_the_sites_closer() {
     // The timed rule's last step splits a site's input between two adjacent compartments. The
     // report's numbers for a split site must be those of a direct simulation with the current
-    // split the same way (EPSP, by reciprocity from one run) and of a dense inverse (DC, read
-    // as in a linear finite element); and the step must bring the sites' EPSP peaks and times
+    // split the same way (EPSP, by reciprocity from one run) and of a dense inverse with the
+    // site as a point on its link (DC); and the step must bring the sites' EPSP peaks and times
     // closer to the cell's than the tree it started from (95th percentiles of both).
     let o = FidelityOptions::default();
     let mut split_seen = 0;

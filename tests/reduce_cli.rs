@@ -44,7 +44,7 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
     assert_eq!(v["format"], "pollard.reduced-tree");
-    assert_eq!(v["schema_version"], 4);
+    assert_eq!(v["schema_version"], 5);
     let comps = v["compartments"].as_array().unwrap();
     assert_eq!(comps.len(), 15);
     // the schema's required fields are present in every compartment

@@ -355,31 +355,56 @@ fn reciprocity_on_a_random_tree() {
 /// network with a synapse whose input vector is `u` ((node, weight) pairs: the synapse sees
 /// V_u = Σ w·V and injects g·(E − V_u)·w at each node; one node with weight 1 is a plain
 /// synapse), written out independently of the engine.
+/// Dense classical RK4 of a synapse at node `s`, or at a point x on the link between `s` and
+/// `on_link.0` at fraction `on_link.1` of its resistance from s: the link's g cut into g/w
+/// towards s and g/(1 − w) towards the other end, x without membrane, so its voltage is the
+/// conductance-weighted mean of its neighbours and the synapse. Returns the soma's and the
+/// input point's voltages at every step.
 fn rk4_synapse(
     net: &RcNetwork,
-    u: &[(usize, f64)],
+    s: usize,
+    on_link: Option<(usize, f64)>,
     syn: &Synapse,
     dt: f64,
     t_end: f64,
-) -> Vec<f64> {
+) -> (Vec<f64>, Vec<f64>) {
     let n = net.len();
+    let point = |t: f64, v: &[f64]| -> (f64, [(usize, f64); 2]) {
+        let g = syn.conductance(t);
+        let Some((k, w)) = on_link else {
+            return (v[s], [(s, 0.0), (s, 0.0)]);
+        };
+        let child = if net.parent[s] as usize == k { s } else { k };
+        let (g1, g2) = (net.g_axial_ns[child] / w, net.g_axial_ns[child] / (1.0 - w));
+        let vx = (g1 * v[s] + g2 * v[k] + g * syn.e_rev_mv) / (g1 + g2 + g);
+        (vx, [(s, g1), (k, g2)])
+    };
     let deriv = |t: f64, v: &[f64]| -> Vec<f64> {
         let mut i: Vec<f64> = (0..n).map(|k| -net.g_leak_ns[k] * v[k]).collect();
+        let (vx, ends) = point(t, v);
         for k in 1..n {
             let p = net.parent[k] as usize;
+            let through_x = (k, p) == (ends[0].0, ends[1].0) || (k, p) == (ends[1].0, ends[0].0);
+            if on_link.is_some() && through_x {
+                continue; // the link through x
+            }
             let cur = net.g_axial_ns[k] * (v[p] - v[k]);
             i[k] += cur;
             i[p] -= cur;
         }
-        let vu: f64 = u.iter().map(|&(k, w)| w * v[k]).sum();
-        for &(k, w) in u {
-            i[k] += w * syn.conductance(t) * (syn.e_rev_mv - vu);
+        match on_link {
+            None => i[s] += syn.conductance(t) * (syn.e_rev_mv - v[s]),
+            Some(_) => {
+                for (k, gk) in ends {
+                    i[k] += gk * (vx - v[k]);
+                }
+            }
         }
         (0..n).map(|k| i[k] / net.cap_pf[k]).collect()
     };
     let mut v = vec![0.0; n];
     let steps = (t_end / dt).round() as usize;
-    let mut out = vec![v[0]];
+    let mut out = (vec![v[0]], vec![point(0.0, &v).0]);
     for st in 0..steps {
         let t = st as f64 * dt;
         let k1 = deriv(t, &v);
@@ -392,7 +417,8 @@ fn rk4_synapse(
         for k in 0..n {
             v[k] += dt / 6.0 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]);
         }
-        out.push(v[0]);
+        out.0.push(v[0]);
+        out.1.push(point(t + dt, &v).0);
     }
     out
 }
@@ -407,7 +433,7 @@ fn conductance_synapse_matches_an_independent_rk4() {
         tau_decay_ms: 2.0,
     };
     let s = 6;
-    let reference = rk4_synapse(&net, &[(s, 1.0)], &syn, 1e-4, 20.0);
+    let (reference, _) = rk4_synapse(&net, s, None, &syn, 1e-4, 20.0);
     let dt = 0.01;
     let r = simulate(
         &net,
@@ -430,8 +456,9 @@ fn conductance_synapse_matches_an_independent_rk4() {
 
 #[test]
 fn split_synapse_matches_an_independent_rk4() {
-    // a synapse split 0.7 / 0.3 between node 6 and its parent: the engine's rank-one update
-    // against the dense RK4 of the same equations
+    // a synapse at a point on the link between node 6 and its parent, 0.3 of the link's
+    // resistance from node 6: the engine's rank-one update with the point Kron-eliminated
+    // against the dense RK4 with the point as a node of its own (soma and point voltages)
     let net = random_tree(8, 3);
     let syn = Synapse {
         e_rev_mv: 70.0,
@@ -440,8 +467,8 @@ fn split_synapse_matches_an_independent_rk4() {
         tau_decay_ms: 2.0,
     };
     let (s, k) = (6, net.parent[6] as usize);
-    let reference = rk4_synapse(&net, &[(s, 0.7), (k, 0.3)], &syn, 1e-4, 20.0);
-    let alone = rk4_synapse(&net, &[(s, 1.0)], &syn, 1e-4, 20.0);
+    let (reference, at_point) = rk4_synapse(&net, s, Some((k, 0.3)), &syn, 1e-4, 20.0);
+    let (alone, _) = rk4_synapse(&net, s, None, &syn, 1e-4, 20.0);
     let r = simulate(
         &net,
         &Drive::Synapse {
@@ -460,10 +487,29 @@ fn split_synapse_matches_an_independent_rk4() {
     // the split changes the answer (else the check below could not fail)
     let moved = (0..reference.len()).fold(0.0f64, |m, i| m.max((reference[i] - alone[i]).abs()));
     assert!(moved > 0.01 * scale, "{moved} vs {scale}");
+    let point_scale = at_point.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     for (st, v) in r.traces[0].iter().enumerate() {
         let want = reference[st * 100];
         assert!((v - want).abs() < 1e-4 * scale, "step {st}: {v} vs {want}");
+        let (x, want) = (r.input_point_mv[st], at_point[st * 100]);
+        assert!(
+            (x - want).abs() < 1e-3 * point_scale,
+            "step {st}: point {x} vs {want}"
+        );
     }
+    // a split between two nodes not joined by a link is refused
+    let far = (1..8)
+        .find(|&j| j != s && j != k && net.parent[s] as usize != j && net.parent[j] as usize != s)
+        .unwrap();
+    let bad = Drive::Synapse {
+        node: s,
+        synapse: syn,
+        split: Some(NodeSplit {
+            node: far,
+            weight: 0.3,
+        }),
+    };
+    assert!(simulate(&net, &bad, &[0], &run(0.01, Method::CrankNicolson, 1.0)).is_err());
 }
 
 #[test]

@@ -156,8 +156,10 @@ impl ReducedTree {
         let v = (0..n).map(|i| self.tree.site_split(i).map_or(-1, |s| s.compartment as i64));
         arr(py, v.collect())
     }
-    /// Per site: that smaller part (0 < w <= 0.5; 0 when not split). The site's compartment
-    /// takes 1 - w of its input, and the site's voltage reads as the same mix.
+    /// Per site: that smaller part (0 < w <= 0.5; 0 when not split). The site sits on the link
+    /// between the two, at fraction w of its resistance R from its own compartment, which takes
+    /// 1 - w of its current; its voltage is the two compartments' mix plus w(1 - w)R times its
+    /// current.
     #[getter]
     fn site_split_weight<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
         let n = self.tree.site_compartment.len();

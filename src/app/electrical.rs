@@ -42,11 +42,11 @@ impl Electrical {
         }
     }
 
-    /// ln|V_k / V_site| for a current split between node `c` (1 − w) and `split.compartment`
-    /// (w), the site's voltage read as the same mix (see `reduce::Split`):
-    /// V = (1 − w)·Z_cc·r_c + w·Z_kk·r_k with r_j = V/V_j for a current at j (Koch & Poggio
-    /// 1985). Near 0 at the two ends (one of them may lie a little above the site). NaN
-    /// everywhere if a node is missing.
+    /// ln|V_k / V_site| for a current at a point on the link between node `c` and
+    /// `split.compartment` (see `reduce::Split`): V = (1 − w)·Z_cc·r_c + w·Z_kk·r_k with
+    /// r_j = V/V_j for a current at j (Koch & Poggio 1985), and the point's own voltage that mix
+    /// plus w(1 − w)/g_link. Below 0 everywhere else. NaN everywhere if a node is missing or the
+    /// two are not joined by a link.
     pub fn ln_from_split(&self, c: usize, split: crate::reduce::Split) -> Vec<f64> {
         let (k, w) = (split.compartment as usize, split.weight);
         let n = self.maps.len();
@@ -57,7 +57,14 @@ impl Electrical {
         let v: Vec<C64> = (0..n)
             .map(|m| rc[m] * z[c] * (1.0 - w) + rk[m] * z[k] * w)
             .collect();
-        let at_site = v[c] * (1.0 - w) + v[k] * w;
+        let parent = self.maps.parent();
+        let child = match (parent.get(c), parent.get(k)) {
+            (Some(&p), _) if p as usize == k => c,
+            (_, Some(&p)) if p as usize == c => k,
+            _ => return vec![f64::NAN; n],
+        };
+        let own = C64::new(w * (1.0 - w), 0.0) / self.maps.factor().series()[child];
+        let at_site = v[c] * (1.0 - w) + v[k] * w + own;
         v.iter().map(|x| (x / at_site).norm().ln()).collect()
     }
 

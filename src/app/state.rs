@@ -806,8 +806,9 @@ mod tests {
 
     #[test]
     fn a_split_injection_point_maps_as_a_dense_solve_says() {
-        // reference: V = G⁻¹u with u = (1 − w)e_c + w·e_k (nalgebra dense inverse), read at the
-        // site as uᵀV
+        // reference: the tree's conductance matrix with the injection point as an extra node x
+        // on its link (the link g cut into g/w towards c and g/(1 − w) towards k), inverted by
+        // nalgebra; current at x, read at every compartment and at x
         let flat = Cell::demo().flat;
         let red =
             crate::reduce::Reducer::new(&flat, &Params::default(), &Default::default()).unwrap();
@@ -816,31 +817,37 @@ mod tests {
         assert!(fid.split_sites(&mut t).unwrap() > 0);
         let elec = Electrical::from_maps(t.network(0.0).maps());
         let n = t.len();
-        let mut g = nalgebra::DMatrix::<f64>::zeros(n, n);
-        for (j, c) in t.compartments.iter().enumerate() {
-            g[(j, j)] += c.g_leak_ns;
-            if let Some(p) = c.parent {
-                let p = p as usize;
-                g[(j, j)] += c.g_axial_ns;
-                g[(p, p)] += c.g_axial_ns;
-                g[(j, p)] -= c.g_axial_ns;
-                g[(p, j)] -= c.g_axial_ns;
-            }
-        }
-        let z = g.try_inverse().unwrap();
         let mut checked = 0;
         for i in (0..t.site_compartment.len()).step_by(97) {
             let (c, Some(sp)) = (t.site_compartment[i] as usize, t.site_split(i)) else {
                 continue;
             };
-            let mut u = nalgebra::DVector::<f64>::zeros(n);
-            u[c] += 1.0 - sp.weight;
-            u[sp.compartment as usize] += sp.weight;
-            let v = &z * &u;
-            let at_site = u.dot(&v);
+            let (k, w) = (sp.compartment as usize, sp.weight);
+            let mut g = nalgebra::DMatrix::<f64>::zeros(n + 1, n + 1);
+            let mut link = |a: usize, b: usize, y: f64| {
+                g[(a, a)] += y;
+                g[(b, b)] += y;
+                g[(a, b)] -= y;
+                g[(b, a)] -= y;
+            };
+            for (j, cj) in t.compartments.iter().enumerate() {
+                let Some(p) = cj.parent.map(|p| p as usize) else {
+                    continue;
+                };
+                if (j, p) == (c, k) || (j, p) == (k, c) {
+                    link(n, c, cj.g_axial_ns / w);
+                    link(n, k, cj.g_axial_ns / (1.0 - w));
+                } else {
+                    link(j, p, cj.g_axial_ns);
+                }
+            }
+            for (j, cj) in t.compartments.iter().enumerate() {
+                g[(j, j)] += cj.g_leak_ns;
+            }
+            let v = g.try_inverse().unwrap().column(n).into_owned();
             let mine = elec.ln_from_split(c, sp);
             for m in 0..n {
-                let want = (v[m] / at_site).abs().ln();
+                let want = (v[m] / v[n]).abs().ln();
                 assert!(
                     (mine[m] - want).abs() < 1e-7,
                     "site {i} node {m}: {} vs {want}",

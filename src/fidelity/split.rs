@@ -1,12 +1,15 @@
-//! Last step of `CapacitanceRule::Timed`: a site's input may be split between two adjacent
-//! compartments ([`Split`]), the way a point between two nodes of a finite-element cable gives
-//! its current to both and reads its voltage as the same mix (linear elements, Galerkin), with
-//! the weight chosen to answer most like the cell at the site.
+//! Last step of `CapacitanceRule::Timed`: a site may sit on the link between two adjacent
+//! compartments ([`Split`]): a point of the axial resistor, which gives its current to both ends
+//! the way a point between two nodes of a finite-element cable does (linear elements,
+//! Galerkin) and reads their mix plus its own share of the resistor, w(1 − w)·R — the local
+//! input resistance of a point inside a section — with the weight chosen to answer most like
+//! the cell at the site.
 //!
 //! A compartment is one lumped response; the sites it serves span a range of EPSP sizes and
 //! times (a collapsed region's distal and proximal points alike). A mix of two adjacent
 //! compartments' responses lies between them in size and time, so a site between them gets an
-//! answer between them. Each site takes the link and weight of least cost among the links of
+//! answer between them; its DC attenuation also holds the resistor's share (with the mix alone,
+//! the points of a thin unbranched section read ~0.17 Np too little attenuation). Each site takes the link and weight of least cost among the links of
 //! its compartment and of that compartment's parent, weights in steps of 1/40:
 //! cost = 2·|ln A_site − ln A_mix| (DC, Np) + 8·|ln(ttp_mix/ttp_site)| + |ln(peak_mix/peak_site)|.
 //! Then two passes over the tails ([`improve_tails`]): a site whose error of one kind (EPSP

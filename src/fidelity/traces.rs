@@ -228,18 +228,10 @@ fn run(
             split,
         },
     };
-    let other = split.map_or(node, |s| s.node);
-    let r = simulate(net, &drive, &[0, node, other], &run_opts)?;
-    let mut t = r.traces.into_iter();
-    let soma_mv = t.next().unwrap_or_default();
-    let (own, second) = (t.next().unwrap_or_default(), t.next().unwrap_or_default());
-    // a split input's point reads the same mix of the two nodes (see `reduce::Split`)
-    let w = split.map_or(0.0, |s| s.weight);
-    let injection_point_mv = own
-        .iter()
-        .zip(&second)
-        .map(|(a, b)| (1.0 - w) * a + w * b)
-        .collect();
+    // an input on a link reads the point's own voltage (see `reduce::Split`)
+    let r = simulate(net, &drive, &[0], &run_opts)?;
+    let soma_mv = r.traces.into_iter().next().unwrap_or_default();
+    let injection_point_mv = r.input_point_mv;
     Ok(SideTraces {
         times_ms: r.times_ms,
         soma_mv,

@@ -11,11 +11,14 @@ use crate::cable::solve::{TreeFactor, TreeMaps};
 use crate::cable::{C64, Network};
 use crate::morphology::NONE;
 
-/// An input split with a neighbouring compartment: a fraction `weight` (0 < weight ≤ 0.5) of a
-/// site's current goes to `compartment`, the rest to the site's own compartment, and the site's
-/// voltage is read as the same mix — a point between two nodes of a finite-element cable with
-/// linear elements (Galerkin; e.g. Hughes 1987, ch. 1), the weight fitted to the cell's response
-/// at the site instead of taken from the point's position (see `fidelity::split`).
+/// A site on the link between its compartment and the neighbouring `compartment`, at fraction
+/// `weight` (0 < weight ≤ 0.5) of the link's resistance R from its own compartment: a point of
+/// the axial resistor, without membrane. Eliminating it (Kron) gives its current to the two
+/// ends, 1 − w to its own compartment and w to the neighbour, as a point between two nodes of a
+/// finite-element cable with linear elements does (Galerkin; e.g. Hughes 1987, ch. 1); its
+/// voltage is their mix plus w(1 − w)·R times its own current (the local input resistance of a
+/// point inside a section). The weight is fitted to the cell's response at the site rather than
+/// taken from the point's position (see `fidelity::split`).
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct Split {
     pub compartment: u32,
@@ -282,11 +285,11 @@ pub struct DcMaps {
 
 impl DcMaps {
     /// DC log attenuations (to the soma, from the soma; nepers) of an input at compartment `c`,
-    /// or split between `c` (1 − w) and its neighbour `split.compartment` (w), the site's
-    /// voltage read as the same mix (Galerkin, see [`Split`]). With p the pair's parent end, q its
-    /// child end, weights w_p and w_q and d_q = V_q/V_p for current at p (Koch & Poggio 1985):
-    /// Z_ss = w_p²Z_pp + 2w_pw_qZ_ppd_q + w_q²Z_qq and Z_s0 = Z_p0(w_p + w_qd_q), so
-    /// ln A_to = ln(Z_ss/Z_pp) + ln A_to(p) − ln(w_p + w_qd_q) and
+    /// or on the link between `c` and its neighbour `split.compartment` (see [`Split`]). With p
+    /// the pair's parent end, q its child end, weights w_p and w_q, g_q the link's conductance
+    /// and d_q = V_q/V_p for current at p (Koch & Poggio 1985):
+    /// Z_ss = w_p²Z_pp + 2w_pw_qZ_ppd_q + w_q²Z_qq + w_pw_q/g_q (the last term the point's own
+    /// part of the resistor) and Z_s0 = Z_p0(w_p + w_qd_q), so ln A_to = ln(Z_ss/Z_pp) + ln A_to(p) − ln(w_p + w_qd_q) and
     /// ln A_from = ln A_from(p) − ln(w_p + w_qd_q) (ratios only: no underflow far out).
     /// A split whose compartment is not a neighbour of `c` is read as none.
     pub fn ln_attenuations(&self, c: usize, split: Option<Split>) -> (f64, f64) {
@@ -307,7 +310,8 @@ impl DcMaps {
         let wp = 1.0 - wq;
         let d = m.down()[q];
         let (zpp, zqq) = (m.input_impedance()[p], m.input_impedance()[q]);
-        let zss = wp * wp + 2.0 * wp * wq * d + wq * wq * zqq / zpp;
+        let on_link = wp * wq / (m.factor().series()[q] * zpp);
+        let zss = wp * wp + 2.0 * wp * wq * d + wq * wq * zqq / zpp + on_link;
         let mix = (wp + wq * d).ln();
         (
             zss.ln() + m.ln_attenuation_to_soma(p) - mix,

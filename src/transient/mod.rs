@@ -9,8 +9,10 @@
 //! O(N) (Hines 1984); both are unconditionally stable. A synapse g(t)·(E − V_s) is implicit: its
 //! conductance only changes M's diagonal at s, a rank-one change solved with the
 //! Sherman–Morrison formula from one extra solve M⁻¹e_s made once (still O(N) per step). An
-//! input split between two nodes ([`NodeSplit`]) puts u = (1 − w)e_s + w·e_k in place of e_s:
-//! current u·I(t), synapse g(t)·(E − uᵀV)·u, still rank one.
+//! input at a point on the link between two nodes ([`NodeSplit`]: fraction w of the link's
+//! resistance R from s) is that point Kron-eliminated (it has no membrane): u = (1 − w)e_s +
+//! w·e_k in place of e_s, and the point's voltage V_x = uᵀV + r·I with r = w(1 − w)R. A current
+//! gives u·I(t); a synapse g(t)·(E − V_x) gives g/(1 + g·r)·(E − uᵀV)·u, still rank one.
 //!
 //! Memory is O(N + recorded nodes × steps): chosen nodes' traces are recorded; for every node
 //! the running peak and its time are kept, the time refined by a parabola through the three
@@ -193,8 +195,10 @@ pub enum Drive {
     },
 }
 
-/// Part `weight` (0 ≤ w ≤ 1) of a drive's input given to a second node; the drive's own node
-/// takes 1 − w, and a synapse sees the same mix of the two voltages.
+/// A drive's input at a point on the link between its node and `node` (a neighbour in the
+/// tree), at fraction `weight` (0 ≤ w ≤ 1) of the link's resistance from the drive's node: by
+/// Kron elimination of the point, 1 − w of its current reaches the drive's node and w the
+/// neighbour, and the point reads their mix plus w(1 − w)·R times its own current.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct NodeSplit {
     pub node: usize,
@@ -209,6 +213,21 @@ impl Drive {
             Some(s) => [(node, 1.0 - s.weight), (s.node, s.weight)],
             None => [(node, 1.0), (node, 0.0)],
         }
+    }
+
+    /// The input point's own series resistance r = w(1 − w)/g_link (GΩ, for nS), 0 without a
+    /// split; `None` if the split's two nodes are not joined by a link of `net`.
+    fn series_gohm(&self, net: &RcNetwork) -> Option<f64> {
+        let (Drive::Current { node, split, .. } | Drive::Synapse { node, split, .. }) = *self;
+        let Some(s) = split else { return Some(0.0) };
+        let child = if net.parent.get(s.node) == Some(&(node as u32)) {
+            s.node
+        } else if net.parent.get(node) == Some(&(s.node as u32)) {
+            node
+        } else {
+            return None;
+        };
+        Some(s.weight * (1.0 - s.weight) / net.g_axial_ns[child])
     }
 }
 
@@ -265,6 +284,9 @@ pub struct Response {
     pub times_ms: Vec<f64>,
     /// One trace (mV) per recorded node, in the order asked.
     pub traces: Vec<Vec<f64>>,
+    /// The voltage (mV) at the input point: its node's, or for an input on a link the point's
+    /// own (see [`NodeSplit`]).
+    pub input_point_mv: Vec<f64>,
     pub peaks: Option<Peaks>,
 }
 
@@ -380,6 +402,12 @@ fn validate_run(
         0.0,
         1.0,
     )?;
+    if drive.series_gohm(net).is_none() {
+        return Err(TransientError::BadNetwork {
+            node: drive.inputs()[1].0,
+            what: "the input's second node is not joined to its first by a link",
+        });
+    }
     match drive {
         Drive::Current { waveform, .. } => waveform.validate()?,
         Drive::Synapse { synapse, .. } => synapse.validate()?,
@@ -427,10 +455,18 @@ struct Stepper {
     c_h: Vec<f64>,
     lu: TreeFactor<f64>,
     z: Vec<f64>,
+    /// The input point's series resistance (GΩ; see [`NodeSplit`]).
+    series: f64,
 }
 
 impl Stepper {
-    fn new(net: &RcNetwork, dt: f64, cn: bool, synapse_at: Option<[(usize, f64); 2]>) -> Stepper {
+    fn new(
+        net: &RcNetwork,
+        dt: f64,
+        cn: bool,
+        synapse_at: Option<[(usize, f64); 2]>,
+        series: f64,
+    ) -> Stepper {
         let h = if cn { 0.5 * dt } else { dt };
         let c_h: Vec<f64> = net.cap_pf.iter().map(|c| c / h).collect();
         let diag: Vec<f64> = c_h.iter().zip(&net.g_leak_ns).map(|(c, g)| c + g).collect();
@@ -447,7 +483,13 @@ impl Stepper {
             }
             None => Vec::new(),
         };
-        Stepper { dt, c_h, lu, z }
+        Stepper {
+            dt,
+            c_h,
+            lu,
+            z,
+            series,
+        }
     }
 
     /// One step from t0 to t1: `x` holds C/h·v on entry and the solve of
@@ -467,11 +509,8 @@ impl Stepper {
                 self.lu.solve_in_place(x);
             }
             Drive::Synapse { synapse, .. } => {
-                let gam = if cn {
-                    0.5 * (synapse.conductance(t0) + synapse.conductance(t1))
-                } else {
-                    synapse.conductance(t1)
-                };
+                let g = |t: f64| self.effective(synapse.conductance(t));
+                let gam = if cn { 0.5 * (g(t0) + g(t1)) } else { g(t1) };
                 for (k, w) in u {
                     x[k] += w * gam * synapse.e_rev_mv;
                 }
@@ -484,6 +523,24 @@ impl Stepper {
                 }
             }
         }
+    }
+
+    /// A synapse's conductance as seen through the input point's series resistance r:
+    /// g/(1 + g·r) (two conductances in series).
+    fn effective(&self, g: f64) -> f64 {
+        g / (1.0 + g * self.series)
+    }
+
+    /// The input point's voltage at t from the nodes' voltages `v`: uᵀV + r·I(t).
+    fn input_point(&self, drive: &Drive, v: &[f64], t: f64) -> f64 {
+        let mix: f64 = drive.inputs().iter().map(|&(k, w)| w * v[k]).sum();
+        let current = match *drive {
+            Drive::Current { waveform, .. } => waveform.at(t),
+            Drive::Synapse { synapse, .. } => {
+                self.effective(synapse.conductance(t)) * (synapse.e_rev_mv - mix)
+            }
+        };
+        mix + self.series * current
     }
 }
 
@@ -508,7 +565,8 @@ pub fn simulate(
         Drive::Synapse { synapse, .. } if synapse.e_rev_mv < 0.0 => -1.0,
         Drive::Synapse { .. } => 1.0,
     };
-    let mut st = Stepper::new(net, dt0, cn, syn);
+    let series = drive.series_gohm(net).unwrap_or(0.0);
+    let mut st = Stepper::new(net, dt0, cn, syn, series);
     let fixed_steps = (max_ms / dt0).round() as usize;
     // v: the voltage; y: C/h·v (the next right-hand side), then the solve's result
     let mut v = vec![0.0; n];
@@ -516,6 +574,7 @@ pub fn simulate(
     let mut tracker = opts.track_peaks.then(|| PeakTracker::new(n, sign));
     let mut times = vec![0.0];
     let mut traces: Vec<Vec<f64>> = record.iter().map(|_| vec![0.0]).collect();
+    let mut input_point_mv = vec![st.input_point(drive, &v, 0.0)];
     let mut quiet = 0usize;
     let mut step = 0usize;
     loop {
@@ -527,7 +586,7 @@ pub fn simulate(
             Some(_) if t0 >= max_ms - 1e-9 * dt0 => break,
             Some(g) => {
                 if t0 >= g.after_ms && g.ratio * t0 >= 1.25 * st.dt {
-                    st = Stepper::new(net, 1.25 * st.dt, cn, syn);
+                    st = Stepper::new(net, 1.25 * st.dt, cn, syn, series);
                     for k in 0..n {
                         y[k] = st.c_h[k] * v[k];
                     }
@@ -548,6 +607,7 @@ pub fn simulate(
         for (tr, &k) in traces.iter_mut().zip(record) {
             tr.push(v[k]);
         }
+        input_point_mv.push(st.input_point(drive, &v, t1));
         quiet = if rising == 0 { quiet + 1 } else { 0 };
         if tracker.is_some()
             && matches!(opts.stop, Stop::AllPeaked { .. })
@@ -561,6 +621,7 @@ pub fn simulate(
     Ok(Response {
         times_ms: times,
         traces,
+        input_point_mv,
         peaks,
     })
 }
