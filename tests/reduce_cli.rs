@@ -156,7 +156,7 @@ fn reduce_writes_json_and_swc_and_prints_the_report() {
         assert_eq!(p["weight"], x["split"]["weight"]);
     }
     assert!(
-        stdout.contains("split between two adjacent compartments"),
+        stdout.contains("on a link between two compartments (split inputs)"),
         "{stdout}"
     );
     // --one-compartment-per-site: no split anywhere, the same network

@@ -178,7 +178,7 @@ def reduce(
     number is rounded down), as `pollard reduce` does. `sites`: a site-list file, SWC ids, or
     (x, y, z) positions in µm; `types`: SWC types to keep (the soma always is);
     `capacitance`: "timed" (the default: fitted, then polished on the sites' EPSP peaks and
-    times to peak, and each site's input possibly split between two adjacent compartments —
+    times to peak, and each site possibly placed on the link between two compartments —
     see `site_split_compartment`; `split_inputs=False` gives each site one compartment — as
     `pollard reduce`; runs the full cell once, which `fidelity` and `to_json`
     then reuse; slowest time constant within about 10 % of Rm·Cm), "fitted" (to the cell's

@@ -198,7 +198,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         if let Some(t) = &timed {
             writeln!(
                 out,
-                "  timed: capacitances polished in {} steps; {} of {} sites served by a neighbour of the compartment their point's link gave them; {} split between two adjacent compartments",
+                "  timed: capacitances polished in {} steps; {} of {} sites served by a neighbour of the compartment their point's link gave them; {} on a link between two compartments (split inputs)",
                 t.steps,
                 t.sites_moved,
                 tree.site_compartment.len(),
