@@ -465,7 +465,7 @@ impl PlotsPanel {
         };
         plot_title(
             ui,
-            format!("{what} vs path distance (reduced tree: current at the compartment, or split between two)"),
+            format!("{what} vs path distance (reduced tree: current at the compartment, or on a link between two)"),
         )
         .on_hover_text(
             "Orange: the reduced tree with the current injected at the injection point's \

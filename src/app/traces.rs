@@ -231,8 +231,8 @@ impl TracesView {
             )
                 .on_hover_text(
                     "A 10 pA alpha current (peak at τ = 0.5 ms) flows into the cell at the injection point; \
-                     the reduced tree gets it at the injection point's compartment (or split between two \
-                     adjacent compartments, as for a point between them). Voltage above rest; \
+                     the reduced tree gets it at the injection point's compartment (or at a point on the \
+                     link between two adjacent compartments, which splits it). Voltage above rest; \
                      each run lasts until the whole cell has passed its peak (40 to 500 ms).",
                 );
             if let Some((_, job)) = &self.job {
@@ -313,7 +313,7 @@ fn peak_line(ui: &mut egui::Ui, sh: &Shown, unit: VoltageUnit) {
         sh.compartments,
         match sh.split {
             Some(x) => format!(
-                " ({:.0} % of it at compartment {}: the point lies between them)",
+                " ({:.0} % of it at compartment {}: the point lies on the link between them)",
                 100.0 * x.weight,
                 x.compartment
             ),

@@ -69,8 +69,8 @@ pub struct Args {
     /// How compartments get their capacitance: `timed` (default) fits them to the cell's
     /// transfer impedances to the soma, then polishes them on the sites' EPSP peaks and times to
     /// peak in the time domain, serves each site by its compartment or a neighbour, whichever
-    /// answers most like the cell, and may split a site's input between two adjacent
-    /// compartments (see --one-compartment-per-site; slowest time constant within about 10 % of Rm·Cm; needs the
+    /// answers most like the cell, and may place a site on the link between two adjacent
+    /// compartments, splitting its input (see --one-compartment-per-site; slowest time constant within about 10 % of Rm·Cm; needs the
     /// fidelity run, so with --no-fidelity the default falls back to `fitted` and says so);
     /// `fitted` stops after the fit (slowest time constant within 2 % of Rm·Cm); `uniform` sets
     /// C = Rm·Cm × leak, which keeps the slowest time constant exactly Rm·Cm. Conductances are
@@ -78,7 +78,7 @@ pub struct Args {
     #[arg(long, value_enum, value_name = "RULE")]
     pub capacitance: Option<Capacitance>,
     /// Give each site's input to one compartment: no split inputs (the `timed` rule's last
-    /// step, which may split a site's input between two adjacent compartments), for codes that
+    /// step, which may place a site on the link between two adjacent compartments), for codes that
     /// take one compartment per synapse.
     #[arg(long)]
     pub one_compartment_per_site: bool,

@@ -220,7 +220,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         tree.len(),
         match tr.split {
             Some(x) => format!(
-                ", {:.1} % of the input at compartment {}",
+                ", on the link to compartment {1}: {0:.1} % of the input there",
                 100.0 * x.weight,
                 x.compartment
             ),
