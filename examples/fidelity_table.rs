@@ -34,7 +34,9 @@ fn prep_for(m: &Morphology) -> PrepOptions {
 
 /// The library's default rule (`timed`: fitted, then polished in the time domain);
 /// `POLLARD_CAPACITANCE=fitted` measures the fitted capacitances alone, `uniform` C = τ·G;
-/// `POLLARD_TABLE_MAX=1` adds a row at the largest budget the cell allows.
+/// `POLLARD_TABLE_MAX=1` adds a row at the largest budget the cell allows;
+/// `POLLARD_ONE_PER_SITE=1` measures the timed rule without split inputs
+/// (`--one-compartment-per-site`).
 fn capacitance_rule() -> CapacitanceRule {
     match std::env::var("POLLARD_CAPACITANCE").as_deref() {
         Ok("uniform") => CapacitanceRule::Uniform,
@@ -120,6 +122,7 @@ fn cell(path: &std::path::Path, opts: &FidelityOptions) -> Result<Vec<String>, S
     let t0 = Instant::now();
     let ropts = ReduceOptions {
         capacitance: capacitance_rule(),
+        split_inputs: std::env::var("POLLARD_ONE_PER_SITE").is_err(),
         ..ReduceOptions::default()
     };
     let red = Reducer::new(&flat, &Params::default(), &ropts).map_err(|e| e.to_string())?;

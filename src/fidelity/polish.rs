@@ -45,8 +45,10 @@ const FD_STEP: f64 = 1e-3;
 /// What the polish did.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct PolishSummary {
+    /// Steps taken, over both polishes of a tree with split inputs.
     pub steps: usize,
     pub objective_before: f64,
+    /// After the last polish (before the last split, on a tree with split inputs).
     pub objective_after: f64,
     /// Sites served by a neighbour of the compartment the reducer gave them
     /// ([`Fidelity::serve_sites`], [`Fidelity::split_sites`]).
@@ -63,7 +65,8 @@ impl Fidelity {
     /// `Timed`, serves the sites by the tree's responses ([`Fidelity::serve_sites`]), polishes
     /// the capacitances, serves them again and splits their inputs ([`Fidelity::split_sites`],
     /// trees up to [`SPLIT_MAX_COMPARTMENTS`], unless the reducer's options say
-    /// `split_inputs: false`), returning what was done; leaves the tree as built otherwise.
+    /// `split_inputs: false`), then polishes once more with the splits in place and splits
+    /// again, returning what was done; leaves the tree as built otherwise.
     pub fn apply_capacitance_rule(
         &self,
         tree: &mut ReducedTree,
@@ -77,9 +80,15 @@ impl Fidelity {
             let mut done = self.polish(tree)?;
             self.serve_sites(tree)?;
             if self.split_inputs && tree.len() <= SPLIT_MAX_COMPARTMENTS {
-                // a second, split-aware polish after this (and a second split) lowers the
-                // real cells' summed p95s (time to peak 390 → 338 / 330 %, EPSP 8.40 → 8.07 /
-                // 8.13 Np over 24 rows) but meets no further target, for twice the polish's cost
+                self.split_sites(tree)?;
+                // the capacitances chosen again with the split sites answering by their mixes
+                // (the polish's `Targets` group sites by input), then the splits again on the
+                // new responses: 118 → 120 of the 120 real-cell targets with the weights of
+                // `split` and `reduce::order` (docs/fidelity.md, session 7); a third round
+                // meets none more
+                let again = self.polish(tree)?;
+                done.steps += again.steps;
+                done.objective_after = again.objective_after;
                 done.sites_split = self.split_sites(tree)?;
             }
             done.sites_moved = built
