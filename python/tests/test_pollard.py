@@ -416,7 +416,7 @@ def test_synapse_matrix_adds_up_to_the_table_and_matches_the_cli(tmp_path):
     assert back["shape"] == m["shape"] and back["inputs"] == m["inputs"]
     np.testing.assert_array_equal(loaded.site_split_compartment, split_c)
     np.testing.assert_array_equal(loaded.site_split_weight, split_w)
-    # split_inputs=False: one compartment per synapse, every count positive, the same network
+    # split_inputs=False: one compartment per synapse, every count positive, the same conductances
     whole = pollard.reduce(str(DEMO_CELL), compartments=31, synapses=str(DEMO_TABLE),
                            split_inputs=False)
     assert np.all(whole.site_split_compartment == -1) and np.all(whole.synapse_matrix()["count"] > 0)
