@@ -28,7 +28,8 @@ fn reduce(c: &mut Criterion) {
     });
     let r = Reducer::new(&flat, &params, &opts).expect("reduces");
     let max = r.max_compartments();
-    for budget in [1usize, 15, 31, 63, max / 2] {
+    // 127–1023: the trees whose capacitances are fitted per budget, the costliest
+    for budget in [1usize, 15, 31, 63, 127, 255, 511, 1023, max / 2] {
         g.bench_function(format!("tree_{budget}_of_{max}"), |b| {
             b.iter(|| black_box(r.tree(budget)))
         });
