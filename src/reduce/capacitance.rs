@@ -49,12 +49,9 @@ const SLOW_WEIGHT: f64 = 100.0;
 /// Tolerance band (relative) around τ = Rm·Cm left free for the slowest mode.
 const SLOW_BAND: f64 = 0.02;
 
-/// Inverse-iteration steps for the slowest mode at most (RC trees separate τ₀ from τ₁ by a
-/// factor of several, so the error shrinks by that factor per step), and the relative change of
-/// λ that ends it: each evaluation starts from the previous one's mode, so after the first it
-/// takes a step or two.
+/// Inverse-iteration steps for the slowest mode (RC trees separate τ₀ from τ₁ by a factor
+/// of several, so the error shrinks by that factor per step).
 const SLOW_STEPS: usize = 24;
-const SLOW_TOL: f64 = 1e-10;
 
 /// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
 /// along the path from the soma (ln Z_k0 = ln Z_00 + Σ ln(g/(g + D)) over the path).
@@ -235,14 +232,8 @@ impl Problem<'_> {
     /// [`Problem::gradient`]) from the eigenvalue's first-order perturbation,
     /// ∂λ/∂C_k = −λ·x_k² / xᵀCx, and ∂/∂θ_k = C_k·∂/∂C_k.
     fn slow_penalty(&self, wk: &mut Work) -> f64 {
-        let (lam, xcx) = slowest_mode_with(
-            &wk.g_fac,
-            self.leak,
-            &wk.cap,
-            SLOW_STEPS,
-            SLOW_TOL,
-            &mut wk.mode,
-        );
+        let (lam, xcx) =
+            slowest_mode_with(&wk.g_fac, self.leak, &wk.cap, SLOW_STEPS, 0.0, &mut wk.mode);
         let d = (lam * self.tau_s).ln();
         let band = SLOW_BAND.ln_1p();
         wk.excess = d.signum() * (d.abs() - band).max(0.0);

@@ -222,10 +222,8 @@ pub(super) fn slowest_mode(
 }
 
 /// [`slowest_mode`] with G already factored (`fac`: series g, shunts `leak`) and the mode
-/// written into `x`: what the capacitance fit calls once per evaluation. If `x` already holds a
-/// vector of the tree's size (the previous evaluation's mode, for nearby capacitances) the
-/// iteration starts from it (a warm start: a step or two instead of many), else from the
-/// uniform voltage. Returns λ and xᵀCx.
+/// written into `x` (resized to the tree): what the capacitance fit calls once per evaluation.
+/// Returns λ and xᵀCx.
 pub(super) fn slowest_mode_with(
     fac: &TreeFactor<f64>,
     leak: &[f64],
@@ -250,10 +248,8 @@ pub(super) fn slowest_mode_with(
         }
         (xgx / f64::max(xcx, 1e-300), xcx)
     };
-    if x.len() != n || x.iter().any(|v| !v.is_finite()) {
-        x.clear();
-        x.resize(n, 1.0);
-    }
+    x.clear();
+    x.resize(n, 1.0);
     let (mut lam, mut xcx) = scaled_rayleigh(x, 1.0);
     for _ in 0..steps {
         x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
