@@ -57,11 +57,8 @@ impl Electrical {
         let v: Vec<C64> = (0..n)
             .map(|m| rc[m] * z[c] * (1.0 - w) + rk[m] * z[k] * w)
             .collect();
-        let parent = self.maps.parent();
-        let child = match (parent.get(c), parent.get(k)) {
-            (Some(&p), _) if p as usize == k => c,
-            (_, Some(&p)) if p as usize == c => k,
-            _ => return vec![f64::NAN; n],
+        let Some(child) = crate::cable::solve::link_child(self.maps.parent(), c, k) else {
+            return vec![f64::NAN; n];
         };
         let own = C64::new(w * (1.0 - w), 0.0) / self.maps.factor().series()[child];
         let at_site = v[c] * (1.0 - w) + v[k] * w + own;

@@ -452,6 +452,18 @@ fn ln_soma_transfer<T: Scalar>(f: &TreeFactor<T>) -> Vec<f64> {
 }
 
 /// Log attenuation in nepers: ln A.
+/// The child end of the link joining nodes `a` and `b` of a parent array, or `None` when they
+/// are not joined by a link.
+pub fn link_child(parent: &[u32], a: usize, b: usize) -> Option<usize> {
+    if parent.get(b) == Some(&(a as u32)) {
+        Some(b)
+    } else if parent.get(a) == Some(&(b as u32)) {
+        Some(a)
+    } else {
+        None
+    }
+}
+
 pub fn neper(attenuation: f64) -> f64 {
     attenuation.ln()
 }

@@ -299,13 +299,10 @@ impl DcMaps {
             return own();
         };
         let k = sh.compartment as usize;
-        let parent = m.parent();
-        let (p, q, wq) = if parent.get(k) == Some(&(c as u32)) {
-            (c, k, sh.weight)
-        } else if parent.get(c) == Some(&(k as u32)) {
-            (k, c, 1.0 - sh.weight)
-        } else {
-            return own();
+        let (p, q, wq) = match crate::cable::solve::link_child(m.parent(), c, k) {
+            Some(q) if q == k => (c, k, sh.weight),
+            Some(_) => (k, c, 1.0 - sh.weight),
+            None => return own(),
         };
         let wp = 1.0 - wq;
         let d = m.down()[q];

@@ -220,13 +220,7 @@ impl Drive {
     fn series_gohm(&self, net: &RcNetwork) -> Option<f64> {
         let (Drive::Current { node, split, .. } | Drive::Synapse { node, split, .. }) = *self;
         let Some(s) = split else { return Some(0.0) };
-        let child = if net.parent.get(s.node) == Some(&(node as u32)) {
-            s.node
-        } else if net.parent.get(node) == Some(&(s.node as u32)) {
-            node
-        } else {
-            return None;
-        };
+        let child = crate::cable::solve::link_child(&net.parent, node, s.node)?;
         Some(s.weight * (1.0 - s.weight) / net.g_axial_ns[child])
     }
 }
@@ -383,12 +377,14 @@ impl PeakTracker {
     }
 }
 
+/// Checks a run's inputs; returns its shortest and longest duration (ms) and the input point's
+/// series resistance (GΩ).
 fn validate_run(
     net: &RcNetwork,
     drive: &Drive,
     record: &[usize],
     opts: &RunOptions,
-) -> Result<(f64, f64), TransientError> {
+) -> Result<(f64, f64, f64), TransientError> {
     net.validate()?;
     let n = net.len();
     for k in record.iter().copied().chain(drive.inputs().map(|i| i.0)) {
@@ -402,12 +398,10 @@ fn validate_run(
         0.0,
         1.0,
     )?;
-    if drive.series_gohm(net).is_none() {
-        return Err(TransientError::BadNetwork {
-            node: drive.inputs()[1].0,
-            what: "the input's second node is not joined to its first by a link",
-        });
-    }
+    let series = drive.series_gohm(net).ok_or(TransientError::BadNetwork {
+        node: drive.inputs()[1].0,
+        what: "the input's second node is not joined to its first by a link",
+    })?;
     match drive {
         Drive::Current { waveform, .. } => waveform.validate()?,
         Drive::Synapse { synapse, .. } => synapse.validate()?,
@@ -435,7 +429,7 @@ fn validate_run(
             limit: MAX_STEPS,
         });
     }
-    Ok((min_ms, max_ms))
+    Ok((min_ms, max_ms, series))
 }
 
 /// The end of a step in one pass: the solve's result `y` gives the new voltage (2y − v for
@@ -552,7 +546,7 @@ pub fn simulate(
     record: &[usize],
     opts: &RunOptions,
 ) -> Result<Response, TransientError> {
-    let (min_ms, max_ms) = validate_run(net, drive, record, opts)?;
+    let (min_ms, max_ms, series) = validate_run(net, drive, record, opts)?;
     let n = net.len();
     let dt0 = opts.dt_ms;
     let cn = opts.method == Method::CrankNicolson;
@@ -565,7 +559,6 @@ pub fn simulate(
         Drive::Synapse { synapse, .. } if synapse.e_rev_mv < 0.0 => -1.0,
         Drive::Synapse { .. } => 1.0,
     };
-    let series = drive.series_gohm(net).unwrap_or(0.0);
     let mut st = Stepper::new(net, dt0, cn, syn, series);
     let fixed_steps = (max_ms / dt0).round() as usize;
     // v: the voltage; y: C/h·v (the next right-hand side), then the solve's result
