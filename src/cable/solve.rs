@@ -197,6 +197,22 @@ impl<T: Scalar> TreeFactor<T> {
     }
 }
 
+impl TreeFactor<f64> {
+    /// Number of negative pivots of the elimination (g_k + D_k below the root, D_0 at it): by
+    /// Sylvester's law of inertia (1852) the number of negative eigenvalues of A. `None` when a
+    /// pivot is zero or not finite (the count is then undecided).
+    pub fn negative_pivots(&self) -> Option<usize> {
+        let mut count = 0;
+        for &i in &self.inv {
+            if !i.is_finite() || i == 0.0 {
+                return None;
+            }
+            count += usize::from(i < 0.0);
+        }
+        Some(count)
+    }
+}
+
 /// Every node's result of one network analysis (see the module doc): the factor plus the
 /// downward sweep. Built by [`TreeMaps::new`] in O(N).
 #[derive(Debug, Clone)]

@@ -15,7 +15,7 @@
 
 use super::Reducer;
 use super::build::Kept;
-use super::tree::slowest_mode_with;
+use super::slowest::SlowestMode;
 use crate::cable::solve::TreeFactor;
 use crate::cable::{C64, Params};
 use crate::morphology::Flat;
@@ -49,8 +49,8 @@ const SLOW_WEIGHT: f64 = 100.0;
 /// Tolerance band (relative) around τ = Rm·Cm left free for the slowest mode.
 const SLOW_BAND: f64 = 0.02;
 
-/// Inverse-iteration steps for the slowest mode (RC trees separate τ₀ from τ₁ by a factor
-/// of several, so the error shrinks by that factor per step).
+/// Inverse-iteration steps of the fit's estimate of the slowest rate (see
+/// `SlowestMode::estimate`).
 const SLOW_STEPS: usize = 24;
 
 /// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
@@ -136,10 +136,9 @@ struct Work {
     lz: Vec<Vec<C64>>,
     z: Vec<C64>,
     y: Vec<C64>,
-    /// G alone (axial and leak), for the slowest mode; fixed over the fit.
-    g_fac: TreeFactor<f64>,
-    /// The slowest mode x, xᵀCx and the penalised excess of ln(λτ).
-    mode: Vec<f64>,
+    /// The slowest mode's solver (G fixed over the fit; each evaluation starts from the
+    /// previous one's mode), its xᵀCx and the penalised excess of ln(λτ).
+    slow: SlowestMode,
     xcx: f64,
     excess: f64,
 }
@@ -158,8 +157,7 @@ impl Work {
             lz: vec![zero.clone(); FIT_HZ.len()],
             z: zero.clone(),
             y: zero,
-            g_fac: TreeFactor::new(p.parent, p.g, p.leak),
-            mode: Vec::with_capacity(n),
+            slow: SlowestMode::new(p.parent, p.g, p.leak),
             xcx: 0.0,
             excess: 0.0,
         }
@@ -220,7 +218,7 @@ impl Problem<'_> {
             }
         }
         if wk.excess != 0.0 && wk.excess.is_finite() {
-            let (x, cap) = (&wk.mode, &wk.cap);
+            let (x, cap) = (wk.slow.mode(), &wk.cap);
             for (k, gk) in grad.iter_mut().enumerate() {
                 *gk += 2.0 * self.slow_weight * wk.excess * (-x[k] * x[k] * cap[k] / wk.xcx);
             }
@@ -232,8 +230,7 @@ impl Problem<'_> {
     /// [`Problem::gradient`]) from the eigenvalue's first-order perturbation,
     /// ∂λ/∂C_k = −λ·x_k² / xᵀCx, and ∂/∂θ_k = C_k·∂/∂C_k.
     fn slow_penalty(&self, wk: &mut Work) -> f64 {
-        let (lam, xcx) =
-            slowest_mode_with(&wk.g_fac, self.leak, &wk.cap, SLOW_STEPS, 0.0, &mut wk.mode);
+        let (lam, xcx) = wk.slow.estimate(&wk.cap, SLOW_STEPS);
         let d = (lam * self.tau_s).ln();
         let band = SLOW_BAND.ln_1p();
         wk.excess = d.signum() * (d.abs() - band).max(0.0);

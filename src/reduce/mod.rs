@@ -65,8 +65,10 @@ pub use capacitance::FIT_MAX_COMPARTMENTS;
 mod fine;
 mod order;
 mod sites;
+mod slowest;
 mod tree;
-pub use tree::{DcMaps, Split, slowest_time_constant_ms};
+pub use slowest::slowest_time_constant_ms;
+pub use tree::{DcMaps, Split};
 
 pub use sites::{SiteSpec, parse_sites_csv};
 

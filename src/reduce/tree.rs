@@ -93,7 +93,7 @@ impl ReducedTree {
     pub fn slowest_time_constant_ms(&self) -> f64 {
         let col =
             |f: fn(&Compartment) -> f64| -> Vec<f64> { self.compartments.iter().map(f).collect() };
-        slowest_time_constant_ms(
+        super::slowest::slowest_time_constant_ms(
             &self.parents(),
             &col(|c| c.g_axial_ns),
             &col(|c| c.g_leak_ns),
@@ -200,81 +200,6 @@ impl ReducedTree {
             layers,
         }
     }
-}
-
-/// The slowest mode of the tree G·x = λ·C·x (G: axial and leak conductances, C diagonal), by
-/// inverse iteration from the uniform voltage (Rall 1969: the slowest mode of a uniform membrane
-/// is uniform) with the tree factorisation of G (Hines 1984), at most `steps` steps, stopping
-/// when the Rayleigh quotient λ = xᵀGx / xᵀCx moves by less than `tol` (relative). Returns λ
-/// (1/s when G is in S and C in F), x and xᵀCx.
-pub(super) fn slowest_mode(
-    parent: &[u32],
-    g: &[f64],
-    leak: &[f64],
-    cap: &[f64],
-    steps: usize,
-    tol: f64,
-) -> (f64, Vec<f64>, f64) {
-    let fac = TreeFactor::new(parent, g, leak);
-    let mut x = Vec::new();
-    let (lam, xcx) = slowest_mode_with(&fac, leak, cap, steps, tol, &mut x);
-    (lam, x, xcx)
-}
-
-/// [`slowest_mode`] with G already factored (`fac`: series g, shunts `leak`) and the mode
-/// written into `x` (resized to the tree): what the capacitance fit calls once per evaluation.
-/// Returns λ and xᵀCx.
-pub(super) fn slowest_mode_with(
-    fac: &TreeFactor<f64>,
-    leak: &[f64],
-    cap: &[f64],
-    steps: usize,
-    tol: f64,
-    x: &mut Vec<f64>,
-) -> (f64, f64) {
-    let (n, parent, g) = (fac.len(), fac.parent(), fac.series());
-    // scales x by 1/norm and returns the Rayleigh quotient and xᵀCx, in two passes (the sums
-    // are the plain ones, term by term in index order)
-    let scaled_rayleigh = |x: &mut [f64], norm: f64| {
-        let (mut xgx, mut xcx) = (-0.0, -0.0);
-        for ((v, &l), &c) in x.iter_mut().zip(leak).zip(cap) {
-            *v /= norm;
-            xgx += l * *v * *v;
-            xcx += c * *v * *v;
-        }
-        for k in 1..n {
-            let d = x[k] - x[parent[k] as usize];
-            xgx += g[k] * d * d;
-        }
-        (xgx / f64::max(xcx, 1e-300), xcx)
-    };
-    x.clear();
-    x.resize(n, 1.0);
-    let (mut lam, mut xcx) = scaled_rayleigh(x, 1.0);
-    for _ in 0..steps {
-        x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
-        fac.solve_in_place(x);
-        let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
-        let (next, next_xcx) = scaled_rayleigh(x, norm);
-        let moved = ((next - lam) / next).abs();
-        (lam, xcx) = (next, next_xcx);
-        if moved < tol {
-            break;
-        }
-    }
-    (lam, xcx)
-}
-
-/// The slowest time constant (ms) of any RC tree given parents-first (conductances in nS,
-/// capacitances in pF): 1/λ of [`slowest_mode`] converged to 1e-10 (at most 2,000 steps).
-pub fn slowest_time_constant_ms(
-    parent: &[u32],
-    g_ns: &[f64],
-    leak_ns: &[f64],
-    cap_pf: &[f64],
-) -> f64 {
-    let (lam, _, _) = slowest_mode(parent, g_ns, leak_ns, cap_pf, 2000, 1e-10);
-    1.0 / lam
 }
 
 /// The reduced tree's DC maps (both sweeps, once), for inputs at one compartment or split
