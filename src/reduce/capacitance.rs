@@ -65,48 +65,107 @@ pub(super) fn full_log_transfer(kept: &Flat, params: &Params) -> Vec<Vec<C64>> {
                 Err(_) => return Vec::new(),
             };
             let mut lz = vec![C64::new(0.0, 0.0); net.len()];
-            log_soma_column(&TreeFactor::new(&net.parent, &net.g, &net.shunt), &mut lz);
+            let mut z = lz.clone();
+            log_soma_column(
+                &TreeFactor::new(&net.parent, &net.g, &net.shunt),
+                &mut lz,
+                &mut z,
+            );
             lz
         })
         .collect()
 }
 
-/// The soma column in log form, phase unwrapped along each path: ln Z_00 = −ln D_0 and
-/// ln Z_c0 = ln Z_p0 + ln(g/(g + D_c)) (the downward voltage ratios of Hines 1984's elimination).
-fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64]) {
-    if let Some(first) = lz.first_mut() {
+/// The soma column, in log form with the phase unwrapped along each path and as it is:
+/// ln Z_00 = −ln D_0 and ln Z_c0 = ln Z_p0 + ln(g/(g + D_c)), Z_c0 = Z_p0·g/(g + D_c) (the
+/// downward voltage ratios of Hines 1984's elimination).
+fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64], z: &mut [C64]) {
+    if let (Some(first), Some(z0)) = (lz.first_mut(), z.first_mut()) {
+        *z0 = C64::new(1.0, 0.0) / f.root_admittance();
         *first = -f.root_admittance().ln();
     }
     for k in 1..lz.len() {
-        lz[k] = lz[f.parent()[k] as usize] + fast_ln(f.down()[k]);
+        let (p, down) = (f.parent()[k] as usize, f.down()[k]);
+        lz[k] = lz[p] + fast_ln(down);
+        z[k] = z[p] * down;
     }
 }
 
 /// ln z = ½·ln|z|² + j·arg z, without the overflow guard of hypot (a voltage ratio g/(g + D)
-/// has 0 < |z| ≤ 1, far from the limits of f64 squares).
+/// has 0 < |z| ≤ 1, far from the limits of f64 squares) and, in the right half-plane where a
+/// passive network's ratios lie (Re(g + D) > 0), arg z = atan(Im/Re) without atan2's quadrants.
 fn fast_ln(z: C64) -> C64 {
-    C64::new(0.5 * z.norm_sqr().ln(), z.im.atan2(z.re))
+    let arg = if z.re > 0.0 {
+        (z.im / z.re).atan()
+    } else {
+        z.im.atan2(z.re)
+    };
+    C64::new(0.5 * z.norm_sqr().ln(), arg)
 }
 
-/// Per site, what the fit sums over the sites a compartment serves: at each fit frequency
-/// ln|Z_0s| and 1/φ_s (φ_s the phase lag, floored at 1e-6 rad), interleaved.
-pub(super) fn site_log_transfer(r: &Reducer) -> Vec<[f64; 2 * FIT_HZ.len()]> {
+/// What the fit sums over the sites a compartment serves, per site: its weight w, then at each
+/// fit frequency w·ln|Z_0s| and w/φ_s (φ_s the phase lag, floored at 1e-6 rad), interleaved.
+pub(super) type SiteSums = [f64; 1 + 2 * FIT_HZ.len()];
+
+/// [`SiteSums`] of every site (empty if the full cell's transfers failed).
+pub(super) fn site_sums(r: &Reducer) -> Vec<SiteSums> {
     let full = r.full_log_transfer();
     if full.iter().any(|v| v.len() != r.kept.len()) {
         return Vec::new();
     }
     r.site_fine
         .iter()
-        .map(|&(x, _)| {
+        .map(|&(x, w)| {
             let k = r.fine.flat_node[x as usize] as usize;
-            let mut out = [0.0; 2 * FIT_HZ.len()];
+            let mut out = [0.0; 1 + 2 * FIT_HZ.len()];
+            out[0] = w;
             for (fi, lz) in full.iter().enumerate() {
-                out[2 * fi] = lz[k].re;
-                out[2 * fi + 1] = 1.0 / (-lz[k].im).max(1e-6);
+                out[1 + 2 * fi] = w * lz[k].re;
+                out[2 + 2 * fi] = w / (-lz[k].im).max(1e-6);
             }
             out
         })
         .collect()
+}
+
+/// Per compartment, the [`SiteSums`] of the sites it serves: four fixed slices of the sites
+/// summed in parallel and added in slice order (the same numbers on every run); within a
+/// slice, consecutive sites mostly share a compartment, so its sums stay in registers over
+/// the run.
+fn compartment_sums(n: usize, serves_site: &[u32], per_site: &[SiteSums]) -> Vec<SiteSums> {
+    use rayon::prelude::*;
+    const SLICES: usize = 4;
+    let len = serves_site.len().div_ceil(SLICES).max(1);
+    let zero = [0.0; 1 + 2 * FIT_HZ.len()];
+    let parts: Vec<Vec<SiteSums>> = serves_site
+        .par_chunks(len)
+        .zip(per_site.par_chunks(len))
+        .map(|(cs, ss)| {
+            let mut sums = vec![zero; n];
+            let mut run = (usize::MAX, zero);
+            for (&c, s) in cs.iter().zip(ss) {
+                let c = c as usize;
+                if c != run.0 {
+                    if run.0 != usize::MAX {
+                        sums[run.0] = run.1;
+                    }
+                    run = (c, sums[c]);
+                }
+                run.1.iter_mut().zip(s).for_each(|(a, v)| *a += v);
+            }
+            if run.0 != usize::MAX {
+                sums[run.0] = run.1;
+            }
+            sums
+        })
+        .collect();
+    let mut total = vec![zero; n];
+    for part in &parts {
+        for (t, p) in total.iter_mut().zip(part) {
+            t.iter_mut().zip(p).for_each(|(a, v)| *a += v);
+        }
+    }
+    total
 }
 
 /// The fitting problem of one reduced tree.
@@ -125,19 +184,34 @@ struct Problem<'a> {
     slow_weight: f64,
 }
 
+/// Largest tree whose fit evaluates its frequencies one after another; larger trees evaluate
+/// them (and the slowest-mode estimate) in parallel, where each is worth a thread's start.
+const SERIAL_MAX_COMPARTMENTS: usize = 31;
+
+/// One fit frequency's buffers: the tree factored at it, ln Z_0c and Z_0c, the adjoint and
+/// this frequency's part of the gradient.
+struct FreqWork {
+    /// ω (rad/s) and the frequency's index in the targets.
+    w: f64,
+    fi: usize,
+    shunt: Vec<C64>,
+    fac: TreeFactor<C64>,
+    lz: Vec<C64>,
+    z: Vec<C64>,
+    y: Vec<C64>,
+    grad: Vec<f64>,
+}
+
 /// The buffers of one fit, reused by every evaluation (no allocation per evaluation), and what
 /// [`Problem::value`] leaves for [`Problem::gradient`] at the same θ.
 struct Work {
     /// Trial capacitances C_k = C0_k·e^θ_k.
     cap: Vec<f64>,
-    shunt: Vec<C64>,
-    /// Per fit frequency: the tree factored at it, and ln Z_0c.
-    fac: Vec<TreeFactor<C64>>,
-    lz: Vec<Vec<C64>>,
-    z: Vec<C64>,
-    y: Vec<C64>,
-    /// The slowest mode's solver (G fixed over the fit; each evaluation starts from the
-    /// previous one's mode), its xᵀCx and the penalised excess of ln(λτ).
+    freqs: Vec<FreqWork>,
+    /// Whether the frequencies run in parallel.
+    parallel: bool,
+    /// The slowest mode's solver (G fixed over the fit), its xᵀCx and the penalised excess of
+    /// ln(λτ).
     slow: SlowestMode,
     xcx: f64,
     excess: f64,
@@ -150,17 +224,53 @@ impl Work {
         let g: Vec<C64> = p.g.iter().map(|&x| C64::new(x, 0.0)).collect();
         let leak: Vec<C64> = p.leak.iter().map(|&x| C64::new(x, 0.0)).collect();
         let fac = TreeFactor::new(p.parent, &g, &leak);
+        let freqs = FIT_HZ
+            .iter()
+            .enumerate()
+            .map(|(fi, &f)| FreqWork {
+                w: 2.0 * std::f64::consts::PI * f,
+                fi,
+                shunt: leak.clone(),
+                fac: fac.clone(),
+                lz: zero.clone(),
+                z: zero.clone(),
+                y: zero.clone(),
+                grad: vec![0.0; n],
+            })
+            .collect();
         Work {
             cap: vec![0.0; n],
-            shunt: zero.clone(),
-            fac: vec![fac; FIT_HZ.len()],
-            lz: vec![zero.clone(); FIT_HZ.len()],
-            z: zero.clone(),
-            y: zero,
+            freqs,
+            parallel: n > SERIAL_MAX_COMPARTMENTS,
             slow: SlowestMode::new(p.parent, p.g, p.leak),
             xcx: 0.0,
             excess: 0.0,
         }
+    }
+}
+
+/// Runs `each` on every frequency's buffers and `slow` beside them: in parallel (rayon) when
+/// `parallel`, else in order; returns the frequencies' values in frequency order and `slow`'s.
+fn per_frequency<S: Send>(
+    freqs: &mut [FreqWork],
+    parallel: bool,
+    each: impl Fn(&mut FreqWork) -> f64 + Sync,
+    slow: impl FnOnce() -> S + Send,
+) -> (Vec<f64>, S) {
+    use rayon::prelude::*;
+    if parallel {
+        let (mut parts, mut other) = (Vec::new(), None);
+        rayon::join(
+            || parts = freqs.par_iter_mut().with_max_len(1).map(&each).collect(),
+            || other = Some(slow()),
+        );
+        match other {
+            Some(s) => (parts, s),
+            None => unreachable!("rayon::join ran both closures"),
+        }
+    } else {
+        let parts = freqs.iter_mut().map(each).collect();
+        (parts, slow())
     }
 }
 
@@ -175,47 +285,63 @@ impl Problem<'_> {
         for ((c, c0), t) in wk.cap.iter_mut().zip(&self.c0).zip(theta) {
             *c = c0 * t.exp();
         }
-        for (fi, &f) in FIT_HZ.iter().enumerate() {
-            let w = 2.0 * std::f64::consts::PI * f;
-            for ((s, &leak), c) in wk.shunt.iter_mut().zip(self.leak).zip(&wk.cap) {
-                *s = C64::new(leak, w * c);
-            }
-            let (fac, lz) = (&mut wk.fac[fi], &mut wk.lz[fi]);
-            fac.refactor(&wk.shunt);
-            log_soma_column(fac, lz);
-            for ((l, t), wt) in lz.iter().zip(&self.target[fi]).zip(&self.weight[fi]) {
-                total += wt * (l - t).norm_sqr();
-            }
-        }
-        total + self.slow_penalty(wk)
+        let cap = &wk.cap;
+        let slow = &mut wk.slow;
+        let (parts, (lam, xcx)) = per_frequency(
+            &mut wk.freqs,
+            wk.parallel,
+            |fw| {
+                for ((s, &leak), c) in fw.shunt.iter_mut().zip(self.leak).zip(cap) {
+                    *s = C64::new(leak, fw.w * c);
+                }
+                fw.fac.refactor(&fw.shunt);
+                log_soma_column(&fw.fac, &mut fw.lz, &mut fw.z);
+                let (target, weight) = (&self.target[fw.fi], &self.weight[fw.fi]);
+                let mut part = 0.0;
+                for ((l, t), wt) in fw.lz.iter().zip(target).zip(weight) {
+                    part += wt * (l - t).norm_sqr();
+                }
+                part
+            },
+            || slow.estimate(cap, SLOW_STEPS),
+        );
+        total += parts.iter().sum::<f64>();
+        total + self.slow_penalty(wk, lam, xcx)
     }
 
     /// Gradient at the θ of the last [`Problem::value`] call, by one adjoint solve per frequency:
     /// ∂Z_0c/∂C_k = −jω·Z_0k·Z_kc.
     fn gradient(&self, wk: &mut Work, theta: &[f64], grad: &mut [f64]) {
-        let n = self.parent.len();
         for (gk, t) in grad.iter_mut().zip(theta) {
             *gk = 2.0 * self.ridge * t;
         }
-        let Work {
-            cap, fac, lz, z, y, ..
-        } = wk;
-        for (fi, &f) in FIT_HZ.iter().enumerate() {
-            let w = 2.0 * std::f64::consts::PI * f;
-            let lz = &lz[fi];
-            for k in 0..n {
-                let r = lz[k] - self.target[fi][k];
-                let wt = self.weight[fi][k];
-                z[k] = lz[k].exp();
-                // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
-                y[k] = wt * r.conj() / z[k];
-            }
-            // y = Z·a (the network is reciprocal: Z is symmetric)
-            fac[fi].solve_in_place(y);
-            for k in 0..n {
-                let dj = C64::new(0.0, -w * cap[k]) * z[k] * y[k];
-                grad[k] += 2.0 * dj.re;
-            }
+        let cap = &wk.cap;
+        per_frequency(
+            &mut wk.freqs,
+            wk.parallel,
+            |fw| {
+                let (target, weight) = (&self.target[fw.fi], &self.weight[fw.fi]);
+                let FreqWork {
+                    w, lz, z, y, grad, ..
+                } = fw;
+                for ((((y, l), t), wt), z) in
+                    y.iter_mut().zip(&*lz).zip(target).zip(weight).zip(&*z)
+                {
+                    // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
+                    *y = wt * (l - t).conj() / z;
+                }
+                // y = Z·a (the network is reciprocal: Z is symmetric)
+                fw.fac.solve_in_place(y);
+                for (((gk, c), z), y) in grad.iter_mut().zip(cap).zip(&*z).zip(&*y) {
+                    let dj = C64::new(0.0, -*w * c) * z * y;
+                    *gk = 2.0 * dj.re;
+                }
+                0.0
+            },
+            || (),
+        );
+        for fw in &wk.freqs {
+            grad.iter_mut().zip(&fw.grad).for_each(|(a, b)| *a += b);
         }
         if wk.excess != 0.0 && wk.excess.is_finite() {
             let (x, cap) = (wk.slow.mode(), &wk.cap);
@@ -229,8 +355,7 @@ impl Problem<'_> {
     /// (Rall 1969): a quadratic penalty on ln(λτ) outside the band; its gradient (in
     /// [`Problem::gradient`]) from the eigenvalue's first-order perturbation,
     /// ∂λ/∂C_k = −λ·x_k² / xᵀCx, and ∂/∂θ_k = C_k·∂/∂C_k.
-    fn slow_penalty(&self, wk: &mut Work) -> f64 {
-        let (lam, xcx) = wk.slow.estimate(&wk.cap, SLOW_STEPS);
+    fn slow_penalty(&self, wk: &mut Work, lam: f64, xcx: f64) -> f64 {
         let d = (lam * self.tau_s).ln();
         let band = SLOW_BAND.ln_1p();
         wk.excess = d.signum() * (d.abs() - band).max(0.0);
@@ -257,35 +382,18 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     let fine = &r.fine;
     // phase lag targets are harmonic means (Σw / Σ(w/φ)): delays are judged relative to their
     // own size, so a compartment should not run late for the nearest of its sites
-    let mut sums = vec![[0.0; 2 * FIT_HZ.len()]; n];
-    let mut wsum = vec![0.0; n];
-    // consecutive sites mostly share a compartment: its sums stay in registers over the run
-    // (the same additions in the same order as one at a time)
-    let mut run = (usize::MAX, 0.0, [0.0; 2 * FIT_HZ.len()]);
-    for ((&c, &(_, w)), per) in serves_site
-        .iter()
-        .zip(&r.site_fine)
-        .zip(r.site_log_transfer())
-    {
-        let c = c as usize;
-        if c != run.0 {
-            if run.0 != usize::MAX {
-                (wsum[run.0], sums[run.0]) = (run.1, run.2);
-            }
-            run = (c, wsum[c], sums[c]);
-        }
-        run.1 += w;
-        run.2.iter_mut().zip(per).for_each(|(a, v)| *a += w * v);
+    let per_site = r.site_sums();
+    if per_site.len() != serves_site.len() {
+        return c0;
     }
-    if run.0 != usize::MAX {
-        (wsum[run.0], sums[run.0]) = (run.1, run.2);
-    }
+    let sums = compartment_sums(n, serves_site, per_site);
+    let wsum: Vec<f64> = sums.iter().map(|s| s[0]).collect();
     let mut target = vec![vec![C64::new(0.0, 0.0); n]; FIT_HZ.len()];
     let mut inv_phase = vec![vec![0.0; n]; FIT_HZ.len()];
     for (c, sum) in sums.iter().enumerate() {
         for fi in 0..FIT_HZ.len() {
-            target[fi][c].re = sum[2 * fi];
-            inv_phase[fi][c] = sum[2 * fi + 1];
+            target[fi][c].re = sum[1 + 2 * fi];
+            inv_phase[fi][c] = sum[2 + 2 * fi];
         }
     }
     let total_w: f64 = wsum.iter().sum();
@@ -325,7 +433,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         slow_weight: SLOW_WEIGHT * SOMA_WEIGHT * total_w.max(1e-30),
     };
     // iterations shrink with the tree so any budget stays quick (200 up to 31 compartments)
-    let iters = (200 * 31 / n).clamp(30, 200);
+    let iters = (200 * 31 / n).clamp(8, 200);
     let theta = lbfgs(&prob, n, iters);
     let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {

@@ -375,7 +375,7 @@ pub struct Reducer {
     /// `full_lz` at the serving frequencies, indexed by fine node.
     serve_lz: OnceLock<Vec<Vec<C64>>>,
     /// Per site, what the capacitance fit sums (ln|Z| and 1/phase at each fit frequency).
-    site_lz: OnceLock<Vec<[f64; 2 * capacitance::FIT_HZ.len()]>>,
+    site_sums: OnceLock<Vec<capacitance::SiteSums>>,
 }
 
 /// Checks the options and parameters once.
@@ -520,7 +520,7 @@ impl Reducer {
             z_full_freq: OnceLock::new(),
             full_lz,
             serve_lz: OnceLock::new(),
-            site_lz: OnceLock::new(),
+            site_sums: OnceLock::new(),
         })
     }
     /// Compartments of the maximal tree (odd; 2·tips − 1 plus one for a single-stem soma).
@@ -595,6 +595,12 @@ impl Reducer {
     /// the first (max − budget)/2 collapses of the order, places each leaf, and Kron-reduces the
     /// fine network onto the kept nodes; O(N).
     pub fn tree(&self, budget: usize) -> ReducedTree {
+        // on a worker of the thread pool: its parallel steps (the serving, the fit's
+        // frequencies) are then joins inside the pool, and no idle worker spins against it
+        rayon::scope(|_| self.build_tree(budget))
+    }
+
+    fn build_tree(&self, budget: usize) -> ReducedTree {
         let nm = self.max_compartments();
         let b = self.effective_budget(budget);
         let (fine, sk) = (&self.fine, &self.sk);
@@ -703,11 +709,10 @@ impl Reducer {
         &self.full_lz
     }
 
-    /// Per site, ln|Z| and 1/phase lag at the fit frequencies (see
-    /// `capacitance::site_log_transfer`), computed once.
-    fn site_log_transfer(&self) -> &[[f64; 2 * capacitance::FIT_HZ.len()]] {
-        self.site_lz
-            .get_or_init(|| capacitance::site_log_transfer(self))
+    /// Per site, what the fit sums per compartment (see `capacitance::site_sums`), computed
+    /// once.
+    fn site_sums(&self) -> &[capacitance::SiteSums] {
+        self.site_sums.get_or_init(|| capacitance::site_sums(self))
     }
 
     /// The full cell's complex log transfer to the soma at the serving frequencies, per fine

@@ -125,9 +125,22 @@ impl SlowestMode {
     /// the 100k-point cell); it weights the near-slowest modes together. Returns the Rayleigh
     /// quotient and xᵀCx, the iterate left in [`SlowestMode::mode`].
     pub(crate) fn estimate(&mut self, cap: &[f64], steps: usize) -> (f64, f64) {
-        self.x.clear();
-        self.x.resize(self.leak.len(), 1.0);
-        self.iterate(false, cap, steps, 0.0)
+        let x = &mut self.x;
+        x.clear();
+        x.resize(self.leak.len(), 1.0);
+        // no Rayleigh quotient until the end (nothing stops early); the scale is reset every
+        // few steps only to stay far from underflow (each step scales x by about τ in s)
+        for step in 1..=steps {
+            x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
+            self.g_fac.solve_in_place(x);
+            if step % 4 == 0 && step < steps {
+                let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
+                x.iter_mut().for_each(|v| *v /= norm);
+            }
+        }
+        let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
+        let (parent, g) = (self.g_fac.parent(), self.g_fac.series());
+        scaled_rayleigh(x, norm, parent, g, &self.leak, cap)
     }
 
     /// Number of modes below σ: the negative pivots of G − σ·C (see the module documentation).
