@@ -105,7 +105,7 @@ fn fast_ln(z: C64) -> C64 {
 
 /// What the fit sums over the sites a compartment serves, per site: its weight w, then at each
 /// fit frequency w·ln|Z_0s| and w/φ_s (φ_s the phase lag, floored at 1e-6 rad), interleaved.
-pub(super) type SiteSums = [f64; 1 + 2 * FIT_HZ.len()];
+pub(super) type SiteSums = [f32; 1 + 2 * FIT_HZ.len()];
 
 /// [`SiteSums`] of every site (empty if the full cell's transfers failed).
 pub(super) fn site_sums(r: &Reducer) -> Vec<SiteSums> {
@@ -118,10 +118,10 @@ pub(super) fn site_sums(r: &Reducer) -> Vec<SiteSums> {
         .map(|&(x, w)| {
             let k = r.fine.flat_node[x as usize] as usize;
             let mut out = [0.0; 1 + 2 * FIT_HZ.len()];
-            out[0] = w;
+            out[0] = w as f32;
             for (fi, lz) in full.iter().enumerate() {
-                out[1 + 2 * fi] = w * lz[k].re;
-                out[2 + 2 * fi] = w / (-lz[k].im).max(1e-6);
+                out[1 + 2 * fi] = (w * lz[k].re) as f32;
+                out[2 + 2 * fi] = (w / (-lz[k].im).max(1e-6)) as f32;
             }
             out
         })
@@ -132,12 +132,16 @@ pub(super) fn site_sums(r: &Reducer) -> Vec<SiteSums> {
 /// summed in parallel and added in slice order (the same numbers on every run); within a
 /// slice, consecutive sites mostly share a compartment, so its sums stay in registers over
 /// the run.
-fn compartment_sums(n: usize, serves_site: &[u32], per_site: &[SiteSums]) -> Vec<SiteSums> {
+fn compartment_sums(
+    n: usize,
+    serves_site: &[u32],
+    per_site: &[SiteSums],
+) -> Vec<[f64; 1 + 2 * FIT_HZ.len()]> {
     use rayon::prelude::*;
     const SLICES: usize = 4;
     let len = serves_site.len().div_ceil(SLICES).max(1);
     let zero = [0.0; 1 + 2 * FIT_HZ.len()];
-    let parts: Vec<Vec<SiteSums>> = serves_site
+    let parts: Vec<Vec<[f64; 1 + 2 * FIT_HZ.len()]>> = serves_site
         .par_chunks(len)
         .zip(per_site.par_chunks(len))
         .map(|(cs, ss)| {
@@ -151,7 +155,10 @@ fn compartment_sums(n: usize, serves_site: &[u32], per_site: &[SiteSums]) -> Vec
                     }
                     run = (c, sums[c]);
                 }
-                run.1.iter_mut().zip(s).for_each(|(a, v)| *a += v);
+                run.1
+                    .iter_mut()
+                    .zip(s)
+                    .for_each(|(a, v)| *a += f64::from(*v));
             }
             if run.0 != usize::MAX {
                 sums[run.0] = run.1;
@@ -432,8 +439,10 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
         tau_s,
         slow_weight: SLOW_WEIGHT * SOMA_WEIGHT * total_w.max(1e-30),
     };
-    // iterations shrink with the tree so any budget stays quick (200 up to 31 compartments)
-    let iters = (200 * 31 / n).clamp(8, 200);
+    // iterations shrink with the tree so any budget stays quick: 200 up to 31 compartments,
+    // 98 at 63 (the budgets the fidelity targets are set at), half as many per compartment
+    // above (24 at 127, 8 from 388)
+    let iters = if n <= 63 { 200 * 31 / n } else { 100 * 31 / n }.clamp(8, 200);
     let theta = lbfgs(&prob, n, iters);
     let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
