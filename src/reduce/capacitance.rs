@@ -195,6 +195,12 @@ struct Problem<'a> {
 /// them (and the slowest-mode estimate) in parallel, where each is worth a thread's start.
 const SERIAL_MAX_COMPARTMENTS: usize = 31;
 
+/// Largest tree fitted at all of [`FIT_HZ`]; larger trees are fitted at every other one (5,
+/// 40 and 250 Hz), half the cost per evaluation: on the 100,000-point cell at 127–1,023
+/// compartments the trees' EPSP peak and time-to-peak p95 stay within 0.5 % of the six-frequency
+/// fit's (docs/fidelity.md, session 8).
+const ALL_HZ_MAX_COMPARTMENTS: usize = 63;
+
 /// One fit frequency's buffers: the tree factored at it, ln Z_0c and Z_0c, the adjoint and
 /// this frequency's part of the gradient.
 struct FreqWork {
@@ -234,6 +240,7 @@ impl Work {
         let freqs = FIT_HZ
             .iter()
             .enumerate()
+            .filter(|(fi, _)| n <= ALL_HZ_MAX_COMPARTMENTS || fi % 2 == 0)
             .map(|(fi, &f)| FreqWork {
                 w: 2.0 * std::f64::consts::PI * f,
                 fi,
@@ -444,11 +451,31 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     // above (24 at 127, 8 from 388)
     let iters = if n <= 63 { 200 * 31 / n } else { 100 * 31 / n }.clamp(8, 200);
     let theta = lbfgs(&prob, n, iters);
-    let fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
+    let mut fitted: Vec<f64> = (0..n).map(|k| c0[k] * theta[k].exp()).collect();
+    hold_slowest_in_band(&kept.parent, &kept.g, &kept.shunt, &mut fitted, tau_s);
     if fitted.iter().all(|c| c.is_finite() && *c > 0.0) {
         fitted
     } else {
         c0
+    }
+}
+
+/// The fit's slow-mode term is a penalty, so the fitted tree's slowest time constant can end
+/// outside its band when the frequency terms pull hard (5 % off on a random tree of three
+/// compartments). Certified (see `reduce::slowest`), τ₀ outside τ·(1 ± SLOW_BAND) is brought to
+/// the band's nearer edge by scaling every capacitance by the same factor — all time constants
+/// scale with C, so this is exact and keeps the fitted shape of the response.
+fn hold_slowest_in_band(parent: &[u32], g: &[f64], leak: &[f64], cap: &mut [f64], tau_s: f64) {
+    let (lam, _) = SlowestMode::new(parent, g, leak).solve(cap, 1e-10);
+    let tau0 = 1.0 / lam;
+    if !(tau0.is_finite() && tau0 > 0.0) {
+        return;
+    }
+    let (lo, hi) = (tau_s / (1.0 + SLOW_BAND), tau_s * (1.0 + SLOW_BAND));
+    let target = tau0.clamp(lo, hi);
+    if target != tau0 {
+        let s = target / tau0;
+        cap.iter_mut().for_each(|c| *c *= s);
     }
 }
 
