@@ -466,12 +466,19 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
 /// the band's nearer edge by scaling every capacitance by the same factor — all time constants
 /// scale with C, so this is exact and keeps the fitted shape of the response.
 fn hold_slowest_in_band(parent: &[u32], g: &[f64], leak: &[f64], cap: &mut [f64], tau_s: f64) {
-    let (lam, _) = SlowestMode::new(parent, g, leak).solve(cap, 1e-10);
+    let (lo, hi) = (tau_s / (1.0 + SLOW_BAND), tau_s * (1.0 + SLOW_BAND));
+    let mut slow = SlowestMode::new(parent, g, leak);
+    // inside the band when no mode is below 1/hi and one is below 1/lo: two eliminations
+    if slow.count_below(cap, 1.0 / hi) == Some(0)
+        && slow.count_below(cap, 1.0 / lo).is_some_and(|k| k >= 1)
+    {
+        return;
+    }
+    let (lam, _) = slow.solve(cap, 1e-10);
     let tau0 = 1.0 / lam;
     if !(tau0.is_finite() && tau0 > 0.0) {
         return;
     }
-    let (lo, hi) = (tau_s / (1.0 + SLOW_BAND), tau_s * (1.0 + SLOW_BAND));
     let target = tau0.clamp(lo, hi);
     if target != tau0 {
         let s = target / tau0;

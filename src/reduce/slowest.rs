@@ -143,8 +143,9 @@ impl SlowestMode {
         scaled_rayleigh(x, norm, parent, g, &self.leak, cap)
     }
 
-    /// Number of modes below σ: the negative pivots of G − σ·C (see the module documentation).
-    fn count_below(&mut self, cap: &[f64], sigma: f64) -> Option<usize> {
+    /// Number of modes below σ: the negative pivots of G − σ·C (see the module documentation);
+    /// `None` when a pivot is zero or not finite.
+    pub(crate) fn count_below(&mut self, cap: &[f64], sigma: f64) -> Option<usize> {
         for ((s, &l), &c) in self.shunt.iter_mut().zip(&self.leak).zip(cap) {
             *s = l - sigma * c;
         }
