@@ -31,8 +31,10 @@ pub(super) const SERVE_HZ_INDEX: [usize; 2] = [2, 3];
 pub(super) const TIMING_HZ_INDEX: usize = 2;
 
 /// Largest tree whose capacitances are fitted; bigger trees (close to the cell already) keep
-/// C = τ·G, so any budget stays within a few milliseconds.
-pub const FIT_MAX_COMPARTMENTS: usize = 1023;
+/// C = τ·G, so any budget of a 100,000-point cell stays under 10 ms. What it costs, measured on
+/// that cell at 1,023 compartments: time-to-peak p95 8.9 % fitted against 10.8 % with τ·G, EPSP
+/// peak p95 0.464 against 0.466 Np, the soma's own EPSP 0.2 % against 0.3 %.
+pub const FIT_MAX_COMPARTMENTS: usize = 511;
 
 /// Weight of the soma's own input impedance relative to all sites together.
 const SOMA_WEIGHT: f64 = 10.0;
