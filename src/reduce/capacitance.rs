@@ -265,25 +265,28 @@ impl Work {
     }
 }
 
-/// Runs `each` on every frequency's buffers and `slow` beside them: in parallel (rayon) when
-/// `parallel`, else in order; returns the frequencies' values in frequency order and `slow`'s.
+/// Runs `each` on every frequency's buffers and `slow` beside them: when `parallel`, as two
+/// halves with one rayon join (the first `first` frequencies and `slow` on one side, the rest
+/// on the other: one hand-over per evaluation, not one per frequency), else in order; returns
+/// the frequencies' values in frequency order and `slow`'s.
 fn per_frequency<S: Send>(
     freqs: &mut [FreqWork],
     parallel: bool,
+    first: usize,
     each: impl Fn(&mut FreqWork) -> f64 + Sync,
     slow: impl FnOnce() -> S + Send,
 ) -> (Vec<f64>, S) {
-    use rayon::prelude::*;
     if parallel {
-        let (mut parts, mut other) = (Vec::new(), None);
-        rayon::join(
-            || parts = freqs.par_iter_mut().with_max_len(1).map(&each).collect(),
-            || other = Some(slow()),
+        let (a, b) = freqs.split_at_mut(first.min(freqs.len()));
+        let ((mut parts, s), rest) = rayon::join(
+            || {
+                let s = slow();
+                (a.iter_mut().map(&each).collect::<Vec<f64>>(), s)
+            },
+            || b.iter_mut().map(&each).collect::<Vec<f64>>(),
         );
-        match other {
-            Some(s) => (parts, s),
-            None => unreachable!("rayon::join ran both closures"),
-        }
+        parts.extend(rest);
+        (parts, s)
     } else {
         let parts = freqs.iter_mut().map(each).collect();
         (parts, slow())
@@ -303,9 +306,12 @@ impl Problem<'_> {
         }
         let cap = &wk.cap;
         let slow = &mut wk.slow;
+        // the slowest-mode estimate costs about two frequencies
+        let first = wk.freqs.len() / 3;
         let (parts, (lam, xcx)) = per_frequency(
             &mut wk.freqs,
             wk.parallel,
+            first,
             |fw| {
                 for ((s, &leak), c) in fw.shunt.iter_mut().zip(self.leak).zip(cap) {
                     *s = C64::new(leak, fw.w * c);
@@ -332,9 +338,11 @@ impl Problem<'_> {
             *gk = 2.0 * self.ridge * t;
         }
         let cap = &wk.cap;
+        let half = wk.freqs.len() / 2;
         per_frequency(
             &mut wk.freqs,
             wk.parallel,
+            half,
             |fw| {
                 let (target, weight) = (&self.target[fw.fi], &self.weight[fw.fi]);
                 let FreqWork {
