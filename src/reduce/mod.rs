@@ -621,32 +621,16 @@ impl Reducer {
             .collect();
         let kron = build::kron(fine, &keep, &dynamics);
         let m = kron.node.len();
-        let mut area = vec![0.0; m];
-        // consecutive fine nodes mostly share a compartment: sum each run in a register (the
-        // same additions in the same order as one node at a time)
-        let mut run = (NONE, 0.0);
-        for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
-            if c != run.0 {
-                if run.0 != NONE {
-                    area[run.0 as usize] = run.1;
-                }
-                run = (c, area[c as usize]);
-            }
-            run.1 += ax;
-        }
-        if run.0 != NONE {
-            area[run.0 as usize] = run.1;
-        }
         let site_compartment: Vec<u32> = self
             .site_fine
             .iter()
             .map(|&(x, _)| kron.serves[x as usize])
             .collect();
-        let mut count = vec![0u32; m];
-        for &c in &site_compartment {
-            count[c as usize] += 1;
-        }
-        let cap = capacitance::assign(self, &kron, &site_compartment);
+        // the fit and the per-node bookkeeping it does not need, side by side
+        let (cap, (area, count, point_compartment)) = rayon::join(
+            || capacitance::assign(self, &kron, &site_compartment),
+            || self.areas_counts_points(&kron, &site_compartment),
+        );
         // children per compartment, in id order (a count and the first two: strict binary)
         let mut kids = vec![(0usize, [0u32; 2]); m];
         for c in 1..m {
@@ -679,18 +663,6 @@ impl Reducer {
                 swc_type: self.kept.kind[k],
             });
         }
-        let point_compartment = self
-            .kept
-            .point_node
-            .iter()
-            .map(|&k| {
-                if k == NONE {
-                    NONE
-                } else {
-                    kron.serves[fine.of_flat[k as usize] as usize]
-                }
-            })
-            .collect();
         ReducedTree {
             compartments: comps,
             point_compartment,
@@ -702,6 +674,49 @@ impl Reducer {
             clamped: budget == 0 || budget > nm,
             params: self.params,
         }
+    }
+
+    /// Per compartment of a Kron-reduced tree: its membrane area (µm², the fine nodes it serves)
+    /// and its number of sites; per point of the kept cell, its compartment.
+    fn areas_counts_points(
+        &self,
+        kron: &build::Kept,
+        site_compartment: &[u32],
+    ) -> (Vec<f64>, Vec<u32>, Vec<u32>) {
+        let (fine, m) = (&self.fine, kron.node.len());
+        let mut area = vec![0.0; m];
+        // consecutive fine nodes mostly share a compartment: sum each run in a register (the
+        // same additions in the same order as one node at a time)
+        let mut run = (NONE, 0.0);
+        for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
+            if c != run.0 {
+                if run.0 != NONE {
+                    area[run.0 as usize] = run.1;
+                }
+                run = (c, area[c as usize]);
+            }
+            run.1 += ax;
+        }
+        if run.0 != NONE {
+            area[run.0 as usize] = run.1;
+        }
+        let mut count = vec![0u32; m];
+        for &c in site_compartment {
+            count[c as usize] += 1;
+        }
+        let points = self
+            .kept
+            .point_node
+            .iter()
+            .map(|&k| {
+                if k == NONE {
+                    NONE
+                } else {
+                    kron.serves[fine.of_flat[k as usize] as usize]
+                }
+            })
+            .collect();
+        (area, count, points)
     }
 
     /// The full cell's complex log transfer to the soma at the fit frequencies.
