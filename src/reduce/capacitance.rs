@@ -67,11 +67,10 @@ pub(super) fn full_log_transfer(kept: &Flat, params: &Params) -> Vec<Vec<C64>> {
                 Err(_) => return Vec::new(),
             };
             let mut lz = vec![C64::new(0.0, 0.0); net.len()];
-            let mut z = lz.clone();
             log_soma_column(
                 &TreeFactor::new(&net.parent, &net.g, &net.shunt),
                 &mut lz,
-                &mut z,
+                None,
             );
             lz
         })
@@ -80,16 +79,20 @@ pub(super) fn full_log_transfer(kept: &Flat, params: &Params) -> Vec<Vec<C64>> {
 
 /// The soma column, in log form with the phase unwrapped along each path and as it is:
 /// ln Z_00 = −ln D_0 and ln Z_c0 = ln Z_p0 + ln(g/(g + D_c)), Z_c0 = Z_p0·g/(g + D_c) (the
-/// downward voltage ratios of Hines 1984's elimination).
-fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64], z: &mut [C64]) {
-    if let (Some(first), Some(z0)) = (lz.first_mut(), z.first_mut()) {
-        *z0 = C64::new(1.0, 0.0) / f.root_admittance();
+/// downward voltage ratios of Hines 1984's elimination); Z only when `z` is given.
+fn log_soma_column(f: &TreeFactor<C64>, lz: &mut [C64], mut z: Option<&mut [C64]>) {
+    if let Some(first) = lz.first_mut() {
         *first = -f.root_admittance().ln();
+    }
+    if let Some(z0) = z.as_deref_mut().and_then(|z| z.first_mut()) {
+        *z0 = C64::new(1.0, 0.0) / f.root_admittance();
     }
     for k in 1..lz.len() {
         let (p, down) = (f.parent()[k] as usize, f.down()[k]);
         lz[k] = lz[p] + fast_ln(down);
-        z[k] = z[p] * down;
+        if let Some(z) = z.as_deref_mut() {
+            z[k] = z[p] * down;
+        }
     }
 }
 
@@ -317,7 +320,7 @@ impl Problem<'_> {
                     *s = C64::new(leak, fw.w * c);
                 }
                 fw.fac.refactor(&fw.shunt);
-                log_soma_column(&fw.fac, &mut fw.lz, &mut fw.z);
+                log_soma_column(&fw.fac, &mut fw.lz, Some(&mut fw.z));
                 let (target, weight) = (&self.target[fw.fi], &self.weight[fw.fi]);
                 let mut part = 0.0;
                 for ((l, t), wt) in fw.lz.iter().zip(target).zip(weight) {

@@ -374,7 +374,8 @@ pub struct Reducer {
     full_lz: Vec<Vec<C64>>,
     /// `full_lz` at the serving frequencies, indexed by fine node.
     serve_lz: OnceLock<Vec<Vec<C64>>>,
-    /// Per site, what the capacitance fit sums (ln|Z| and 1/phase at each fit frequency).
+    /// Per site, what the capacitance fit sums (weight, and weighted ln|Z| and 1/phase at each
+    /// fit frequency).
     site_sums: OnceLock<Vec<capacitance::SiteSums>>,
 }
 

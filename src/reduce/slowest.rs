@@ -53,24 +53,21 @@ impl SlowestMode {
         }
     }
 
-    /// The mode found by the last [`SlowestMode::solve`] (unit length).
+    /// The mode of the last [`SlowestMode::solve`] or [`SlowestMode::estimate`] (unit length).
     pub(crate) fn mode(&self) -> &[f64] {
         &self.x
     }
 
     /// λ₀ for capacitances `cap` (1/s for S and F) within relative `eps` (λ₀ ∈ [λ(1 − ε), λ]
     /// when certified, see the module documentation) and xᵀCx of the mode left in
-    /// [`SlowestMode::mode`]. A previous call's mode is the start.
+    /// [`SlowestMode::mode`]. Starts from the uniform voltage.
     pub(crate) fn solve(&mut self, cap: &[f64], eps: f64) -> (f64, f64) {
         let n = self.leak.len();
         if n == 0 || cap.len() != n {
             return (0.0, 0.0);
         }
-        let warm = self.x.len() == n && self.x.iter().all(|v| v.is_finite() && *v > 0.0);
-        if !warm {
-            self.x.clear();
-            self.x.resize(n, 1.0);
-        }
+        self.x.clear();
+        self.x.resize(n, 1.0);
         let (lam, xcx) = self.iterate(false, cap, PLAIN_STEPS, 0.1 * eps);
         if self.count_below(cap, lam * (1.0 - eps)) == Some(0) {
             return (lam, xcx);
@@ -121,7 +118,7 @@ impl SlowestMode {
     /// The fit's estimate: `steps` steps of inverse iteration from the uniform voltage, no
     /// certificate. A fixed number of steps from a fixed start makes the estimate a smooth
     /// function of C, which the fit's line search needs (λ₀ itself has corners where the
-    /// slowest two modes cross, and on reduced trees they are close: τ₁/τ₀ ≈ 0.995–0.9999 on
+    /// slowest two modes cross, and on reduced trees they are close: τ₁/τ₀ ≈ 0.984–0.9999 on
     /// the 100k-point cell); it weights the near-slowest modes together. Returns the Rayleigh
     /// quotient and xᵀCx, the iterate left in [`SlowestMode::mode`].
     pub(crate) fn estimate(&mut self, cap: &[f64], steps: usize) -> (f64, f64) {
@@ -134,13 +131,12 @@ impl SlowestMode {
             x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
             self.g_fac.solve_in_place(x);
             if step % 4 == 0 && step < steps {
-                let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
-                x.iter_mut().for_each(|v| *v /= norm);
+                let s = norm(x);
+                x.iter_mut().for_each(|v| *v /= s);
             }
         }
-        let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
         let (parent, g) = (self.g_fac.parent(), self.g_fac.series());
-        scaled_rayleigh(x, norm, parent, g, &self.leak, cap)
+        scaled_rayleigh(x, parent, g, &self.leak, cap)
     }
 
     /// Number of modes below σ: the negative pivots of G − σ·C (see the module documentation);
@@ -160,18 +156,11 @@ impl SlowestMode {
         let fac = if shifted { &self.shifted } else { &self.g_fac };
         let (parent, g) = (self.g_fac.parent(), self.g_fac.series());
         let x = &mut self.x;
-        // the uniform start as it is (the fit's estimate has always started from it unscaled)
-        let norm = if x.iter().all(|&v| v == 1.0) {
-            1.0
-        } else {
-            x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300)
-        };
-        let (mut lam, mut xcx) = scaled_rayleigh(x, norm, parent, g, &self.leak, cap);
+        let (mut lam, mut xcx) = scaled_rayleigh(x, parent, g, &self.leak, cap);
         for _ in 0..steps {
             x.iter_mut().zip(cap).for_each(|(a, c)| *a *= c);
             fac.solve_in_place(x);
-            let norm = x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
-            let (next, next_xcx) = scaled_rayleigh(x, norm, parent, g, &self.leak, cap);
+            let (next, next_xcx) = scaled_rayleigh(x, parent, g, &self.leak, cap);
             let moved = ((next - lam) / next).abs();
             (lam, xcx) = (next, next_xcx);
             if moved < tol {
@@ -182,15 +171,20 @@ impl SlowestMode {
     }
 }
 
-/// Scales x by 1/norm and returns the Rayleigh quotient xᵀGx / xᵀCx and xᵀCx.
+/// Euclidean length of x (floored, so a zero vector divides safely).
+fn norm(x: &[f64]) -> f64 {
+    x.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300)
+}
+
+/// Scales x to unit length and returns the Rayleigh quotient xᵀGx / xᵀCx and xᵀCx.
 fn scaled_rayleigh(
     x: &mut [f64],
-    norm: f64,
     parent: &[u32],
     g: &[f64],
     leak: &[f64],
     cap: &[f64],
 ) -> (f64, f64) {
+    let norm = norm(x);
     let (mut xgx, mut xcx) = (-0.0, -0.0);
     for ((v, &l), &c) in x.iter_mut().zip(leak).zip(cap) {
         *v /= norm;
@@ -277,13 +271,13 @@ mod tests {
                 (got / want - 1.0).abs() < 1e-8,
                 "case {case}: λ {got} vs nalgebra {want}"
             );
-            // warm from another tree's mode (here: a mode for other capacitances)
+            // the same solver again, for other capacitances
             let cap2: Vec<f64> = cap.iter().rev().copied().collect();
             let (got2, _) = solver.solve(&cap2, 1e-10);
             let want2 = dense_lambda(&parent, &g, &leak, &cap2);
             assert!(
                 (got2 / want2 - 1.0).abs() < 1e-8,
-                "case {case} warm: λ {got2} vs nalgebra {want2}"
+                "case {case} again: λ {got2} vs nalgebra {want2}"
             );
         }
     }
