@@ -296,6 +296,25 @@ fn per_frequency<S: Send>(
     }
 }
 
+/// One frequency's part of the gradient, by one adjoint solve: ∂Z_0c/∂C_k = −jω·Z_0k·Z_kc.
+/// Computed with every value (one hand-over per evaluation, not two; a rejected line-search
+/// step wastes only these solves).
+fn adjoint_gradient(fw: &mut FreqWork, target: &[C64], weight: &[f64], cap: &[f64]) {
+    let FreqWork {
+        w, lz, z, y, grad, ..
+    } = fw;
+    for ((((y, l), t), wt), z) in y.iter_mut().zip(&*lz).zip(target).zip(weight).zip(&*z) {
+        // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
+        *y = wt * (l - t).conj() / z;
+    }
+    // y = Z·a (the network is reciprocal: Z is symmetric)
+    fw.fac.solve_in_place(y);
+    for (((gk, c), z), y) in grad.iter_mut().zip(cap).zip(&*z).zip(&*y) {
+        let dj = C64::new(0.0, -*w * c) * z * y;
+        *gk = 2.0 * dj.re;
+    }
+}
+
 impl Problem<'_> {
     /// Objective at θ; keeps in `wk` what [`Problem::gradient`] needs. A rejected line-search
     /// step costs only this.
@@ -326,6 +345,7 @@ impl Problem<'_> {
                 for ((l, t), wt) in fw.lz.iter().zip(target).zip(weight) {
                     part += wt * (l - t).norm_sqr();
                 }
+                adjoint_gradient(fw, target, weight, cap);
                 part
             },
             || slow.estimate(cap, SLOW_STEPS),
@@ -334,39 +354,12 @@ impl Problem<'_> {
         total + self.slow_penalty(wk, lam, xcx)
     }
 
-    /// Gradient at the θ of the last [`Problem::value`] call, by one adjoint solve per frequency:
-    /// ∂Z_0c/∂C_k = −jω·Z_0k·Z_kc.
+    /// Gradient at the θ of the last [`Problem::value`] call, from the frequencies' parts that
+    /// call left (see [`adjoint_gradient`]).
     fn gradient(&self, wk: &mut Work, theta: &[f64], grad: &mut [f64]) {
         for (gk, t) in grad.iter_mut().zip(theta) {
             *gk = 2.0 * self.ridge * t;
         }
-        let cap = &wk.cap;
-        let half = wk.freqs.len() / 2;
-        per_frequency(
-            &mut wk.freqs,
-            wk.parallel,
-            half,
-            |fw| {
-                let (target, weight) = (&self.target[fw.fi], &self.weight[fw.fi]);
-                let FreqWork {
-                    w, lz, z, y, grad, ..
-                } = fw;
-                for ((((y, l), t), wt), z) in
-                    y.iter_mut().zip(&*lz).zip(target).zip(weight).zip(&*z)
-                {
-                    // adjoint right-hand side a_c = W·conj(r_c)/Z_c0
-                    *y = wt * (l - t).conj() / z;
-                }
-                // y = Z·a (the network is reciprocal: Z is symmetric)
-                fw.fac.solve_in_place(y);
-                for (((gk, c), z), y) in grad.iter_mut().zip(cap).zip(&*z).zip(&*y) {
-                    let dj = C64::new(0.0, -*w * c) * z * y;
-                    *gk = 2.0 * dj.re;
-                }
-                0.0
-            },
-            || (),
-        );
         for fw in &wk.freqs {
             grad.iter_mut().zip(&fw.grad).for_each(|(a, b)| *a += b);
         }
