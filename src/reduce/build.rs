@@ -110,8 +110,14 @@ pub(super) fn place_leaves(
     for (i, &(l, _)) in rp.leaves.iter().enumerate() {
         lid[l as usize] = i as u32;
     }
-    let groups = LeafSites::new(a, rp.leaves.len(), sites, |x| {
-        lid[rep[sk.section_of[x] as usize] as usize]
+    // each section's leaf number (NONE outside the leaves' regions), by section number
+    let section_leaf: Vec<u32> = sk
+        .rnodes
+        .iter()
+        .map(|&k| lid[rep[k as usize] as usize])
+        .collect();
+    let groups = LeafSites::new(a, rp.leaves.len(), sites, |i| {
+        section_leaf[sk.site_section[i] as usize]
     });
     let target = leaf_targets(a, &rp.parent, &rp.leaves, &groups);
     let mut place = vec![NONE; n];
@@ -119,21 +125,22 @@ pub(super) fn place_leaves(
         let l = l as usize;
         let t = target[i];
         // the site with the smallest ln A at or above the target, else the highest (the first
-        // such in site order)
-        let (mut best, mut top) = ((NONE, f64::INFINITY), (NONE, f64::NEG_INFINITY));
+        // such in site order); branch-free selects (ln A is finite: a site always beats the
+        // infinite starts)
+        let (mut best, mut best_a) = (NONE, f64::INFINITY);
+        let (mut top, mut top_a) = (NONE, f64::NEG_INFINITY);
         for (&x, &xa) in groups
             .leaf(&groups.node, i)
             .iter()
             .zip(groups.leaf(&groups.lna, i))
         {
-            if xa >= t && (best.0 == NONE || xa < best.1) {
-                best = (x, xa);
-            }
-            if top.0 == NONE || xa > top.1 {
-                top = (x, xa);
-            }
+            let better = xa >= t && xa < best_a;
+            best = if better { x } else { best };
+            best_a = if better { xa } else { best_a };
+            let higher = xa > top_a;
+            top = if higher { x } else { top };
+            top_a = if higher { xa } else { top_a };
         }
-        let (best, top) = (best.0, top.0);
         let mut u = if best != NONE { best } else { top } as usize;
         // walk up while the parent is still at or above the target and inside the region
         loop {
@@ -163,11 +170,12 @@ struct LeafSites {
 }
 
 impl LeafSites {
-    /// `leaf_of(x)` is the leaf number of fine node x, or NONE.
+    /// `leaf_of(i)` is the leaf number of site i, or NONE.
     fn new(a: &[f64], leaves: usize, sites: &[(u32, f64)], leaf_of: impl Fn(usize) -> u32) -> Self {
         let of: Vec<u32> = sites
             .iter()
-            .map(|&(x, w)| if w > 0.0 { leaf_of(x as usize) } else { NONE })
+            .enumerate()
+            .map(|(i, &(_, w))| if w > 0.0 { leaf_of(i) } else { NONE })
             .collect();
         let mut start = vec![0usize; leaves + 1];
         for &i in of.iter().filter(|&&i| i != NONE) {
@@ -210,8 +218,9 @@ fn leaf_targets(
     leaves: &[(u32, Moments)],
     groups: &LeafSites,
 ) -> Vec<f64> {
+    use rayon::prelude::*;
     leaves
-        .iter()
+        .par_iter()
         .enumerate()
         .map(|(i, &(l, region))| {
             let p = parent[l as usize];

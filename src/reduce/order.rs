@@ -100,8 +100,11 @@ pub(super) struct Skeleton {
     pub section_of: Vec<u32>,
     /// Sites of each retained node's own section.
     pub own: Vec<Moments>,
-    /// The retained nodes, ascending (parents first).
+    /// The retained nodes, ascending (parents first); a section's number is its place here.
     pub rnodes: Vec<u32>,
+    /// Each site's section number (budget-independent: a budget then finds a site's leaf
+    /// through its section in one small table).
+    pub site_section: Vec<u32>,
 
     /// The greedy order's steps.
     pub order: Vec<Step>,
@@ -200,10 +203,19 @@ pub(super) fn skeleton(fine: &Fine, sites: &[(u32, f64)], lt: &[f64]) -> Skeleto
     for &(x, w) in sites {
         own[section_of[x as usize] as usize].add(w, fine.ln_att[x as usize], lt[x as usize]);
     }
-    let rnodes = (0..n as u32).filter(|&k| retained[k as usize]).collect();
+    let rnodes: Vec<u32> = (0..n as u32).filter(|&k| retained[k as usize]).collect();
+    let mut number = vec![NONE; n];
+    for (i, &k) in rnodes.iter().enumerate() {
+        number[k as usize] = i as u32;
+    }
+    let site_section = sites
+        .iter()
+        .map(|&(x, _)| number[section_of[x as usize] as usize])
+        .collect();
     Skeleton {
         retained,
         rnodes,
+        site_section,
         rparent,
         kids,
         section_of,
