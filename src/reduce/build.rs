@@ -129,17 +129,15 @@ pub(super) fn place_leaves(
         // infinite starts)
         let (mut best, mut best_a) = (NONE, f64::INFINITY);
         let (mut top, mut top_a) = (NONE, f64::NEG_INFINITY);
-        for (&x, &xa) in groups
-            .leaf(&groups.node, i)
-            .iter()
-            .zip(groups.leaf(&groups.lna, i))
-        {
-            let better = xa >= t && xa < best_a;
-            best = if better { x } else { best };
-            best_a = if better { xa } else { best_a };
-            let higher = xa > top_a;
-            top = if higher { x } else { top };
-            top_a = if higher { xa } else { top_a };
+        for (nodes, lna, _) in groups.leaf(i) {
+            for (&x, &xa) in nodes.iter().zip(lna) {
+                let better = xa >= t && xa < best_a;
+                best = if better { x } else { best };
+                best_a = if better { xa } else { best_a };
+                let higher = xa > top_a;
+                top = if higher { x } else { top };
+                top_a = if higher { xa } else { top_a };
+            }
         }
         let mut u = if best != NONE { best } else { top } as usize;
         // walk up while the parent is still at or above the target and inside the region
@@ -160,9 +158,15 @@ pub(super) fn place_leaves(
 }
 
 /// The sites (weight > 0) of each leaf to place, grouped by leaf and in site order within a
-/// leaf (a stable counting sort), so each leaf's passes read two short contiguous runs.
+/// leaf (a stable counting sort), so each leaf's passes read short contiguous runs: the site
+/// list is cut into two halves sorted side by side, and a leaf's sites are its run in the first
+/// half, then its run in the second (still site order).
 struct LeafSites {
-    /// Leaf i's sites are `start[i]..start[i + 1]`.
+    halves: Vec<LeafRuns>,
+}
+
+/// One half's counting sort: leaf i's sites are `start[i]..start[i + 1]`.
+struct LeafRuns {
     start: Vec<usize>,
     node: Vec<u32>,
     lna: Vec<f64>,
@@ -171,6 +175,32 @@ struct LeafSites {
 
 impl LeafSites {
     /// `leaf_of(i)` is the leaf number of site i, or NONE.
+    fn new(
+        a: &[f64],
+        leaves: usize,
+        sites: &[(u32, f64)],
+        leaf_of: impl Fn(usize) -> u32 + Sync,
+    ) -> Self {
+        use rayon::prelude::*;
+        let half = sites.len().div_ceil(2).max(1);
+        let halves = sites
+            .par_chunks(half)
+            .enumerate()
+            .map(|(h, part)| LeafRuns::new(a, leaves, part, |i| leaf_of(h * half + i)))
+            .collect();
+        LeafSites { halves }
+    }
+
+    /// Leaf i's sites as (fine node, ln A, weight) slices, in site order.
+    fn leaf(&self, i: usize) -> impl Iterator<Item = (&[u32], &[f64], &[f64])> {
+        self.halves.iter().map(move |h| {
+            let r = h.start[i]..h.start[i + 1];
+            (&h.node[r.clone()], &h.lna[r.clone()], &h.w[r])
+        })
+    }
+}
+
+impl LeafRuns {
     fn new(a: &[f64], leaves: usize, sites: &[(u32, f64)], leaf_of: impl Fn(usize) -> u32) -> Self {
         let of: Vec<u32> = sites
             .iter()
@@ -194,16 +224,12 @@ impl LeafSites {
                 (node[j], lna[j], w[j]) = (x, a[x as usize], wx);
             }
         }
-        LeafSites {
+        LeafRuns {
             start,
             node,
             lna,
             w,
         }
-    }
-
-    fn leaf<'a, T>(&self, v: &'a [T], i: usize) -> &'a [T] {
-        &v[self.start[i]..self.start[i + 1]]
     }
 }
 
@@ -225,19 +251,20 @@ fn leaf_targets(
         .map(|(i, &(l, region))| {
             let p = parent[l as usize];
             let parent_level = if p == NONE { 0.0 } else { a[p as usize] };
-            let (lna, ws) = (groups.leaf(&groups.lna, i), groups.leaf(&groups.w, i));
             let mut t = region.mean;
             for _ in 0..6 {
                 // plain weighted sums (Σw, Σw·lnA), branch-free: adding 0 changes no sum
                 let (mut w, mut wx) = (0.0, 0.0);
-                for (&xa, &wi) in lna.iter().zip(ws) {
-                    let on = if (xa - t).abs() < (xa - parent_level).abs() {
-                        1.0
-                    } else {
-                        0.0
-                    };
-                    w += wi * on;
-                    wx += wi * xa * on;
+                for (_, lna, ws) in groups.leaf(i) {
+                    for (&xa, &wi) in lna.iter().zip(ws) {
+                        let on = if (xa - t).abs() < (xa - parent_level).abs() {
+                            1.0
+                        } else {
+                            0.0
+                        };
+                        w += wi * on;
+                        wx += wi * xa * on;
+                    }
                 }
                 if w > 0.0 && t != wx / w {
                     t = wx / w;
