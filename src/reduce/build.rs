@@ -321,23 +321,34 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
     out.parent = vec![NONE; m];
     out.g = vec![0.0; m];
     out.shunt = vec![0.0; m];
-    // downwards: the eliminations, and each node's attachment (its nearest ancestor-or-self on
-    // a path to a kept node)
+    // downwards: the eliminations, and each node's candidate servers
     let mut top = vec![NONE; n];
     let mut grun = vec![0.0; n];
     let mut add = vec![0.0; n];
-    let mut att = Vec::with_capacity(n);
+    // each node's pair of candidate servers (upper, lower end), pushed in order: a kept node
+    // serves itself; a node hanging below a kept node h is served by h or h's parent in the
+    // tree (the soma: itself); a path node and what hangs below it by the path's two ends
+    let mut ends: Vec<[u32; 2]> = Vec::with_capacity(n);
     for k in 0..n {
         if !has[k] {
-            let up = att[p[k] as usize];
-            att.push(up);
+            let q = p[k] as usize;
+            let e = if kept[q] {
+                [if q == 0 { 0 } else { top[q] }, q as u32]
+            } else {
+                ends[q]
+            };
+            ends.push(e);
             continue;
         }
-        att.push(k as u32);
         if k > 0 && kept[p[k] as usize] {
             top[k] = p[k];
             grun[k] = g[k];
         }
+        ends.push(if kept[k] {
+            [k as u32; 2]
+        } else {
+            [top[k], lower[k]]
+        });
         let gx = fine.shunt[k] + fold[k] + add[k];
         if kept[k] {
             let c = out.comp[k] as usize;
@@ -357,23 +368,16 @@ pub(super) fn kron(fine: &Fine, kept: &[bool], dynamics: &[&[C64]]) -> Kept {
             top[c] = top[k];
         }
     }
-    out.serves = serving(fine, kept, dynamics, Paths { lower, att, top }, &out);
+    out.serves = serving(fine, dynamics, &ends, &out);
     out
 }
 
-/// Per fine node, from [`kron`]'s passes: the lower end of its path to a kept node, its
-/// attachment, and the kept node at the top of its path.
-struct Paths {
-    lower: Vec<u32>,
-    att: Vec<u32>,
-    top: Vec<u32>,
-}
-
 /// For every fine node, the compartment that serves it: of the two ends of the reduced link its
-/// path hangs from (below a leaf: the leaf and its parent), the one whose DC log attenuation to
-/// the soma is closest to the node's own. `dynamics` holds, per fine node, its complex log
-/// transfer to the soma at the serving frequencies.
-fn serving(fine: &Fine, kept: &[bool], dynamics: &[&[C64]], paths: Paths, out: &Kept) -> Vec<u32> {
+/// path hangs from (`ends`, from [`kron`]'s downward pass; below a leaf: the leaf and its
+/// parent), the one whose DC log attenuation to the soma is closest to the node's own.
+/// `dynamics` holds, per fine node, its complex log transfer to the soma at the serving
+/// frequencies.
+fn serving(fine: &Fine, dynamics: &[&[C64]], ends: &[[u32; 2]], out: &Kept) -> Vec<u32> {
     use rayon::prelude::*;
     let a = &fine.ln_att;
     // distance between two nodes: DC log attenuation to the soma (Np) plus the difference of
@@ -403,29 +407,12 @@ fn serving(fine: &Fine, kept: &[bool], dynamics: &[&[C64]], paths: Paths, out: &
             score(x, u) <= score(x, l)
         }
     };
-    let Paths { lower, att, top } = paths;
     // the choice itself is independent per node: in parallel
     (0..fine.len())
         .into_par_iter()
         .with_min_len(4096)
         .map(|k| {
-            let h = att[k] as usize;
-            let (u, l) = if kept[h] {
-                if h == k {
-                    (h, h)
-                } else {
-                    // below a leaf: the leaf or its parent
-                    let pc = out.parent[out.comp[h] as usize];
-                    let up = if pc == NONE {
-                        h
-                    } else {
-                        out.node[pc as usize] as usize
-                    };
-                    (up, h)
-                }
-            } else {
-                (top[h] as usize, lower[h] as usize)
-            };
+            let [u, l] = ends[k].map(|e| e as usize);
             let pick = if u == l || prefers_upper(k, u, l) {
                 u
             } else {
