@@ -685,38 +685,52 @@ impl Reducer {
         site_compartment: &[u32],
     ) -> (Vec<f64>, Vec<u32>, Vec<u32>) {
         let (fine, m) = (&self.fine, kron.node.len());
-        let mut area = vec![0.0; m];
-        // consecutive fine nodes mostly share a compartment: sum each run in a register (the
-        // same additions in the same order as one node at a time)
-        let mut run = (NONE, 0.0);
-        for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
-            if c != run.0 {
+        // three independent passes, side by side
+        let (area, (count, points)) = rayon::join(
+            || {
+                let mut area = vec![0.0; m];
+                // consecutive fine nodes mostly share a compartment: sum each run in a register
+                // (the same additions in the same order as one node at a time)
+                let mut run = (NONE, 0.0);
+                for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
+                    if c != run.0 {
+                        if run.0 != NONE {
+                            area[run.0 as usize] = run.1;
+                        }
+                        run = (c, area[c as usize]);
+                    }
+                    run.1 += ax;
+                }
                 if run.0 != NONE {
                     area[run.0 as usize] = run.1;
                 }
-                run = (c, area[c as usize]);
-            }
-            run.1 += ax;
-        }
-        if run.0 != NONE {
-            area[run.0 as usize] = run.1;
-        }
-        let mut count = vec![0u32; m];
-        for &c in site_compartment {
-            count[c as usize] += 1;
-        }
-        let points = self
-            .kept
-            .point_node
-            .iter()
-            .map(|&k| {
-                if k == NONE {
-                    NONE
-                } else {
-                    kron.serves[fine.of_flat[k as usize] as usize]
-                }
-            })
-            .collect();
+                area
+            },
+            || {
+                rayon::join(
+                    || {
+                        let mut count = vec![0u32; m];
+                        for &c in site_compartment {
+                            count[c as usize] += 1;
+                        }
+                        count
+                    },
+                    || {
+                        self.kept
+                            .point_node
+                            .iter()
+                            .map(|&k| {
+                                if k == NONE {
+                                    NONE
+                                } else {
+                                    kron.serves[fine.of_flat[k as usize] as usize]
+                                }
+                            })
+                            .collect()
+                    },
+                )
+            },
+        );
         (area, count, points)
     }
 
