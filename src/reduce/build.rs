@@ -120,41 +120,54 @@ pub(super) fn place_leaves(
         section_leaf[sk.site_section[i] as usize]
     });
     let target = leaf_targets(a, &rp.parent, &rp.leaves, &groups);
-    let mut place = vec![NONE; n];
-    for (i, &(l, _)) in rp.leaves.iter().enumerate() {
-        let l = l as usize;
-        let t = target[i];
-        // the site with the smallest ln A at or above the target, else the highest (the first
-        // such in site order); branch-free selects (ln A is finite: a site always beats the
-        // infinite starts)
-        let (mut best, mut best_a) = (NONE, f64::INFINITY);
-        let (mut top, mut top_a) = (NONE, f64::NEG_INFINITY);
-        for (nodes, lna, _) in groups.leaf(i) {
-            for (&x, &xa) in nodes.iter().zip(lna) {
-                let better = xa >= t && xa < best_a;
-                best = if better { x } else { best };
-                best_a = if better { xa } else { best_a };
-                let higher = xa > top_a;
-                top = if higher { x } else { top };
-                top_a = if higher { xa } else { top_a };
+    // each leaf's node, independently: in parallel
+    use rayon::prelude::*;
+    let spots: Vec<u32> = rp
+        .leaves
+        .par_iter()
+        .enumerate()
+        .map(|(i, &(l, _))| {
+            let (l, t) = (l as usize, target[i]);
+            let mut u = best_site(&groups, i, t) as usize;
+            // walk up while the parent is still at or above the target and inside the region
+            loop {
+                let p = fine.parent[u] as usize;
+                if u == 0 || !in_region(p, l) || a[p] < t {
+                    break;
+                }
+                u = p;
             }
-        }
-        let mut u = if best != NONE { best } else { top } as usize;
-        // walk up while the parent is still at or above the target and inside the region
-        loop {
             let p = fine.parent[u] as usize;
-            if u == 0 || !in_region(p, l) || a[p] < t {
-                break;
+            if u != 0 && in_region(p, l) && (t - a[p]).abs() < (a[u] - t).abs() {
+                u = p;
             }
-            u = p;
-        }
-        let p = fine.parent[u] as usize;
-        if u != 0 && in_region(p, l) && (t - a[p]).abs() < (a[u] - t).abs() {
-            u = p;
-        }
-        place[l] = u as u32;
+            u as u32
+        })
+        .collect();
+    let mut place = vec![NONE; n];
+    for (&(l, _), &u) in rp.leaves.iter().zip(&spots) {
+        place[l as usize] = u;
     }
     place
+}
+
+/// Of leaf i's sites, the one with the smallest ln A at or above `t`, else the highest (the
+/// first such in site order); branch-free selects (ln A is finite: a site always beats the
+/// infinite starts).
+fn best_site(groups: &LeafSites, i: usize, t: f64) -> u32 {
+    let (mut best, mut best_a) = (NONE, f64::INFINITY);
+    let (mut top, mut top_a) = (NONE, f64::NEG_INFINITY);
+    for (nodes, lna, _) in groups.leaf(i) {
+        for (&x, &xa) in nodes.iter().zip(lna) {
+            let better = xa >= t && xa < best_a;
+            best = if better { x } else { best };
+            best_a = if better { xa } else { best_a };
+            let higher = xa > top_a;
+            top = if higher { x } else { top };
+            top_a = if higher { xa } else { top_a };
+        }
+    }
+    if best != NONE { best } else { top }
 }
 
 /// The sites (weight > 0) of each leaf to place, grouped by leaf and in site order within a
