@@ -435,3 +435,33 @@ fn serving(fine: &Fine, dynamics: &[&[C64]], ends: &[[u32; 2]], out: &Kept) -> V
         })
         .collect()
 }
+
+/// Membrane area (µm²) of each of `m` compartments: the areas of the fine nodes it serves.
+/// Consecutive fine nodes mostly share a compartment, so each run is summed in a register (the
+/// same additions in the same order as one node at a time).
+pub(super) fn compartment_areas(serves: &[u32], area: &[f64], m: usize) -> Vec<f64> {
+    let mut out = vec![0.0; m];
+    let mut run = (NONE, 0.0);
+    for (&c, &ax) in serves.iter().zip(area) {
+        if c != run.0 {
+            if run.0 != NONE {
+                out[run.0 as usize] = run.1;
+            }
+            run = (c, out[c as usize]);
+        }
+        run.1 += ax;
+    }
+    if run.0 != NONE {
+        out[run.0 as usize] = run.1;
+    }
+    out
+}
+
+/// Number of sites of each of `m` compartments.
+pub(super) fn site_counts(site_compartment: &[u32], m: usize) -> Vec<u32> {
+    let mut count = vec![0u32; m];
+    for &c in site_compartment {
+        count[c as usize] += 1;
+    }
+    count
+}

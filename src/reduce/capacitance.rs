@@ -53,9 +53,8 @@ const SLOW_BAND: f64 = 0.02;
 
 /// Inverse-iteration steps of the fit's estimate of the slowest rate (see
 /// `SlowestMode::estimate`). A smooth estimate is all the penalty needs (the fitted τ is then
-/// certified and held in the band); 12 steps instead of 24 (session 9) left every scored row
-/// within its targets (120 of 120 unrounded; `fitted` 84 → 85) and took ~0.5 ms off a
-/// 63-compartment budget of the 100,000-point cell.
+/// certified and held in the band); 12 steps keep every scored row within its targets, as 24
+/// did, at half the cost (docs/fidelity.md, session 9).
 const SLOW_STEPS: usize = 12;
 
 /// The full cell's ln Z_0k(jω) at every kept-cell node for each fit frequency, phase unwrapped
@@ -209,8 +208,11 @@ const SERIAL_MAX_COMPARTMENTS: usize = 31;
 /// fit's (docs/fidelity.md, session 8).
 const ALL_HZ_MAX_COMPARTMENTS: usize = 63;
 
-/// Above [`ALL_HZ_MAX_COMPARTMENTS`], the fit ends once a step gains less than this fraction
-/// of the starting objective (1e-7 below). On the 100,000-point cell at 127 compartments the
+/// The fit ends once a step gains less than this fraction of its starting objective, at the
+/// scored budgets (up to [`ALL_HZ_MAX_COMPARTMENTS`]).
+const FIT_TOL: f64 = 1e-7;
+
+/// The same above [`ALL_HZ_MAX_COMPARTMENTS`]. On the 100,000-point cell at 127 compartments the
 /// last 14 of 24 iterations gained 3e-4 of it in all, at six line-search halvings each
 /// (159 evaluations, 2.5 ms): the slowest-mode penalty's gradient is that of a converged mode,
 /// the estimate's is not, and near the band's edge the steps shrink.
@@ -467,7 +469,7 @@ pub(super) fn assign(r: &Reducer, kept: &Kept, serves_site: &[u32]) -> Vec<f64> 
     // above (24 at 127, 8 from 388)
     let iters = if n <= 63 { 200 * 31 / n } else { 100 * 31 / n }.clamp(8, 200);
     let tol = if n <= ALL_HZ_MAX_COMPARTMENTS {
-        1e-7
+        FIT_TOL
     } else {
         LARGE_TREE_TOL
     };

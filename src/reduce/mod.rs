@@ -678,60 +678,40 @@ impl Reducer {
     }
 
     /// Per compartment of a Kron-reduced tree: its membrane area (µm², the fine nodes it serves)
-    /// and its number of sites; per point of the kept cell, its compartment.
+    /// and its number of sites; per point of the kept cell, its compartment. Three independent
+    /// passes, side by side.
     fn areas_counts_points(
         &self,
         kron: &build::Kept,
         site_compartment: &[u32],
     ) -> (Vec<f64>, Vec<u32>, Vec<u32>) {
-        let (fine, m) = (&self.fine, kron.node.len());
-        // three independent passes, side by side
+        let m = kron.node.len();
         let (area, (count, points)) = rayon::join(
-            || {
-                let mut area = vec![0.0; m];
-                // consecutive fine nodes mostly share a compartment: sum each run in a register
-                // (the same additions in the same order as one node at a time)
-                let mut run = (NONE, 0.0);
-                for (&c, &ax) in kron.serves.iter().zip(&fine.area) {
-                    if c != run.0 {
-                        if run.0 != NONE {
-                            area[run.0 as usize] = run.1;
-                        }
-                        run = (c, area[c as usize]);
-                    }
-                    run.1 += ax;
-                }
-                if run.0 != NONE {
-                    area[run.0 as usize] = run.1;
-                }
-                area
-            },
+            || build::compartment_areas(&kron.serves, &self.fine.area, m),
             || {
                 rayon::join(
-                    || {
-                        let mut count = vec![0u32; m];
-                        for &c in site_compartment {
-                            count[c as usize] += 1;
-                        }
-                        count
-                    },
-                    || {
-                        self.kept
-                            .point_node
-                            .iter()
-                            .map(|&k| {
-                                if k == NONE {
-                                    NONE
-                                } else {
-                                    kron.serves[fine.of_flat[k as usize] as usize]
-                                }
-                            })
-                            .collect()
-                    },
+                    || build::site_counts(site_compartment, m),
+                    || self.point_compartments(kron),
                 )
             },
         );
         (area, count, points)
+    }
+
+    /// The compartment of every point of the kept cell (NONE for points without a node).
+    fn point_compartments(&self, kron: &build::Kept) -> Vec<u32> {
+        let fine = &self.fine;
+        self.kept
+            .point_node
+            .iter()
+            .map(|&k| {
+                if k == NONE {
+                    NONE
+                } else {
+                    kron.serves[fine.of_flat[k as usize] as usize]
+                }
+            })
+            .collect()
     }
 
     /// The full cell's complex log transfer to the soma at the fit frequencies.
